@@ -1,0 +1,1 @@
+use pyo3::prelude::*; #[pymodule] fn _native(_m: &Bound<PyModule>) -> PyResult<()> { Ok(()) }

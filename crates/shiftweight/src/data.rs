@@ -1,0 +1,337 @@
+//! Validated row-major matrices and the standardiser.
+//!
+//! Every estimator standardises features with a [`Standardizer`] fitted on the pooled source and
+//! target rows, so kernel widths are in standard-deviation units and results do not depend on the
+//! units of measurement. The standardiser is stored in the fitted model.
+
+use crate::error::{Error, Result};
+use serde::{Deserialize, Serialize};
+
+/// A borrowed, row-major matrix of `f64`: `rows` rows of `cols` values each.
+#[derive(Debug, Clone, Copy)]
+pub struct MatrixView<'a> {
+    data: &'a [f64],
+    rows: usize,
+    cols: usize,
+}
+
+impl<'a> MatrixView<'a> {
+    /// Wraps a row-major buffer. Fails when `data.len() != rows * cols`.
+    pub fn new(data: &'a [f64], rows: usize, cols: usize) -> Result<Self> {
+        Self::named(data, rows, cols, "matrix")
+    }
+
+    /// As [`MatrixView::new`], naming the argument in the error.
+    pub fn named(data: &'a [f64], rows: usize, cols: usize, argument: &str) -> Result<Self> {
+        if rows.checked_mul(cols) != Some(data.len()) {
+            return Err(Error::ShapeMismatch {
+                argument: argument.to_string(),
+                len: data.len(),
+                rows,
+                cols,
+            });
+        }
+        Ok(Self { data, rows, cols })
+    }
+
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.rows
+    }
+    /// Number of columns (features).
+    pub fn cols(&self) -> usize {
+        self.cols
+    }
+    /// The underlying row-major buffer.
+    pub fn as_slice(&self) -> &'a [f64] {
+        self.data
+    }
+    /// Row `i` as a slice.
+    pub fn row(&self, i: usize) -> &'a [f64] {
+        &self.data[i * self.cols..(i + 1) * self.cols]
+    }
+    /// Rows `start..end` as a view.
+    pub fn slice_rows(&self, start: usize, end: usize) -> MatrixView<'a> {
+        MatrixView {
+            data: &self.data[start * self.cols..end * self.cols],
+            rows: end - start,
+            cols: self.cols,
+        }
+    }
+    /// Copies the rows with the given indices into a new matrix.
+    pub fn select_rows(&self, idx: &[usize]) -> Matrix {
+        let mut data = Vec::with_capacity(idx.len() * self.cols);
+        for &i in idx {
+            data.extend_from_slice(self.row(i));
+        }
+        Matrix {
+            data,
+            rows: idx.len(),
+            cols: self.cols,
+        }
+    }
+    /// Copies into an owned matrix.
+    pub fn to_owned(&self) -> Matrix {
+        Matrix {
+            data: self.data.to_vec(),
+            rows: self.rows,
+            cols: self.cols,
+        }
+    }
+
+    /// Checks the matrix for use as `argument`: at least `min_rows` rows, at least one column,
+    /// every value finite. Errors name the argument and the first offending row and column.
+    pub fn validate(&self, argument: &str, min_rows: usize) -> Result<()> {
+        if self.cols == 0 {
+            return Err(Error::NoFeatures {
+                argument: argument.to_string(),
+            });
+        }
+        if self.rows < min_rows {
+            return Err(Error::TooFewRows {
+                argument: argument.to_string(),
+                found: self.rows,
+                required: min_rows,
+            });
+        }
+        if let Some(pos) = self.data.iter().position(|v| !v.is_finite()) {
+            return Err(Error::NonFinite {
+                argument: argument.to_string(),
+                row: pos / self.cols,
+                column: pos % self.cols,
+                value: self.data[pos],
+            });
+        }
+        Ok(())
+    }
+
+    /// Checks that this matrix has `expected` columns.
+    pub fn expect_cols(&self, argument: &str, expected: usize) -> Result<()> {
+        if self.cols != expected {
+            return Err(Error::FeatureCountMismatch {
+                argument: argument.to_string(),
+                expected,
+                found: self.cols,
+            });
+        }
+        Ok(())
+    }
+}
+
+/// An owned row-major matrix of `f64`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Matrix {
+    data: Vec<f64>,
+    rows: usize,
+    cols: usize,
+}
+
+impl Matrix {
+    /// Builds from a row-major buffer. Fails when `data.len() != rows * cols`.
+    pub fn new(data: Vec<f64>, rows: usize, cols: usize) -> Result<Self> {
+        MatrixView::new(&data, rows, cols)?;
+        Ok(Self { data, rows, cols })
+    }
+    /// Builds from rows of equal length.
+    pub fn from_rows(rows: &[Vec<f64>]) -> Result<Self> {
+        let cols = rows.first().map_or(0, |r| r.len());
+        let mut data = Vec::with_capacity(rows.len() * cols);
+        for (i, r) in rows.iter().enumerate() {
+            if r.len() != cols {
+                return Err(Error::LengthMismatch {
+                    argument: format!("row {i}"),
+                    expected: cols,
+                    found: r.len(),
+                });
+            }
+            data.extend_from_slice(r);
+        }
+        Ok(Self {
+            data,
+            rows: rows.len(),
+            cols,
+        })
+    }
+    /// A borrowed view.
+    pub fn view(&self) -> MatrixView<'_> {
+        MatrixView {
+            data: &self.data,
+            rows: self.rows,
+            cols: self.cols,
+        }
+    }
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.rows
+    }
+    /// Number of columns.
+    pub fn cols(&self) -> usize {
+        self.cols
+    }
+    /// Row `i`.
+    pub fn row(&self, i: usize) -> &[f64] {
+        &self.data[i * self.cols..(i + 1) * self.cols]
+    }
+    /// The row-major buffer.
+    pub fn as_slice(&self) -> &[f64] {
+        &self.data
+    }
+    /// Consumes into the row-major buffer.
+    pub fn into_vec(self) -> Vec<f64> {
+        self.data
+    }
+    /// Checks the declared shape against the buffer (used after deserialisation).
+    pub(crate) fn check_shape(&self, argument: &str) -> Result<()> {
+        MatrixView::named(&self.data, self.rows, self.cols, argument).map(|_| ())
+    }
+}
+
+/// Validates a source/target pair: both finite, same width, enough rows.
+pub fn validate_pair(source: &MatrixView, target: &MatrixView, min_rows: usize) -> Result<()> {
+    source.validate("source", min_rows)?;
+    target.validate("target", min_rows)?;
+    target.expect_cols("target", source.cols())?;
+    Ok(())
+}
+
+/// Per-feature centring and scaling, fitted on the pooled source and target rows.
+///
+/// A column that is constant in the pooled data carries no information about the shift; it keeps
+/// scale 1 (so it contributes nothing to distances) and is listed in `constant_columns`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Standardizer {
+    /// Pooled mean of each column.
+    pub mean: Vec<f64>,
+    /// Pooled standard deviation of each column (1 for constant columns).
+    pub scale: Vec<f64>,
+    /// Indices of columns that were constant in the pooled data.
+    pub constant_columns: Vec<usize>,
+}
+
+impl Standardizer {
+    /// Fits on the union of the given matrices (all must have the same width).
+    /// Uses a two-pass algorithm for accuracy. O(n d).
+    pub fn fit(parts: &[MatrixView]) -> Self {
+        let d = parts.first().map_or(0, |p| p.cols());
+        let n: usize = parts.iter().map(|p| p.rows()).sum();
+        let mut mean = vec![0.0; d];
+        for p in parts {
+            for i in 0..p.rows() {
+                for (m, v) in mean.iter_mut().zip(p.row(i)) {
+                    *m += v;
+                }
+            }
+        }
+        for m in &mut mean {
+            *m /= n.max(1) as f64;
+        }
+        let mut var = vec![0.0; d];
+        for p in parts {
+            for i in 0..p.rows() {
+                for ((s, v), m) in var.iter_mut().zip(p.row(i)).zip(&mean) {
+                    let c = v - m;
+                    *s += c * c;
+                }
+            }
+        }
+        let mut constant_columns = Vec::new();
+        let scale = var
+            .iter()
+            .zip(&mean)
+            .enumerate()
+            .map(|(j, (s, m))| {
+                let sd = (s / (n.max(2) - 1) as f64).sqrt();
+                // A column is constant when its spread is negligible relative to its magnitude.
+                if !(sd > 1e-12 * m.abs().max(1e-300)) || !sd.is_finite() || sd == 0.0 {
+                    constant_columns.push(j);
+                    1.0
+                } else {
+                    sd
+                }
+            })
+            .collect();
+        Self {
+            mean,
+            scale,
+            constant_columns,
+        }
+    }
+
+    /// Number of features.
+    pub fn n_features(&self) -> usize {
+        self.mean.len()
+    }
+
+    /// Standardises one row into `out`.
+    #[inline]
+    pub fn transform_row(&self, row: &[f64], out: &mut [f64]) {
+        for (((o, v), m), s) in out.iter_mut().zip(row).zip(&self.mean).zip(&self.scale) {
+            *o = (v - m) / s;
+        }
+    }
+
+    /// Standardises a whole matrix.
+    pub fn transform(&self, x: &MatrixView) -> Matrix {
+        let d = x.cols();
+        let mut data = vec![0.0; x.rows() * d];
+        for (i, out) in data.chunks_mut(d.max(1)).enumerate().take(x.rows()) {
+            self.transform_row(x.row(i), out);
+        }
+        Matrix {
+            data,
+            rows: x.rows(),
+            cols: d,
+        }
+    }
+
+    pub(crate) fn check(&self) -> Result<()> {
+        if self.mean.len() != self.scale.len() {
+            return Err(Error::ModelFile(
+                "standardizer mean and scale lengths differ".into(),
+            ));
+        }
+        if self.mean.iter().chain(&self.scale).any(|v| !v.is_finite())
+            || self.scale.iter().any(|s| *s <= 0.0)
+        {
+            return Err(Error::ModelFile(
+                "standardizer holds non-finite or non-positive values".into(),
+            ));
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn validate_names_first_bad_cell() {
+        let data = [1.0, 2.0, 3.0, f64::NAN, 5.0, 6.0];
+        let v = MatrixView::new(&data, 3, 2).unwrap();
+        match v.validate("source", 2) {
+            Err(Error::NonFinite { row, column, .. }) => assert_eq!((row, column), (1, 1)),
+            other => panic!("unexpected {other:?}"),
+        }
+    }
+
+    #[test]
+    fn shape_mismatch_is_error() {
+        assert!(MatrixView::new(&[1.0, 2.0, 3.0], 2, 2).is_err());
+    }
+
+    #[test]
+    fn standardizer_pooled_moments() {
+        // Hand-worked: pooled column 0 = {1,2,3,4}: mean 2.5, sample sd sqrt(5/3).
+        let a = [1.0, 7.0, 2.0, 7.0];
+        let b = [3.0, 7.0, 4.0, 7.0];
+        let s = Standardizer::fit(&[
+            MatrixView::new(&a, 2, 2).unwrap(),
+            MatrixView::new(&b, 2, 2).unwrap(),
+        ]);
+        assert!((s.mean[0] - 2.5).abs() < 1e-15);
+        assert!((s.scale[0] - (5.0f64 / 3.0).sqrt()).abs() < 1e-15);
+        assert_eq!(s.constant_columns, vec![1]);
+        assert_eq!(s.scale[1], 1.0);
+    }
+}

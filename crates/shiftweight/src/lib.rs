@@ -1,0 +1,55 @@
+//! # shiftweight
+//!
+//! Tools for a model trained on one population (the *source*, labelled rows) and used on another
+//! (the *target*, an unlabelled sample of the inputs it will really see).
+//!
+//! A short tour:
+//! - [`data`]: validated row-major matrices ([`MatrixView`]) and the pooled [`data::Standardizer`].
+//! - [`kernel`]: the Gaussian kernel, the median-heuristic width, basis centres, chunked blocks.
+//! - [`ratio`]: importance weights w(x) = p_target(x) / p_source(x). Every estimator implements
+//!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
+//!   memory and saves to a versioned JSON file ([`model`]).
+//! - [`learn`]: importance-weighted logistic and ridge regression.
+//! - [`demo`]: the invented electricity-consumption scenario used by the CLI and notebooks.
+//!
+//! ```
+//! use shiftweight::{LeastSquaresRatio, MatrixView, RatioEstimator};
+//! // Source rows around 0, target rows around 1 (one feature).
+//! let source: Vec<f64> = (0..200).map(|i| (i as f64 / 200.0) * 2.0 - 1.0).collect();
+//! let target: Vec<f64> = (0..200).map(|i| (i as f64 / 200.0) * 2.0).collect();
+//! let model = LeastSquaresRatio::new()
+//!     .n_basis(50)
+//!     .fit(MatrixView::new(&source, 200, 1)?, MatrixView::new(&target, 200, 1)?)?;
+//! let w = model.ratio(MatrixView::new(&[-0.9, 0.9], 2, 1)?)?;
+//! assert!(w[1] > w[0]); // rows near the target get more weight
+//! let again = shiftweight::FittedRatio::from_json(&model.to_json()?)?;
+//! assert_eq!(again.ratio(MatrixView::new(&[0.5], 1, 1)?)?, model.ratio(MatrixView::new(&[0.5], 1, 1)?)?);
+//! # Ok::<(), shiftweight::Error>(())
+//! ```
+//!
+//! Cautions: weighting corrects covariate shift only (p(x) changes, p(y|x) does not); it cannot
+//! correct label or concept shift, and it fails where the source does not cover the target.
+//! Validate on labelled target data before relying on it, and defer to the regulations and review
+//! processes of the domain when the weights feed decisions about people.
+
+pub mod data;
+pub mod demo;
+pub mod error;
+pub mod kernel;
+pub mod learn;
+pub mod model;
+pub mod par;
+pub mod ratio;
+
+pub use data::{Matrix, MatrixView, Standardizer};
+pub use error::{Error, Result};
+pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
+
+/// Sets the number of threads of the global pool used by the crate (call once, before any work).
+/// Returns an error if the pool was already built.
+pub fn set_threads(n: usize) -> Result<()> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(n)
+        .build_global()
+        .map_err(|e| Error::param("threads", format!("the thread pool is already running: {e}")))
+}

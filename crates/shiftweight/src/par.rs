@@ -1,0 +1,46 @@
+//! Deterministic parallel reduction over fixed-size row chunks.
+//!
+//! Rows are cut into chunks of [`CHUNK_ROWS`]; batches of [`BATCH_CHUNKS`] chunks are mapped in
+//! parallel and their partial results folded in chunk order. Chunk and batch sizes never depend on
+//! the thread count, so the floating-point summation order, and therefore every result, is
+//! bitwise identical for any number of threads and across runs.
+
+use crate::kernel::CHUNK_ROWS;
+use rayon::prelude::*;
+
+/// Chunks mapped in parallel per batch (bounds memory to BATCH_CHUNKS partials at a time).
+pub const BATCH_CHUNKS: usize = 8;
+
+/// Maps every chunk `start..end` of `0..n_rows` with `map` (in parallel) and folds the partials
+/// into `acc` with `fold`, in chunk order.
+pub fn reduce_chunks<T, A, M, F>(n_rows: usize, mut acc: A, map: M, mut fold: F) -> A
+where
+    T: Send,
+    M: Fn(usize, usize) -> T + Sync,
+    F: FnMut(&mut A, T),
+{
+    let n_chunks = n_rows.div_ceil(CHUNK_ROWS);
+    let mut first = 0;
+    while first < n_chunks {
+        let last = (first + BATCH_CHUNKS).min(n_chunks);
+        let partials: Vec<T> = (first..last)
+            .into_par_iter()
+            .map(|k| {
+                let start = k * CHUNK_ROWS;
+                map(start, (start + CHUNK_ROWS).min(n_rows))
+            })
+            .collect();
+        for p in partials {
+            fold(&mut acc, p);
+        }
+        first = last;
+    }
+    acc
+}
+
+/// Adds `src` into `dst` elementwise.
+pub fn add_into(dst: &mut [f64], src: &[f64]) {
+    for (a, b) in dst.iter_mut().zip(src) {
+        *a += b;
+    }
+}

@@ -1,0 +1,406 @@
+//! Least-squares importance fitting: uLSIF (Kanamori, Hido, Sugiyama 2009, JMLR 10) and its
+//! relative variant RuLSIF (Yamada et al. 2013, Neural Computation 25).
+//!
+//! Model: r(x) = sum_l theta_l k(x, c_l) with Gaussian kernels at `b` centres drawn from the target.
+//! Objective (alpha in [0, 1); alpha = 0 is uLSIF):
+//!
+//! ```text
+//! minimise 1/2 theta' H theta - h' theta + lambda/2 |theta|^2
+//! H = (1 - alpha)/n_s sum_source k k' + alpha/n_t sum_target k k',   h = 1/n_t sum_target k
+//! theta = max(0, (H + lambda I)^-1 h)          (negative coefficients rounded up to zero)
+//! ```
+//!
+//! With alpha > 0 the model estimates the relative ratio p_t / (alpha p_t + (1 - alpha) p_s),
+//! which is bounded by 1/alpha and therefore far more stable under weak overlap.
+//!
+//! Hyperparameters not given are chosen by exact closed-form leave-one-out cross-validation: the
+//! i-th source row and the i-th target row are held out together (Kanamori et al. 2009, section
+//! 3.4) and the held-out squared-loss criterion
+//! `(1 - alpha)/2 r(x_s)^2 + alpha/2 r(x_t)^2 - r(x_t)` is averaged. The held-out solutions come
+//! from a rank-1 (uLSIF) or rank-2 (RuLSIF) Woodbury update of one eigendecomposition of H per
+//! kernel width, so every lambda of the grid costs O(m b^2) for m held-out pairs, and the score
+//! equals brute-force refits exactly. Above `max_cv_rows` pairs, a seeded subset of pairs is held
+//! out (each still removed from the full statistics), which keeps the criterion unbiased.
+//!
+//! Complexity: O((n_s + n_t) b d) for distances, O(n_sigma (n_s + [alpha > 0] n_t) b^2) for the
+//! statistics H (accumulated over row chunks; no n x b matrix is ever held), O(n_sigma (b^3 +
+//! n_lambda m b^2)) for the cross-validation, O(n b d) to score n rows. Memory O(n_sigma b^2 + m b).
+
+use super::{fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator,
+            RatioForm, ScoreRow, Selection};
+use crate::data::{validate_pair, MatrixView};
+use crate::error::{Error, Result};
+use crate::kernel;
+use crate::par;
+use faer::linalg::matmul::matmul;
+use faer::prelude::*;
+use faer::{Accum, Mat, Side};
+use rand::seq::index::sample;
+
+/// uLSIF / RuLSIF configuration. Build with [`LeastSquaresRatio::new`] and the setters.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LeastSquaresRatio {
+    /// Kernel width in standardised units; `None` (default) chooses it by LOOCV over
+    /// `sigma_multiples` x the median pairwise distance.
+    pub sigma: Option<f64>,
+    /// Ridge strength lambda > 0; `None` (default) chooses it by LOOCV over `lambda_grid`.
+    pub lam: Option<f64>,
+    /// Number of kernel centres drawn from the target (default 200, at least 1; capped at n_t).
+    pub n_basis: usize,
+    /// Relative-ratio mixing alpha in [0, 1) (default 0 = uLSIF).
+    pub alpha: f64,
+    /// Seed for centres, the median-heuristic subsample and the held-out pairs (default 0).
+    pub seed: u64,
+    /// Candidate widths as multiples of the median distance (default 1/4, 1/2, 1, 2, 4).
+    pub sigma_multiples: Vec<f64>,
+    /// Candidate ridge strengths (default 1e-3, 1e-2, 1e-1, 1, 10).
+    pub lambda_grid: Vec<f64>,
+    /// Most held-out pairs used by LOOCV (default 10,000; at least 2).
+    pub max_cv_rows: usize,
+}
+
+impl Default for LeastSquaresRatio {
+    fn default() -> Self {
+        Self {
+            sigma: None,
+            lam: None,
+            n_basis: 200,
+            alpha: 0.0,
+            seed: 0,
+            sigma_multiples: vec![0.25, 0.5, 1.0, 2.0, 4.0],
+            lambda_grid: vec![1e-3, 1e-2, 1e-1, 1.0, 10.0],
+            max_cv_rows: 10_000,
+        }
+    }
+}
+
+impl LeastSquaresRatio {
+    /// Defaults: data-chosen width and ridge, 200 centres, alpha = 0 (uLSIF), seed 0.
+    pub fn new() -> Self {
+        Self::default()
+    }
+    /// Fixes the kernel width (standardised units, > 0).
+    pub fn sigma(mut self, sigma: Option<f64>) -> Self {
+        self.sigma = sigma;
+        self
+    }
+    /// Fixes the ridge strength (> 0).
+    pub fn lam(mut self, lam: Option<f64>) -> Self {
+        self.lam = lam;
+        self
+    }
+    /// Number of centres (>= 1).
+    pub fn n_basis(mut self, n: usize) -> Self {
+        self.n_basis = n;
+        self
+    }
+    /// Relative-ratio alpha in [0, 1).
+    pub fn alpha(mut self, alpha: f64) -> Self {
+        self.alpha = alpha;
+        self
+    }
+    /// Seed of every random choice.
+    pub fn seed(mut self, seed: u64) -> Self {
+        self.seed = seed;
+        self
+    }
+    /// Width grid, as multiples of the median distance (each > 0).
+    pub fn sigma_multiples(mut self, m: Vec<f64>) -> Self {
+        self.sigma_multiples = m;
+        self
+    }
+    /// Ridge grid (each > 0).
+    pub fn lambda_grid(mut self, g: Vec<f64>) -> Self {
+        self.lambda_grid = g;
+        self
+    }
+    /// Most held-out pairs in LOOCV (>= 2).
+    pub fn max_cv_rows(mut self, m: usize) -> Self {
+        self.max_cv_rows = m;
+        self
+    }
+
+    /// Rejects out-of-range settings with an error naming the parameter.
+    pub fn check(&self) -> Result<()> {
+        if let Some(s) = self.sigma {
+            kernel::check_sigma("sigma", s)?;
+        }
+        if let Some(l) = self.lam {
+            if !(l.is_finite() && l > 0.0) {
+                return Err(Error::param("lam", format!("must be finite and > 0, got {l}")));
+            }
+        }
+        if self.n_basis == 0 {
+            return Err(Error::param("n_basis", "must be at least 1"));
+        }
+        if !(self.alpha >= 0.0 && self.alpha < 1.0) {
+            return Err(Error::param("alpha", format!("must be in [0, 1), got {}", self.alpha)));
+        }
+        if self.sigma_multiples.is_empty()
+            || self.sigma_multiples.iter().any(|v| !(v.is_finite() && *v > 0.0))
+        {
+            return Err(Error::param("sigma_multiples", "must be a non-empty list of finite values > 0"));
+        }
+        if self.lambda_grid.is_empty() || self.lambda_grid.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
+            return Err(Error::param("lambda_grid", "must be a non-empty list of finite values > 0"));
+        }
+        if self.max_cv_rows < 2 {
+            return Err(Error::param("max_cv_rows", "must be at least 2"));
+        }
+        Ok(())
+    }
+}
+
+/// Kernel statistics of one sample for several widths: sum of k k' (optional) and sum of k.
+pub(crate) struct KernelSums {
+    pub gram: Vec<Option<Mat<f64>>>,
+    pub sum: Vec<Vec<f64>>,
+}
+
+/// Accumulates, for every width, sum_i k(x_i) k(x_i)' (when `gram`) and sum_i k(x_i) over the rows
+/// of `z`, chunk by chunk through [`crate::par::reduce_chunks`] (bitwise reproducible for any
+/// thread count). Memory: O(BATCH_CHUNKS * n_sigma * b^2); no n x b matrix is held.
+pub(crate) fn kernel_sums(z: MatrixView, centres: MatrixView, sigmas: &[f64], gram: bool) -> KernelSums {
+    let b = centres.rows();
+    let c_sq = kernel::row_sq_norms(centres);
+    let init = KernelSums {
+        gram: sigmas.iter().map(|_| gram.then(|| Mat::<f64>::zeros(b, b))).collect(),
+        sum: sigmas.iter().map(|_| vec![0.0; b]).collect(),
+    };
+    par::reduce_chunks(
+        z.rows(),
+        init,
+        |start, end| {
+            let rows = z.slice_rows(start, end);
+            let m = end - start;
+            let mut dist = vec![0.0; m * b];
+            kernel::sq_distances_into(rows, centres, &c_sq, &mut dist);
+            let mut kb = vec![0.0; m * b];
+            let mut part = KernelSums { gram: Vec::new(), sum: Vec::new() };
+            for &s in sigmas {
+                kb.copy_from_slice(&dist);
+                kernel::gaussian_in_place(&mut kb, s);
+                let mut sum = vec![0.0; b];
+                for row in kb.chunks_exact(b) {
+                    par::add_into(&mut sum, row);
+                }
+                part.sum.push(sum);
+                part.gram.push(gram.then(|| {
+                    let km = MatRef::from_row_major_slice(&kb, m, b);
+                    let mut g = Mat::<f64>::zeros(b, b);
+                    matmul(g.as_mut(), Accum::Replace, km.transpose(), km, 1.0, Par::Seq);
+                    g
+                }));
+            }
+            part
+        },
+        |acc, p| {
+            for (s, ps) in acc.sum.iter_mut().zip(&p.sum) {
+                par::add_into(s, ps);
+            }
+            for (g, pg) in acc.gram.iter_mut().zip(p.gram) {
+                if let (Some(g), Some(pg)) = (g.as_mut(), pg) {
+                    *g += pg;
+                }
+            }
+        },
+    )
+}
+
+/// Held-out LOO scores of every lambda for one width. `ks`, `kt`: kernel values at the held-out
+/// source and target rows, row-major m x b. `base` = (1-alpha)/(n_s-1) S_s + alpha/(n_t-1) S_t.
+#[allow(clippy::too_many_arguments)]
+fn loo_scores(
+    base: &Mat<f64>,
+    sum_t: &[f64],
+    ks: &[f64],
+    kt: &[f64],
+    m: usize,
+    n_s: usize,
+    n_t: usize,
+    alpha: f64,
+    lambdas: &[f64],
+) -> Result<Vec<f64>> {
+    let b = sum_t.len();
+    let eig = base
+        .self_adjoint_eigen(Side::Lower)
+        .map_err(|e| Error::Numerical { context: "uLSIF eigendecomposition".into(), reason: format!("{e:?}") })?;
+    let u = eig.U();
+    let s: Vec<f64> = (0..b).map(|j| eig.S()[j].max(0.0)).collect();
+    let ksm = MatRef::from_row_major_slice(ks, m, b).transpose(); // b x m
+    let ktm = MatRef::from_row_major_slice(kt, m, b).transpose();
+    let mut g = Mat::<f64>::zeros(b, m);
+    let mut f = Mat::<f64>::zeros(b, m);
+    matmul(g.as_mut(), Accum::Replace, u.transpose(), ksm, 1.0, Par::Seq);
+    matmul(f.as_mut(), Accum::Replace, u.transpose(), ktm, 1.0, Par::Seq);
+    let st = ColRef::from_slice(sum_t);
+    let gt: Col<f64> = u.transpose() * st;
+    let a = 1.0 - alpha;
+    let p = a / (n_s as f64 - 1.0);
+    let q = alpha / (n_t as f64 - 1.0);
+    let nt1 = n_t as f64 - 1.0;
+    let mut scores = Vec::with_capacity(lambdas.len());
+    for &lam in lambdas {
+        let dinv: Vec<f64> = s.iter().map(|sj| 1.0 / (sj + lam)).collect();
+        // theta~ in eigen-coordinates for every held-out pair (columns).
+        let mut tt = Mat::<f64>::zeros(b, m);
+        let mut bad = false;
+        for i in 0..m {
+            let (mut uu, mut uv, mut vv, mut uy, mut vy) = (0.0, 0.0, 0.0, 0.0, 0.0);
+            for j in 0..b {
+                let (uj, vj, dj) = (g[(j, i)], f[(j, i)], dinv[j]);
+                let yj = dj * (gt[j] - vj) / nt1;
+                uu += uj * dj * uj;
+                uv += uj * dj * vj;
+                vv += vj * dj * vj;
+                uy += uj * yj;
+                vy += vj * yj;
+            }
+            let (z0, z1) = if alpha == 0.0 {
+                let den = 1.0 / p - uu;
+                if den.abs() < 1e-12 * (1.0 / p) {
+                    bad = true;
+                    break;
+                }
+                (uy / den, 0.0)
+            } else {
+                let (m00, m01, m11) = (1.0 / p - uu, -uv, 1.0 / q - vv);
+                let det = m00 * m11 - m01 * m01;
+                if det.abs() < 1e-12 * (m00.abs() * m11.abs()).max(1e-300) {
+                    bad = true;
+                    break;
+                }
+                ((m11 * uy - m01 * vy) / det, (m00 * vy - m01 * uy) / det)
+            };
+            for j in 0..b {
+                let dj = dinv[j];
+                tt[(j, i)] = dj * (gt[j] - f[(j, i)]) / nt1 + dj * g[(j, i)] * z0 + dj * f[(j, i)] * z1;
+            }
+        }
+        if bad {
+            scores.push(f64::INFINITY);
+            continue;
+        }
+        let mut theta = Mat::<f64>::zeros(b, m);
+        matmul(theta.as_mut(), Accum::Replace, u, tt.as_ref(), 1.0, Par::Seq);
+        let mut total = 0.0;
+        for i in 0..m {
+            let (mut rs, mut rt) = (0.0, 0.0);
+            for j in 0..b {
+                let th = theta[(j, i)].max(0.0);
+                rs += ks[i * b + j] * th;
+                rt += kt[i * b + j] * th;
+            }
+            total += a * rs * rs / 2.0 + alpha * rt * rt / 2.0 - rt;
+        }
+        scores.push(total / m as f64);
+    }
+    Ok(scores)
+}
+
+/// Solves (H + lambda I) theta = h and rounds negative coefficients up to zero.
+pub(crate) fn solve_theta(h_mat: &Mat<f64>, h: &[f64], lam: f64) -> Result<Vec<f64>> {
+    let b = h.len();
+    let mut a = h_mat.clone();
+    for j in 0..b {
+        a[(j, j)] += lam;
+    }
+    let llt = a
+        .llt(Side::Lower)
+        .map_err(|e| Error::Numerical { context: "uLSIF solve".into(), reason: format!("{e:?}") })?;
+    let rhs = Mat::<f64>::from_fn(b, 1, |i, _| h[i]);
+    let sol = llt.solve(rhs);
+    Ok((0..b).map(|i| sol[(i, 0)].max(0.0)).collect())
+}
+
+impl RatioEstimator for LeastSquaresRatio {
+    fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
+        self.check()?;
+        validate_pair(&source, &target, 2)?;
+        let (st, zs, zt, warnings) = standardise_pair(source, target);
+        let (n_s, n_t) = (zs.rows(), zt.rows());
+        let centres = kernel::choose_centres(zt.view(), self.n_basis, self.seed)?;
+        let b = centres.rows();
+        let median = kernel::median_distance(&[zs.view(), zt.view()], self.seed);
+        let sigmas: Vec<f64> = match self.sigma {
+            Some(s) => vec![s],
+            None => self.sigma_multiples.iter().map(|m| m * median).collect(),
+        };
+        let lambdas: Vec<f64> = match self.lam {
+            Some(l) => vec![l],
+            None => self.lambda_grid.clone(),
+        };
+        let alpha = self.alpha;
+        let ss = kernel_sums(zs.view(), centres.view(), &sigmas, true);
+        let stt = kernel_sums(zt.view(), centres.view(), &sigmas, alpha > 0.0);
+
+        let mut table = Vec::new();
+        let (mut best_s, mut best_l) = (0usize, 0usize);
+        if sigmas.len() * lambdas.len() > 1 {
+            let m = n_s.min(n_t).min(self.max_cv_rows);
+            let mut r = kernel::rng(self.seed ^ 0x6c6f_6f63_76);
+            let mut is = sample(&mut r, n_s, m).into_vec();
+            let mut it = sample(&mut r, n_t, m).into_vec();
+            is.sort_unstable();
+            it.sort_unstable();
+            let cvs = zs.view().select_rows(&is);
+            let cvt = zt.view().select_rows(&it);
+            let mut best = f64::INFINITY;
+            for (si, &sigma) in sigmas.iter().enumerate() {
+                let mut base = ss.gram[si].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
+                if alpha > 0.0 {
+                    base += stt.gram[si].as_ref().expect("gram").clone() * Scale(alpha / (n_t as f64 - 1.0));
+                }
+                let ks = kernel::kernel_block(cvs.view(), centres.view(), sigma);
+                let kt = kernel::kernel_block(cvt.view(), centres.view(), sigma);
+                let scores = loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)?;
+                for (li, &sc) in scores.iter().enumerate() {
+                    table.push(ScoreRow { params: params([("sigma", sigma), ("lam", lambdas[li])]), score: sc });
+                    if sc < best {
+                        best = sc;
+                        best_s = si;
+                        best_l = li;
+                    }
+                }
+            }
+            if !best.is_finite() {
+                return Err(Error::Numerical {
+                    context: "uLSIF cross-validation".into(),
+                    reason: "no candidate (sigma, lambda) gave a finite held-out score".into(),
+                });
+            }
+        }
+        let (sigma, lam) = (sigmas[best_s], lambdas[best_l]);
+        let mut h_mat = ss.gram[best_s].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / n_s as f64);
+        if alpha > 0.0 {
+            h_mat += stt.gram[best_s].as_ref().expect("gram").clone() * Scale(alpha / n_t as f64);
+        }
+        let h: Vec<f64> = stt.sum[best_s].iter().map(|v| v / n_t as f64).collect();
+        let coef = solve_theta(&h_mat, &h, lam)?;
+        let mut warnings = warnings;
+        if coef.iter().all(|c| *c == 0.0) {
+            warnings.push("every coefficient was rounded to zero: the fitted ratio is 0 everywhere; try a larger kernel width".into());
+        }
+        let mut fitted = FittedRatio {
+            kind: EstimatorKind::LeastSquares,
+            standardizer: st,
+            form: RatioForm::KernelExpansion { sigma, centres, coef },
+            source_weights: Vec::new(),
+            selection: Selection {
+                criterion: "closed-form leave-one-out squared loss (Kanamori et al. 2009)".into(),
+                chosen: params([
+                    ("sigma", sigma),
+                    ("lam", lam),
+                    ("alpha", alpha),
+                    ("n_basis", b as f64),
+                    ("median_distance", median),
+                ]),
+                table,
+            },
+            meta: fit_meta(&source, &target, self.seed),
+            warnings,
+        };
+        fitted.source_weights = fitted.ratio(source)?;
+        Ok(fitted)
+    }
+}

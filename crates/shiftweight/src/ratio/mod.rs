@@ -1,0 +1,334 @@
+//! Density-ratio estimation: w(x) = p_target(x) / p_source(x).
+//!
+//! Every estimator is a plain configuration value implementing [`RatioEstimator`]; fitting
+//! validates the inputs, standardises them on the pooled rows, chooses any hyperparameter that was
+//! not given by the estimator's own published criterion, and returns a [`FittedRatio`]. A
+//! `FittedRatio` scores any number of rows in fixed-size chunks in parallel, records what was chosen
+//! and the scores that chose it, and serialises to the versioned model file of [`crate::model`].
+
+pub mod lsif;
+
+use crate::data::{Matrix, MatrixView, Standardizer};
+use crate::error::{Error, Result};
+use crate::kernel::{self, CHUNK_ROWS};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+pub use lsif::LeastSquaresRatio;
+
+/// Fits a density-ratio model from a source sample and a target sample.
+pub trait RatioEstimator {
+    /// Fits on `source` (rows the model is trained on) and `target` (rows it will be used on).
+    fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio>;
+}
+
+/// Which published method produced a fitted model.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum EstimatorKind {
+    /// uLSIF (alpha = 0) or RuLSIF (alpha > 0).
+    LeastSquares,
+    /// KLIEP.
+    Kliep,
+    /// Kernel mean matching (transductive).
+    KernelMeanMatching,
+    /// Probabilistic classifier with class-prior correction.
+    Classifier,
+    /// Uniform weights (no correction).
+    Uniform,
+}
+
+impl EstimatorKind {
+    /// Short name used in reports and the CLI.
+    pub fn name(&self) -> &'static str {
+        match self {
+            EstimatorKind::LeastSquares => "least_squares",
+            EstimatorKind::Kliep => "kliep",
+            EstimatorKind::KernelMeanMatching => "kmm",
+            EstimatorKind::Classifier => "classifier",
+            EstimatorKind::Uniform => "uniform",
+        }
+    }
+}
+
+/// How a fitted model computes the ratio at new rows (on standardised features).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "form", rename_all = "snake_case")]
+pub enum RatioForm {
+    /// w(x) = sum_l coef_l exp(-||x - c_l||^2 / (2 sigma^2)).
+    KernelExpansion {
+        /// Kernel width in standardised units.
+        sigma: f64,
+        /// Basis centres (standardised), one per row.
+        centres: Matrix,
+        /// Non-negative coefficients, one per centre.
+        coef: Vec<f64>,
+    },
+    /// Weights exist only for the source rows the model was fitted on (KMM).
+    SourceOnly,
+    /// w(x) = 1 everywhere.
+    Uniform,
+}
+
+/// One row of a hyperparameter-selection table.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ScoreRow {
+    /// Hyperparameter values of this candidate.
+    pub params: BTreeMap<String, f64>,
+    /// Its score (lower is better).
+    pub score: f64,
+}
+
+/// What was chosen from the data, by which criterion, and the scores that chose it.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+pub struct Selection {
+    /// Name of the selection criterion (lower is better).
+    pub criterion: String,
+    /// The chosen hyperparameters, including those given by the user.
+    pub chosen: BTreeMap<String, f64>,
+    /// Every candidate scored, in the order they were tried.
+    pub table: Vec<ScoreRow>,
+}
+
+/// Facts about the fit, kept for audit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitMeta {
+    /// Source rows fitted on.
+    pub n_source: usize,
+    /// Target rows fitted on.
+    pub n_target: usize,
+    /// Number of features.
+    pub n_features: usize,
+    /// Seed of every random choice.
+    pub seed: u64,
+    /// Version of this library that fitted the model.
+    pub library_version: String,
+    /// Feature names, when the caller supplied them.
+    #[serde(default)]
+    pub feature_names: Option<Vec<String>>,
+}
+
+/// A fitted density-ratio model. `Send + Sync`: one instance can score from many threads.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FittedRatio {
+    /// The method that produced it.
+    pub kind: EstimatorKind,
+    /// Standardiser fitted on the pooled rows.
+    pub standardizer: Standardizer,
+    /// How the ratio is computed at new rows.
+    pub form: RatioForm,
+    /// Weights of the source rows used for fitting, in their order.
+    pub source_weights: Vec<f64>,
+    /// Hyperparameter selection record.
+    pub selection: Selection,
+    /// Fit metadata.
+    pub meta: FitMeta,
+    /// Plain-language warnings raised during the fit (e.g. constant columns).
+    #[serde(default)]
+    pub warnings: Vec<String>,
+}
+
+impl FittedRatio {
+    /// Number of features the model expects.
+    pub fn n_features(&self) -> usize {
+        self.standardizer.n_features()
+    }
+
+    /// The ratio w(x) at every row of `x`, in row order.
+    ///
+    /// Rows are processed in blocks of [`CHUNK_ROWS`] in parallel; memory beyond the output is
+    /// O(threads * CHUNK_ROWS * n_basis), independent of the number of rows. The block size does
+    /// not depend on the thread count, so the output is bitwise identical for any thread count.
+    pub fn ratio(&self, x: MatrixView) -> Result<Vec<f64>> {
+        let mut out = vec![0.0; x.rows()];
+        self.ratio_into(x, &mut out)?;
+        Ok(out)
+    }
+
+    /// As [`FittedRatio::ratio`], writing into a caller-provided buffer of length `x.rows()`.
+    pub fn ratio_into(&self, x: MatrixView, out: &mut [f64]) -> Result<()> {
+        x.expect_cols("X", self.n_features())?;
+        if out.len() != x.rows() {
+            return Err(Error::LengthMismatch {
+                argument: "out".into(),
+                expected: x.rows(),
+                found: out.len(),
+            });
+        }
+        x.validate("X", 0)?;
+        match &self.form {
+            RatioForm::Uniform => {
+                out.fill(1.0);
+                Ok(())
+            }
+            RatioForm::SourceOnly => Err(Error::Unsupported(format!(
+                "{} weights exist only for the {} source rows it was fitted on (it is transductive); \
+                 use `source_weights`, or choose an estimator that scores new rows",
+                self.kind.name(),
+                self.meta.n_source
+            ))),
+            RatioForm::KernelExpansion {
+                sigma,
+                centres,
+                coef,
+            } => {
+                let c_sq = kernel::row_sq_norms(centres.view());
+                let d = x.cols();
+                out.par_chunks_mut(CHUNK_ROWS)
+                    .enumerate()
+                    .for_each(|(k, out_chunk)| {
+                        let start = k * CHUNK_ROWS;
+                        let m = out_chunk.len();
+                        let rows = x.slice_rows(start, start + m);
+                        let z = self.standardizer.transform(&rows);
+                        let b = centres.rows();
+                        let mut kb = vec![0.0; m * b];
+                        kernel::kernel_block_into(z.view(), centres.view(), &c_sq, *sigma, &mut kb);
+                        for (i, o) in out_chunk.iter_mut().enumerate() {
+                            let r: f64 = kb[i * b..(i + 1) * b]
+                                .iter()
+                                .zip(coef)
+                                .map(|(k, c)| k * c)
+                                .sum();
+                            *o = r.max(0.0);
+                        }
+                        let _ = d;
+                    });
+                Ok(())
+            }
+        }
+    }
+
+    /// The ratio at a single row, without allocation beyond a small buffer; for services that
+    /// score one request at a time. O(b d).
+    pub fn ratio_one(&self, row: &[f64]) -> Result<f64> {
+        let x = MatrixView::named(row, 1, row.len(), "row")?;
+        x.expect_cols("row", self.n_features())?;
+        x.validate("row", 1)?;
+        match &self.form {
+            RatioForm::KernelExpansion {
+                sigma,
+                centres,
+                coef,
+            } => {
+                let mut z = [0.0f64; 64];
+                let mut zv;
+                let zs: &mut [f64] = if row.len() <= 64 {
+                    &mut z[..row.len()]
+                } else {
+                    zv = vec![0.0; row.len()];
+                    &mut zv
+                };
+                self.standardizer.transform_row(row, zs);
+                let g = -0.5 / (sigma * sigma);
+                let mut acc = 0.0;
+                for (l, c) in coef.iter().enumerate() {
+                    if *c == 0.0 {
+                        continue;
+                    }
+                    let sq: f64 = zs
+                        .iter()
+                        .zip(centres.row(l))
+                        .map(|(a, b)| (a - b) * (a - b))
+                        .sum();
+                    acc += c * (sq * g).exp();
+                }
+                Ok(acc.max(0.0))
+            }
+            _ => Ok(self.ratio(x)?[0]),
+        }
+    }
+
+    /// Checks internal consistency after loading from a file.
+    pub(crate) fn check(&self) -> Result<()> {
+        self.standardizer.check()?;
+        let d = self.n_features();
+        if d == 0 {
+            return Err(Error::ModelFile("model has no features".into()));
+        }
+        if self.meta.n_features != d {
+            return Err(Error::ModelFile(format!(
+                "metadata says {} features but the standardizer has {d}",
+                self.meta.n_features
+            )));
+        }
+        if let Some(names) = &self.meta.feature_names {
+            if names.len() != d {
+                return Err(Error::ModelFile(format!(
+                    "{} feature names for {d} features",
+                    names.len()
+                )));
+            }
+        }
+        if self.source_weights.iter().any(|w| !w.is_finite() || *w < 0.0) {
+            return Err(Error::ModelFile(
+                "source weights must be finite and non-negative".into(),
+            ));
+        }
+        match &self.form {
+            RatioForm::KernelExpansion {
+                sigma,
+                centres,
+                coef,
+            } => {
+                centres.check_shape("centres")?;
+                if centres.cols() != d {
+                    return Err(Error::ModelFile(format!(
+                        "centres have {} columns but the model has {d} features",
+                        centres.cols()
+                    )));
+                }
+                if coef.len() != centres.rows() {
+                    return Err(Error::ModelFile(format!(
+                        "{} coefficients for {} centres",
+                        coef.len(),
+                        centres.rows()
+                    )));
+                }
+                if !(sigma.is_finite() && *sigma > 0.0) {
+                    return Err(Error::ModelFile(format!("kernel width {sigma} is not > 0")));
+                }
+                if coef.iter().chain(centres.as_slice()).any(|v| !v.is_finite()) {
+                    return Err(Error::ModelFile("non-finite centre or coefficient".into()));
+                }
+            }
+            RatioForm::SourceOnly | RatioForm::Uniform => {}
+        }
+        Ok(())
+    }
+}
+
+/// Fits the standardiser on the pooled rows and returns it with the standardised copies and
+/// plain-language warnings about constant columns.
+pub(crate) fn standardise_pair(
+    source: MatrixView,
+    target: MatrixView,
+) -> (Standardizer, Matrix, Matrix, Vec<String>) {
+    let st = Standardizer::fit(&[source, target]);
+    let zs = st.transform(&source);
+    let zt = st.transform(&target);
+    let warnings = st
+        .constant_columns
+        .iter()
+        .map(|j| format!("column {j} is constant in source and target; it carries no information about the shift"))
+        .collect();
+    (st, zs, zt, warnings)
+}
+
+/// Metadata for a fit.
+pub(crate) fn fit_meta(source: &MatrixView, target: &MatrixView, seed: u64) -> FitMeta {
+    FitMeta {
+        n_source: source.rows(),
+        n_target: target.rows(),
+        n_features: source.cols(),
+        seed,
+        library_version: env!("CARGO_PKG_VERSION").to_string(),
+        feature_names: None,
+    }
+}
+
+/// A parameter map from pairs.
+pub(crate) fn params<const N: usize>(pairs: [(&str, f64); N]) -> BTreeMap<String, f64> {
+    pairs.iter().map(|(k, v)| (k.to_string(), *v)).collect()
+}
