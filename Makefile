@@ -1,0 +1,45 @@
+# One task runner. `make test` is the README's test command and what CI runs: on a fresh machine it
+# creates the Python virtual environment, installs the test dependencies, builds the extension
+# once, then runs the Rust and Python test suites.
+VENV ?= .venv
+PY := $(VENV)/bin/python
+export VIRTUAL_ENV := $(abspath $(VENV))
+export PATH := $(abspath $(VENV))/bin:$(PATH)
+
+.PHONY: test test-rust test-python develop venv lint fmt bench demo clean
+
+test: test-rust test-python
+
+$(PY):
+	python3 -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip "maturin>=1.5,<2"
+
+venv: $(PY)
+
+# Builds the extension (dev profile: dependencies are optimised, see Cargo.toml) and installs the
+# package with its test extras into the virtual environment.
+develop: $(PY)
+	$(VENV)/bin/maturin develop --quiet --extras test
+
+test-rust:
+	cargo test --workspace --exclude shiftweight-py
+
+test-python: develop
+	$(PY) -m pytest
+
+lint:
+	cargo fmt --all --check
+	cargo clippy --workspace --all-targets -- -D warnings
+
+fmt:
+	cargo fmt --all
+
+bench:
+	cargo bench -p shiftweight
+
+demo:
+	cargo run --release -p shiftweight-cli -- demo
+
+clean:
+	cargo clean
+	rm -rf $(VENV)

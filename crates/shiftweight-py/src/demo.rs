@@ -1,0 +1,30 @@
+//! Bindings of `shiftweight::demo`.
+
+use numpy::{PyArray1, PyArrayMethods};
+use numpy::PyArray2;
+use pyo3::prelude::*;
+use pyo3::types::PyDict;
+
+fn matrix<'py>(py: Python<'py>, m: &shiftweight::Matrix) -> PyResult<Bound<'py, PyArray2<f64>>> {
+    let flat = PyArray1::from_slice(py, m.as_slice());
+    Ok(flat.reshape([m.rows(), m.cols()])?)
+}
+
+/// The invented electricity scenario as a dict of numpy arrays.
+#[pyfunction]
+#[pyo3(signature = (n_source=2000, n_target=1000, seed=0))]
+fn demo_electricity(py: Python<'_>, n_source: usize, n_target: usize, seed: u64) -> PyResult<Bound<'_, PyDict>> {
+    let d = py.detach(|| shiftweight::demo::electricity(n_source, n_target, seed));
+    let out = PyDict::new(py);
+    out.set_item("feature_names", d.feature_names)?;
+    out.set_item("source", matrix(py, &d.source)?)?;
+    out.set_item("y_source", PyArray1::from_vec(py, d.y_source))?;
+    out.set_item("target", matrix(py, &d.target)?)?;
+    out.set_item("y_target", PyArray1::from_vec(py, d.y_target))?;
+    Ok(out)
+}
+
+pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add_function(wrap_pyfunction!(demo_electricity, m)?)?;
+    Ok(())
+}
