@@ -194,6 +194,43 @@ pub fn validate_pair(source: &MatrixView, target: &MatrixView, min_rows: usize) 
     Ok(())
 }
 
+/// Checks weights: right length, finite, non-negative, not all zero. Errors name the argument and
+/// the first bad entry.
+pub fn validate_weights(w: &[f64], n: usize, argument: &str) -> Result<()> {
+    if w.len() != n {
+        return Err(Error::LengthMismatch { argument: argument.into(), expected: n, found: w.len() });
+    }
+    if let Some(i) = w.iter().position(|v| !v.is_finite() || *v < 0.0) {
+        return Err(Error::InvalidWeights {
+            argument: argument.into(),
+            reason: format!("entry {i} is {} (weights must be finite and >= 0)", w[i]),
+        });
+    }
+    if w.iter().all(|v| *v == 0.0) {
+        return Err(Error::InvalidWeights { argument: argument.into(), reason: "all weights are zero".into() });
+    }
+    Ok(())
+}
+
+/// Assigns each of `n` rows to one of `k` folds of (nearly) equal size in a seeded random order.
+/// Returns the fold index of every row. Errors when k < 2 or k > n.
+pub fn kfold_assignment(n: usize, k: usize, seed: u64) -> Result<Vec<usize>> {
+    use rand::seq::SliceRandom;
+    if k < 2 {
+        return Err(Error::param("folds", format!("must be at least 2, got {k}")));
+    }
+    if k > n {
+        return Err(Error::param("folds", format!("{k} folds need at least {k} rows, got {n}")));
+    }
+    let mut order: Vec<usize> = (0..n).collect();
+    order.shuffle(&mut crate::kernel::rng(seed ^ 0x666f_6c64_73));
+    let mut fold = vec![0; n];
+    for (pos, &i) in order.iter().enumerate() {
+        fold[i] = pos % k;
+    }
+    Ok(fold)
+}
+
 /// Per-feature centring and scaling, fitted on the pooled source and target rows.
 ///
 /// A column that is constant in the pooled data carries no information about the shift; it keeps
@@ -313,6 +350,16 @@ mod tests {
             Err(Error::NonFinite { row, column, .. }) => assert_eq!((row, column), (1, 1)),
             other => panic!("unexpected {other:?}"),
         }
+    }
+
+    #[test]
+    fn kfold_is_balanced_and_seeded() {
+        let f = kfold_assignment(10, 3, 1).unwrap();
+        let counts: Vec<usize> = (0..3).map(|k| f.iter().filter(|v| **v == k).count()).collect();
+        assert_eq!(counts, vec![4, 3, 3]);
+        assert_eq!(f, kfold_assignment(10, 3, 1).unwrap());
+        assert!(kfold_assignment(3, 4, 0).is_err());
+        assert!(kfold_assignment(3, 1, 0).is_err());
     }
 
     #[test]

@@ -11,6 +11,7 @@
 //! Fitted models are [`LinearModel`] values that serialise to the model file format
 //! `shiftweight.linear-model`, so a service can train or load and predict without Python.
 
+pub use crate::data::validate_weights;
 use crate::data::MatrixView;
 use crate::error::{Error, Result};
 use crate::model;
@@ -21,23 +22,6 @@ use serde::{Deserialize, Serialize};
 
 /// Format tag of linear-model files.
 pub const LINEAR_MODEL_FORMAT: &str = "shiftweight.linear-model";
-
-/// Checks sample weights: right length, finite, non-negative, not all zero.
-pub fn validate_weights(w: &[f64], n: usize, argument: &str) -> Result<()> {
-    if w.len() != n {
-        return Err(Error::LengthMismatch { argument: argument.into(), expected: n, found: w.len() });
-    }
-    if let Some(i) = w.iter().position(|v| !v.is_finite() || *v < 0.0) {
-        return Err(Error::InvalidWeights {
-            argument: argument.into(),
-            reason: format!("entry {i} is {} (weights must be finite and >= 0)", w[i]),
-        });
-    }
-    if w.iter().all(|v| *v == 0.0) {
-        return Err(Error::InvalidWeights { argument: argument.into(), reason: "all weights are zero".into() });
-    }
-    Ok(())
-}
 
 /// Which loss a linear model was fitted with.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
