@@ -30,15 +30,27 @@ pub fn run(args: DemoArgs, quiet: bool) -> Result<(), Failure> {
     let wmean = mean(w);
     let ess = w.iter().sum::<f64>().powi(2) / w.iter().map(|v| v * v).sum::<f64>();
     let plain = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, None)?;
-    let weighted = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, Some(w))?;
+    let weighted = WeightedRidge::new()
+        .l2(1e-6)
+        .fit(s, &data.y_source, Some(w))?;
     let mse = |m: &shiftweight::learn::LinearModel| -> Result<f64, Failure> {
         let p = m.predict(t)?;
-        Ok(mean(&p.iter().zip(&data.y_target).map(|(a, b)| (a - b) * (a - b)).collect::<Vec<_>>()))
+        Ok(mean(
+            &p.iter()
+                .zip(&data.y_target)
+                .map(|(a, b)| (a - b) * (a - b))
+                .collect::<Vec<_>>(),
+        ))
     };
     let (e_plain, e_weighted) = (mse(&plain)?, mse(&weighted)?);
     if !quiet {
         println!("shiftweight demo: household electricity use, coastal town (source) -> inland town (target)");
-        println!("  rows: {} source, {} target, features: {}", s.rows(), t.rows(), data.feature_names.join(", "));
+        println!(
+            "  rows: {} source, {} target, features: {}",
+            s.rows(),
+            t.rows(),
+            data.feature_names.join(", ")
+        );
         let c = &model.selection.chosen;
         println!(
             "  estimator: uLSIF, sigma = {:.3}, lambda = {} (chosen by leave-one-out CV over {} candidates)",

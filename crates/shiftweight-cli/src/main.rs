@@ -46,7 +46,10 @@ impl From<shiftweight::Error> for Failure {
             shiftweight::Error::Numerical { .. } => exit::INTERNAL,
             _ => exit::BAD_INPUT,
         };
-        Failure { code, message: e.to_string() }
+        Failure {
+            code,
+            message: e.to_string(),
+        }
     }
 }
 

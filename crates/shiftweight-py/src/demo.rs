@@ -1,7 +1,7 @@
 //! Bindings of `shiftweight::demo`.
 
-use numpy::{PyArray1, PyArrayMethods};
 use numpy::PyArray2;
+use numpy::{PyArray1, PyArrayMethods};
 use pyo3::prelude::*;
 use pyo3::types::PyDict;
 
@@ -13,7 +13,12 @@ fn matrix<'py>(py: Python<'py>, m: &shiftweight::Matrix) -> PyResult<Bound<'py, 
 /// The invented electricity scenario as a dict of numpy arrays.
 #[pyfunction]
 #[pyo3(signature = (n_source=2000, n_target=1000, seed=0))]
-fn demo_electricity(py: Python<'_>, n_source: usize, n_target: usize, seed: u64) -> PyResult<Bound<'_, PyDict>> {
+fn demo_electricity(
+    py: Python<'_>,
+    n_source: usize,
+    n_target: usize,
+    seed: u64,
+) -> PyResult<Bound<'_, PyDict>> {
     let d = py.detach(|| shiftweight::demo::electricity(n_source, n_target, seed));
     let out = PyDict::new(py);
     out.set_item("feature_names", d.feature_names)?;

@@ -32,15 +32,27 @@ impl LinearModel {
     fn n_iter(&self) -> usize {
         self.inner.n_iter
     }
-    fn decision_function<'py>(&self, py: Python<'py>, x: PyReadonlyArray2<'py, f64>) -> PyResult<Bound<'py, PyArray1<f64>>> {
+    fn decision_function<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray2<'py, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let xv = view(&x, "X")?;
         Ok(detached(py, || self.inner.decision_function(xv))?.into_pyarray(py))
     }
-    fn predict<'py>(&self, py: Python<'py>, x: PyReadonlyArray2<'py, f64>) -> PyResult<Bound<'py, PyArray1<f64>>> {
+    fn predict<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray2<'py, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let xv = view(&x, "X")?;
         Ok(detached(py, || self.inner.predict(xv))?.into_pyarray(py))
     }
-    fn predict_proba<'py>(&self, py: Python<'py>, x: PyReadonlyArray2<'py, f64>) -> PyResult<Bound<'py, PyArray1<f64>>> {
+    fn predict_proba<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray2<'py, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let xv = view(&x, "X")?;
         Ok(detached(py, || self.inner.predict_proba(xv))?.into_pyarray(py))
     }
@@ -49,10 +61,16 @@ impl LinearModel {
     }
     #[staticmethod]
     fn from_json(text: &str) -> PyResult<Self> {
-        CoreLinear::from_json(text).map(|inner| Self { inner }).map_err(to_py)
+        CoreLinear::from_json(text)
+            .map(|inner| Self { inner })
+            .map_err(to_py)
     }
     fn __reduce__(slf: &Bound<'_, Self>) -> PyResult<(Py<PyAny>, (String,))> {
-        let f = slf.py().get_type::<LinearModel>().getattr("from_json")?.unbind();
+        let f = slf
+            .py()
+            .get_type::<LinearModel>()
+            .getattr("from_json")?
+            .unbind();
         Ok((f, (slf.get().inner.to_json().map_err(to_py)?,)))
     }
 }

@@ -69,7 +69,9 @@ where
                 .cloned()
                 .or_else(|| payload.downcast_ref::<&str>().map(|s| s.to_string()))
                 .unwrap_or_else(|| "unknown panic".into());
-            Err(InternalError::new_err(format!("internal error in shiftweight (please report): {msg}")))
+            Err(InternalError::new_err(format!(
+                "internal error in shiftweight (please report): {msg}"
+            )))
         }
     }
 }
@@ -89,9 +91,13 @@ pub(crate) fn view<'a>(
 }
 
 /// Views a contiguous float64 vector.
-pub(crate) fn vector<'a>(arr: &'a numpy::PyReadonlyArray1<'_, f64>, name: &str) -> PyResult<&'a [f64]> {
-    arr.as_slice()
-        .map_err(|_| ShiftweightError::new_err(format!("`{name}` must be a contiguous float64 vector")))
+pub(crate) fn vector<'a>(
+    arr: &'a numpy::PyReadonlyArray1<'_, f64>,
+    name: &str,
+) -> PyResult<&'a [f64]> {
+    arr.as_slice().map_err(|_| {
+        ShiftweightError::new_err(format!("`{name}` must be a contiguous float64 vector"))
+    })
 }
 
 /// Sets the size of the global thread pool (once, before any work).
@@ -103,7 +109,9 @@ fn set_threads(n: usize) -> PyResult<()> {
 /// Provokes an internal failure (a panic inside the core) to test that it becomes InternalError.
 #[pyfunction]
 fn _provoke_internal_failure(py: Python<'_>) -> PyResult<()> {
-    detached(py, || -> shiftweight::Result<()> { panic!("deliberate test failure") })
+    detached(py, || -> shiftweight::Result<()> {
+        panic!("deliberate test failure")
+    })
 }
 
 #[pymodule]
@@ -112,7 +120,10 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add("ShiftweightError", py.get_type::<ShiftweightError>())?;
     m.add("ModelFileError", py.get_type::<ModelFileError>())?;
-    m.add("UnsupportedOperationError", py.get_type::<UnsupportedOperationError>())?;
+    m.add(
+        "UnsupportedOperationError",
+        py.get_type::<UnsupportedOperationError>(),
+    )?;
     m.add("NumericalError", py.get_type::<NumericalError>())?;
     m.add("InternalError", py.get_type::<InternalError>())?;
     m.add_function(wrap_pyfunction!(set_threads, m)?)?;

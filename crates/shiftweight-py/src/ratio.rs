@@ -23,7 +23,11 @@ impl RatioModel {
 #[pymethods]
 impl RatioModel {
     /// w(x) at every row of a C-contiguous float64 matrix; the GIL is released while scoring.
-    fn ratio<'py>(&self, py: Python<'py>, x: PyReadonlyArray2<'py, f64>) -> PyResult<Bound<'py, PyArray1<f64>>> {
+    fn ratio<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray2<'py, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
         let xv = view(&x, "X")?;
         let m = self.inner.clone();
         let out = detached(py, move || m.ratio(xv))?;

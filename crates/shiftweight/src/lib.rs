@@ -51,5 +51,10 @@ pub fn set_threads(n: usize) -> Result<()> {
     rayon::ThreadPoolBuilder::new()
         .num_threads(n)
         .build_global()
-        .map_err(|e| Error::param("threads", format!("the thread pool is already running: {e}")))
+        .map_err(|e| {
+            Error::param(
+                "threads",
+                format!("the thread pool is already running: {e}"),
+            )
+        })
 }

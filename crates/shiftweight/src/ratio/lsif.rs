@@ -26,8 +26,10 @@
 //! statistics H (accumulated over row chunks; no n x b matrix is ever held), O(n_sigma (b^3 +
 //! n_lambda m b^2)) for the cross-validation, O(n b d) to score n rows. Memory O(n_sigma b^2 + m b).
 
-use super::{fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator,
-            RatioForm, ScoreRow, Selection};
+use super::{
+    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
+    ScoreRow, Selection,
+};
 use crate::data::{validate_pair, MatrixView};
 use crate::error::{Error, Result};
 use crate::kernel;
@@ -127,22 +129,42 @@ impl LeastSquaresRatio {
         }
         if let Some(l) = self.lam {
             if !(l.is_finite() && l > 0.0) {
-                return Err(Error::param("lam", format!("must be finite and > 0, got {l}")));
+                return Err(Error::param(
+                    "lam",
+                    format!("must be finite and > 0, got {l}"),
+                ));
             }
         }
         if self.n_basis == 0 {
             return Err(Error::param("n_basis", "must be at least 1"));
         }
         if !(self.alpha >= 0.0 && self.alpha < 1.0) {
-            return Err(Error::param("alpha", format!("must be in [0, 1), got {}", self.alpha)));
+            return Err(Error::param(
+                "alpha",
+                format!("must be in [0, 1), got {}", self.alpha),
+            ));
         }
         if self.sigma_multiples.is_empty()
-            || self.sigma_multiples.iter().any(|v| !(v.is_finite() && *v > 0.0))
+            || self
+                .sigma_multiples
+                .iter()
+                .any(|v| !(v.is_finite() && *v > 0.0))
         {
-            return Err(Error::param("sigma_multiples", "must be a non-empty list of finite values > 0"));
+            return Err(Error::param(
+                "sigma_multiples",
+                "must be a non-empty list of finite values > 0",
+            ));
         }
-        if self.lambda_grid.is_empty() || self.lambda_grid.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
-            return Err(Error::param("lambda_grid", "must be a non-empty list of finite values > 0"));
+        if self.lambda_grid.is_empty()
+            || self
+                .lambda_grid
+                .iter()
+                .any(|v| !(v.is_finite() && *v > 0.0))
+        {
+            return Err(Error::param(
+                "lambda_grid",
+                "must be a non-empty list of finite values > 0",
+            ));
         }
         if self.max_cv_rows < 2 {
             return Err(Error::param("max_cv_rows", "must be at least 2"));
@@ -160,11 +182,19 @@ pub(crate) struct KernelSums {
 /// Accumulates, for every width, sum_i k(x_i) k(x_i)' (when `gram`) and sum_i k(x_i) over the rows
 /// of `z`, chunk by chunk through [`crate::par::reduce_chunks`] (bitwise reproducible for any
 /// thread count). Memory: O(BATCH_CHUNKS * n_sigma * b^2); no n x b matrix is held.
-pub(crate) fn kernel_sums(z: MatrixView, centres: MatrixView, sigmas: &[f64], gram: bool) -> KernelSums {
+pub(crate) fn kernel_sums(
+    z: MatrixView,
+    centres: MatrixView,
+    sigmas: &[f64],
+    gram: bool,
+) -> KernelSums {
     let b = centres.rows();
     let c_sq = kernel::row_sq_norms(centres);
     let init = KernelSums {
-        gram: sigmas.iter().map(|_| gram.then(|| Mat::<f64>::zeros(b, b))).collect(),
+        gram: sigmas
+            .iter()
+            .map(|_| gram.then(|| Mat::<f64>::zeros(b, b)))
+            .collect(),
         sum: sigmas.iter().map(|_| vec![0.0; b]).collect(),
     };
     par::reduce_chunks(
@@ -176,7 +206,10 @@ pub(crate) fn kernel_sums(z: MatrixView, centres: MatrixView, sigmas: &[f64], gr
             let mut dist = vec![0.0; m * b];
             kernel::sq_distances_into(rows, centres, &c_sq, &mut dist);
             let mut kb = vec![0.0; m * b];
-            let mut part = KernelSums { gram: Vec::new(), sum: Vec::new() };
+            let mut part = KernelSums {
+                gram: Vec::new(),
+                sum: Vec::new(),
+            };
             for &s in sigmas {
                 kb.copy_from_slice(&dist);
                 kernel::gaussian_in_place(&mut kb, s);
@@ -188,7 +221,14 @@ pub(crate) fn kernel_sums(z: MatrixView, centres: MatrixView, sigmas: &[f64], gr
                 part.gram.push(gram.then(|| {
                     let km = MatRef::from_row_major_slice(&kb, m, b);
                     let mut g = Mat::<f64>::zeros(b, b);
-                    matmul(g.as_mut(), Accum::Replace, km.transpose(), km, 1.0, Par::Seq);
+                    matmul(
+                        g.as_mut(),
+                        Accum::Replace,
+                        km.transpose(),
+                        km,
+                        1.0,
+                        Par::Seq,
+                    );
                     g
                 }));
             }
@@ -224,15 +264,32 @@ fn loo_scores(
     let b = sum_t.len();
     let eig = base
         .self_adjoint_eigen(Side::Lower)
-        .map_err(|e| Error::Numerical { context: "uLSIF eigendecomposition".into(), reason: format!("{e:?}") })?;
+        .map_err(|e| Error::Numerical {
+            context: "uLSIF eigendecomposition".into(),
+            reason: format!("{e:?}"),
+        })?;
     let u = eig.U();
     let s: Vec<f64> = (0..b).map(|j| eig.S()[j].max(0.0)).collect();
     let ksm = MatRef::from_row_major_slice(ks, m, b).transpose(); // b x m
     let ktm = MatRef::from_row_major_slice(kt, m, b).transpose();
     let mut g = Mat::<f64>::zeros(b, m);
     let mut f = Mat::<f64>::zeros(b, m);
-    matmul(g.as_mut(), Accum::Replace, u.transpose(), ksm, 1.0, Par::Seq);
-    matmul(f.as_mut(), Accum::Replace, u.transpose(), ktm, 1.0, Par::Seq);
+    matmul(
+        g.as_mut(),
+        Accum::Replace,
+        u.transpose(),
+        ksm,
+        1.0,
+        Par::Seq,
+    );
+    matmul(
+        f.as_mut(),
+        Accum::Replace,
+        u.transpose(),
+        ktm,
+        1.0,
+        Par::Seq,
+    );
     let st = ColRef::from_slice(sum_t);
     let gt: Col<f64> = u.transpose() * st;
     let a = 1.0 - alpha;
@@ -274,7 +331,8 @@ fn loo_scores(
             };
             for j in 0..b {
                 let dj = dinv[j];
-                tt[(j, i)] = dj * (gt[j] - f[(j, i)]) / nt1 + dj * g[(j, i)] * z0 + dj * f[(j, i)] * z1;
+                tt[(j, i)] =
+                    dj * (gt[j] - f[(j, i)]) / nt1 + dj * g[(j, i)] * z0 + dj * f[(j, i)] * z1;
             }
         }
         if bad {
@@ -282,7 +340,14 @@ fn loo_scores(
             continue;
         }
         let mut theta = Mat::<f64>::zeros(b, m);
-        matmul(theta.as_mut(), Accum::Replace, u, tt.as_ref(), 1.0, Par::Seq);
+        matmul(
+            theta.as_mut(),
+            Accum::Replace,
+            u,
+            tt.as_ref(),
+            1.0,
+            Par::Seq,
+        );
         let mut total = 0.0;
         for i in 0..m {
             let (mut rs, mut rt) = (0.0, 0.0);
@@ -305,9 +370,10 @@ pub(crate) fn solve_theta(h_mat: &Mat<f64>, h: &[f64], lam: f64) -> Result<Vec<f
     for j in 0..b {
         a[(j, j)] += lam;
     }
-    let llt = a
-        .llt(Side::Lower)
-        .map_err(|e| Error::Numerical { context: "uLSIF solve".into(), reason: format!("{e:?}") })?;
+    let llt = a.llt(Side::Lower).map_err(|e| Error::Numerical {
+        context: "uLSIF solve".into(),
+        reason: format!("{e:?}"),
+    })?;
     let rhs = Mat::<f64>::from_fn(b, 1, |i, _| h[i]);
     let sol = llt.solve(rhs);
     Ok((0..b).map(|i| sol[(i, 0)].max(0.0)).collect())
@@ -338,7 +404,7 @@ impl RatioEstimator for LeastSquaresRatio {
         let (mut best_s, mut best_l) = (0usize, 0usize);
         if sigmas.len() * lambdas.len() > 1 {
             let m = n_s.min(n_t).min(self.max_cv_rows);
-            let mut r = kernel::rng(self.seed ^ 0x6c6f_6f63_76);
+            let mut r = kernel::rng(self.seed ^ 0x006c_6f6f_6376);
             let mut is = sample(&mut r, n_s, m).into_vec();
             let mut it = sample(&mut r, n_t, m).into_vec();
             is.sort_unstable();
@@ -347,15 +413,21 @@ impl RatioEstimator for LeastSquaresRatio {
             let cvt = zt.view().select_rows(&it);
             let mut best = f64::INFINITY;
             for (si, &sigma) in sigmas.iter().enumerate() {
-                let mut base = ss.gram[si].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
+                let mut base = ss.gram[si].as_ref().expect("gram").clone()
+                    * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
                 if alpha > 0.0 {
-                    base += stt.gram[si].as_ref().expect("gram").clone() * Scale(alpha / (n_t as f64 - 1.0));
+                    base += stt.gram[si].as_ref().expect("gram").clone()
+                        * Scale(alpha / (n_t as f64 - 1.0));
                 }
                 let ks = kernel::kernel_block(cvs.view(), centres.view(), sigma);
                 let kt = kernel::kernel_block(cvt.view(), centres.view(), sigma);
-                let scores = loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)?;
+                let scores =
+                    loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)?;
                 for (li, &sc) in scores.iter().enumerate() {
-                    table.push(ScoreRow { params: params([("sigma", sigma), ("lam", lambdas[li])]), score: sc });
+                    table.push(ScoreRow {
+                        params: params([("sigma", sigma), ("lam", lambdas[li])]),
+                        score: sc,
+                    });
                     if sc < best {
                         best = sc;
                         best_s = si;
@@ -371,7 +443,8 @@ impl RatioEstimator for LeastSquaresRatio {
             }
         }
         let (sigma, lam) = (sigmas[best_s], lambdas[best_l]);
-        let mut h_mat = ss.gram[best_s].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / n_s as f64);
+        let mut h_mat =
+            ss.gram[best_s].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / n_s as f64);
         if alpha > 0.0 {
             h_mat += stt.gram[best_s].as_ref().expect("gram").clone() * Scale(alpha / n_t as f64);
         }
@@ -384,7 +457,11 @@ impl RatioEstimator for LeastSquaresRatio {
         let mut fitted = FittedRatio {
             kind: EstimatorKind::LeastSquares,
             standardizer: st,
-            form: RatioForm::KernelExpansion { sigma, centres, coef },
+            form: RatioForm::KernelExpansion {
+                sigma,
+                centres,
+                coef,
+            },
             source_weights: Vec::new(),
             selection: Selection {
                 criterion: "closed-form leave-one-out squared loss (Kanamori et al. 2009)".into(),
@@ -402,5 +479,178 @@ impl RatioEstimator for LeastSquaresRatio {
         };
         fitted.source_weights = fitted.ratio(source)?;
         Ok(fitted)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::data::Matrix;
+    use rand_distr::{Distribution, Normal};
+
+    fn gaussian_rows(n: usize, d: usize, mean: f64, seed: u64) -> Matrix {
+        let mut r = kernel::rng(seed);
+        let nd = Normal::new(mean, 1.0).unwrap();
+        Matrix::new((0..n * d).map(|_| nd.sample(&mut r)).collect(), n, d).unwrap()
+    }
+
+    /// Direct kernel k(x, c) by the textbook formula, for the brute-force reference.
+    fn k(x: &[f64], c: &[f64], sigma: f64) -> f64 {
+        let sq: f64 = x.iter().zip(c).map(|(a, b)| (a - b) * (a - b)).sum();
+        (-sq / (2.0 * sigma * sigma)).exp()
+    }
+
+    /// Brute-force leave-one-out: remove source row i and target row i, rebuild H and h from
+    /// scratch, solve with a dense solver, clip at zero, score the held-out pair.
+    fn brute_force_loo(
+        s: &Matrix,
+        t: &Matrix,
+        held: &[(usize, usize)],
+        c: &Matrix,
+        sigma: f64,
+        lam: f64,
+        alpha: f64,
+    ) -> f64 {
+        let b = c.rows();
+        let feats = |x: &[f64]| -> Vec<f64> { (0..b).map(|l| k(x, c.row(l), sigma)).collect() };
+        let mut total = 0.0;
+        for &(i_s, i_t) in held {
+            let mut h_mat = Mat::<f64>::zeros(b, b);
+            let mut h = vec![0.0; b];
+            let (ns1, nt1) = (s.rows() as f64 - 1.0, t.rows() as f64 - 1.0);
+            for r in (0..s.rows()).filter(|r| *r != i_s) {
+                let f = feats(s.row(r));
+                for p in 0..b {
+                    for q in 0..b {
+                        h_mat[(p, q)] += (1.0 - alpha) * f[p] * f[q] / ns1;
+                    }
+                }
+            }
+            for r in (0..t.rows()).filter(|r| *r != i_t) {
+                let f = feats(t.row(r));
+                for p in 0..b {
+                    h[p] += f[p] / nt1;
+                    for q in 0..b {
+                        h_mat[(p, q)] += alpha * f[p] * f[q] / nt1;
+                    }
+                }
+            }
+            let theta = solve_theta(&h_mat, &h, lam).unwrap();
+            let rs: f64 = feats(s.row(i_s))
+                .iter()
+                .zip(&theta)
+                .map(|(a, b)| a * b)
+                .sum();
+            let rt: f64 = feats(t.row(i_t))
+                .iter()
+                .zip(&theta)
+                .map(|(a, b)| a * b)
+                .sum();
+            total += (1.0 - alpha) * rs * rs / 2.0 + alpha * rt * rt / 2.0 - rt;
+        }
+        total / held.len() as f64
+    }
+
+    fn closed_form(
+        s: &Matrix,
+        t: &Matrix,
+        held: &[(usize, usize)],
+        c: &Matrix,
+        sigma: f64,
+        lams: &[f64],
+        alpha: f64,
+    ) -> Vec<f64> {
+        let (n_s, n_t) = (s.rows(), t.rows());
+        let ss = kernel_sums(s.view(), c.view(), &[sigma], true);
+        let st = kernel_sums(t.view(), c.view(), &[sigma], alpha > 0.0);
+        let mut base = ss.gram[0].clone().unwrap() * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
+        if alpha > 0.0 {
+            base += st.gram[0].clone().unwrap() * Scale(alpha / (n_t as f64 - 1.0));
+        }
+        let is: Vec<usize> = held.iter().map(|p| p.0).collect();
+        let it: Vec<usize> = held.iter().map(|p| p.1).collect();
+        let ks = kernel::kernel_block(s.view().select_rows(&is).view(), c.view(), sigma);
+        let kt = kernel::kernel_block(t.view().select_rows(&it).view(), c.view(), sigma);
+        loo_scores(
+            &base,
+            &st.sum[0],
+            &ks,
+            &kt,
+            held.len(),
+            n_s,
+            n_t,
+            alpha,
+            lams,
+        )
+        .unwrap()
+    }
+
+    // Reference: Kanamori, Hido, Sugiyama (2009), JMLR 10, section 3.4 — the closed-form LOOCV
+    // score must equal explicit leave-one-out refits (here rebuilt from scratch and solved densely).
+    #[test]
+    fn closed_form_loocv_equals_brute_force_refits() {
+        let s = gaussian_rows(23, 2, 0.0, 1);
+        let t = gaussian_rows(17, 2, 0.7, 2);
+        let c = t.view().select_rows(&[0, 3, 5, 8, 11, 16]);
+        let lams = [1e-3, 0.1, 2.0];
+        for &alpha in &[0.0, 0.3] {
+            for &sigma in &[0.6, 1.5] {
+                // Every pair (m = n_t) and a subset of pairs with mismatched indices.
+                let all: Vec<(usize, usize)> = (0..17).map(|i| (i, i)).collect();
+                let some = vec![(2usize, 9usize), (20, 1), (7, 16), (0, 4)];
+                for held in [all, some] {
+                    let fast = closed_form(&s, &t, &held, &c, sigma, &lams, alpha);
+                    for (li, &lam) in lams.iter().enumerate() {
+                        let slow = brute_force_loo(&s, &t, &held, &c, sigma, lam, alpha);
+                        assert!(
+                            (fast[li] - slow).abs() <= 1e-9 * (1.0 + slow.abs()),
+                            "alpha {alpha} sigma {sigma} lam {lam}: closed form {} vs brute force {slow}",
+                            fast[li]
+                        );
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn out_of_range_parameters_are_rejected_by_name() {
+        for (est, name) in [
+            (LeastSquaresRatio::new().alpha(1.0), "alpha"),
+            (LeastSquaresRatio::new().alpha(-0.1), "alpha"),
+            (LeastSquaresRatio::new().sigma(Some(-1.0)), "sigma"),
+            (LeastSquaresRatio::new().lam(Some(0.0)), "lam"),
+            (LeastSquaresRatio::new().n_basis(0), "n_basis"),
+            (LeastSquaresRatio::new().lambda_grid(vec![]), "lambda_grid"),
+        ] {
+            match est.check() {
+                Err(Error::InvalidParameter { name: n, .. }) => assert_eq!(n, name),
+                other => panic!("expected an error naming {name}, got {other:?}"),
+            }
+        }
+    }
+
+    #[test]
+    fn mismatched_and_non_finite_inputs_are_errors() {
+        let s = gaussian_rows(10, 2, 0.0, 1);
+        let t = gaussian_rows(10, 3, 0.0, 2);
+        assert!(matches!(
+            LeastSquaresRatio::new().fit(s.view(), t.view()),
+            Err(Error::FeatureCountMismatch { .. })
+        ));
+        let mut bad = gaussian_rows(10, 2, 0.0, 3).into_vec();
+        bad[7] = f64::INFINITY;
+        let bad = Matrix::new(bad, 10, 2).unwrap();
+        match LeastSquaresRatio::new().fit(s.view(), bad.view()) {
+            Err(Error::NonFinite {
+                argument,
+                row,
+                column,
+                ..
+            }) => {
+                assert_eq!((argument.as_str(), row, column), ("target", 3, 1))
+            }
+            other => panic!("{other:?}"),
+        }
     }
 }

@@ -261,7 +261,11 @@ impl FittedRatio {
                 )));
             }
         }
-        if self.source_weights.iter().any(|w| !w.is_finite() || *w < 0.0) {
+        if self
+            .source_weights
+            .iter()
+            .any(|w| !w.is_finite() || *w < 0.0)
+        {
             return Err(Error::ModelFile(
                 "source weights must be finite and non-negative".into(),
             ));
@@ -289,7 +293,11 @@ impl FittedRatio {
                 if !(sigma.is_finite() && *sigma > 0.0) {
                     return Err(Error::ModelFile(format!("kernel width {sigma} is not > 0")));
                 }
-                if coef.iter().chain(centres.as_slice()).any(|v| !v.is_finite()) {
+                if coef
+                    .iter()
+                    .chain(centres.as_slice())
+                    .any(|v| !v.is_finite())
+                {
                     return Err(Error::ModelFile("non-finite centre or coefficient".into()));
                 }
             }
