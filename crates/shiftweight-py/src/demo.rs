@@ -7,7 +7,7 @@ use pyo3::types::PyDict;
 
 fn matrix<'py>(py: Python<'py>, m: &shiftweight::Matrix) -> PyResult<Bound<'py, PyArray2<f64>>> {
     let flat = PyArray1::from_slice(py, m.as_slice());
-    Ok(flat.reshape([m.rows(), m.cols()])?)
+    flat.reshape([m.rows(), m.cols()])
 }
 
 /// The invented electricity scenario as a dict of numpy arrays.
