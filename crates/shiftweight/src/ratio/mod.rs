@@ -261,6 +261,13 @@ impl FittedRatio {
                 )));
             }
         }
+        if self.source_weights.len() != self.meta.n_source {
+            return Err(Error::ModelFile(format!(
+                "{} source weights for {} source rows",
+                self.source_weights.len(),
+                self.meta.n_source
+            )));
+        }
         if self
             .source_weights
             .iter()
