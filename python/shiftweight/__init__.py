@@ -17,6 +17,7 @@ from ._native import (
     ShiftweightError,
     UnsupportedOperationError,
     __version__,
+    get_threads,
     set_threads,
 )
 from ._validation import NotFittedError
@@ -31,6 +32,7 @@ __all__ = [
     "from_json",
     "demo_data",
     "set_threads",
+    "get_threads",
     "ShiftweightError",
     "ModelFileError",
     "NumericalError",

@@ -7,6 +7,8 @@ use pyo3::exceptions::{PyRuntimeError, PyValueError};
 use pyo3::prelude::*;
 use shiftweight::{Error, MatrixView};
 use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::{Arc, Mutex};
 
 mod demo;
 mod learn;
@@ -53,14 +55,48 @@ pub(crate) fn to_py(e: Error) -> PyErr {
     }
 }
 
-/// Runs `f` with the GIL released; core errors become Python exceptions and a panic becomes
-/// `InternalError` (no panic ever reaches Python).
+/// Threads requested with `set_threads` (0 = one per core).
+static THREADS: AtomicUsize = AtomicUsize::new(0);
+
+/// The thread pool of this process: (pid, threads, pool). Rebuilt when the process id changes,
+/// so a child created by `fork` after the parent used the pool gets live threads instead of
+/// waiting forever on threads that were not copied by the fork.
+static POOL: Mutex<Option<(u32, usize, Arc<rayon::ThreadPool>)>> = Mutex::new(None);
+
+fn pool() -> Result<Arc<rayon::ThreadPool>, String> {
+    let pid = std::process::id();
+    let threads = THREADS.load(Ordering::SeqCst);
+    let mut guard = POOL.lock().unwrap_or_else(|e| e.into_inner());
+    if let Some((p, n, pool)) = guard.as_ref() {
+        if *p == pid && *n == threads {
+            return Ok(pool.clone());
+        }
+    }
+    if let Some((p, _, old)) = guard.take() {
+        if p != pid {
+            // Inherited through fork: its threads do not exist here; never touch or drop it.
+            std::mem::forget(old);
+        }
+    }
+    let mut builder = rayon::ThreadPoolBuilder::new();
+    if threads > 0 {
+        builder = builder.num_threads(threads);
+    }
+    let pool = Arc::new(builder.build().map_err(|e| e.to_string())?);
+    *guard = Some((pid, threads, pool.clone()));
+    Ok(pool)
+}
+
+/// Runs `f` with the GIL released on this process's thread pool; core errors become Python
+/// exceptions and a panic becomes `InternalError` (no panic ever reaches Python).
 pub(crate) fn detached<T, F>(py: Python<'_>, f: F) -> PyResult<T>
 where
     T: Send,
     F: FnOnce() -> shiftweight::Result<T> + Send,
 {
-    match py.detach(|| catch_unwind(AssertUnwindSafe(f))) {
+    let pool = pool()
+        .map_err(|e| InternalError::new_err(format!("could not start worker threads: {e}")))?;
+    match py.detach(|| pool.install(|| catch_unwind(AssertUnwindSafe(f)))) {
         Ok(Ok(v)) => Ok(v),
         Ok(Err(e)) => Err(to_py(e)),
         Err(payload) => {
@@ -100,10 +136,20 @@ pub(crate) fn vector<'a>(
     })
 }
 
-/// Sets the size of the global thread pool (once, before any work).
+/// Sets the number of worker threads used by later calls (0 = one per core). Results do not
+/// depend on it: work is cut into fixed-size chunks and combined in a fixed order.
 #[pyfunction]
 fn set_threads(n: usize) -> PyResult<()> {
-    shiftweight::set_threads(n).map_err(to_py)
+    THREADS.store(n, Ordering::SeqCst);
+    Ok(())
+}
+
+/// The number of worker threads later calls will use.
+#[pyfunction]
+fn get_threads() -> PyResult<usize> {
+    pool()
+        .map(|p| p.current_num_threads())
+        .map_err(InternalError::new_err)
 }
 
 /// Provokes an internal failure (a panic inside the core) to test that it becomes InternalError.
@@ -127,6 +173,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("NumericalError", py.get_type::<NumericalError>())?;
     m.add("InternalError", py.get_type::<InternalError>())?;
     m.add_function(wrap_pyfunction!(set_threads, m)?)?;
+    m.add_function(wrap_pyfunction!(get_threads, m)?)?;
     m.add_function(wrap_pyfunction!(_provoke_internal_failure, m)?)?;
     ratio::register(m)?;
     learn::register(m)?;
