@@ -37,7 +37,10 @@ pub struct ApplyArgs {
 /// Runs `apply`.
 pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
     if args.chunk_rows == 0 {
-        return Err(Failure { code: exit::BAD_INPUT, message: "--chunk-rows must be at least 1".into() });
+        return Err(Failure {
+            code: exit::BAD_INPUT,
+            message: "--chunk-rows must be at least 1".into(),
+        });
     }
     let block = shiftweight::kernel::CHUNK_ROWS;
     let chunk_rows = args.chunk_rows.div_ceil(block) * block;

@@ -31,17 +31,27 @@ fn parse_delimiter(s: &str) -> Result<u8, String> {
     match s {
         "tab" | "\\t" | "\t" => Ok(b'\t'),
         _ if s.len() == 1 && s.is_ascii() => Ok(s.as_bytes()[0]),
-        _ => Err(format!("the delimiter must be one ASCII character or `tab`, got {s:?}")),
+        _ => Err(format!(
+            "the delimiter must be one ASCII character or `tab`, got {s:?}"
+        )),
     }
 }
 
 impl InputArgs {
     /// File-reading options.
     pub fn file_options(&self) -> FileOptions {
-        FileOptions { format: self.format, delimiter: self.delimiter, drop_missing: self.drop_missing }
+        FileOptions {
+            format: self.format,
+            delimiter: self.delimiter,
+            drop_missing: self.drop_missing,
+        }
     }
     /// Column choice.
     pub fn choice(&self) -> ColumnChoice {
-        ColumnChoice { columns: self.columns.clone(), exclude: self.exclude.clone(), key: self.key.clone() }
+        ColumnChoice {
+            columns: self.columns.clone(),
+            exclude: self.exclude.clone(),
+            key: self.key.clone(),
+        }
     }
 }

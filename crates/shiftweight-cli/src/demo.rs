@@ -40,7 +40,13 @@ fn mean(v: &[f64]) -> f64 {
 }
 
 fn table(m: &shiftweight::Matrix, names: &[String]) -> Table {
-    Table { names: names.to_vec(), values: m.as_slice().to_vec(), keys: None, rows: m.rows(), rows_dropped: 0 }
+    Table {
+        names: names.to_vec(),
+        values: m.as_slice().to_vec(),
+        keys: None,
+        rows: m.rows(),
+        rows_dropped: 0,
+    }
 }
 
 pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
@@ -53,15 +59,34 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     let (s, t) = (data.source.view(), data.target.view());
     let mut report = Report::new("demo", g.seed);
     report.inputs = vec![
-        InputFacts { role: "source".into(), path: "generated: coastal town".into(), rows: s.rows(), rows_dropped: 0 },
-        InputFacts { role: "target".into(), path: "generated: inland town".into(), rows: t.rows(), rows_dropped: 0 },
+        InputFacts {
+            role: "source".into(),
+            path: "generated: coastal town".into(),
+            rows: s.rows(),
+            rows_dropped: 0,
+        },
+        InputFacts {
+            role: "target".into(),
+            path: "generated: inland town".into(),
+            rows: t.rows(),
+            rows_dropped: 0,
+        },
     ];
     report.features_used = data.feature_names.clone();
 
-    let detect_opts = DetectArgs { method: TestMethod::Classifier, permutations: 100, level: 0.05 };
+    let detect_opts = DetectArgs {
+        method: TestMethod::Classifier,
+        permutations: 100,
+        level: 0.05,
+    };
     let detection = {
         let _s = progress.step("testing for a shift");
-        run_detection(&table(&data.source, &data.feature_names), &table(&data.target, &data.feature_names), &detect_opts, g.seed)
+        run_detection(
+            &table(&data.source, &data.feature_names),
+            &table(&data.target, &data.feature_names),
+            &detect_opts,
+            g.seed,
+        )
     };
     let shift_line = match detection {
         Ok(d) => {
@@ -69,7 +94,11 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
                 "  shift test ({}): p = {:.4}, {}",
                 d.shift.method,
                 d.shift.p_value,
-                if d.shift.significant { "significant" } else { "not significant" }
+                if d.shift.significant {
+                    "significant"
+                } else {
+                    "not significant"
+                }
             );
             report.shift = Part::Available(d.shift);
             report.features = d.features;
@@ -82,7 +111,13 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         }
     };
 
-    let est_args = EstimatorArgs { estimator: DEMO_ESTIMATOR, sigma: None, lambda: None, n_basis: 200, alpha: None };
+    let est_args = EstimatorArgs {
+        estimator: DEMO_ESTIMATOR,
+        sigma: None,
+        lambda: None,
+        n_basis: 200,
+        alpha: None,
+    };
     let estimator = build_estimator(&est_args, g.seed)?;
     let mut model = {
         let _s = progress.step("fitting the density-ratio model");
@@ -94,10 +129,17 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     let ess = outcome.part.effective_sample_size;
     let est = estimator_part(&model, DEMO_ESTIMATOR.label());
     let plain = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, None)?;
-    let weighted = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, Some(w))?;
+    let weighted = WeightedRidge::new()
+        .l2(1e-6)
+        .fit(s, &data.y_source, Some(w))?;
     let mse = |m: &shiftweight::learn::LinearModel| -> Result<f64, Failure> {
         let p = m.predict(t)?;
-        Ok(mean(&p.iter().zip(&data.y_target).map(|(a, b)| (a - b) * (a - b)).collect::<Vec<_>>()))
+        Ok(mean(
+            &p.iter()
+                .zip(&data.y_target)
+                .map(|(a, b)| (a - b) * (a - b))
+                .collect::<Vec<_>>(),
+        ))
     };
     let (e_plain, e_weighted) = (mse(&plain)?, mse(&weighted)?);
     report.extra.push(FactTable {
@@ -107,7 +149,11 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             ("weighted fit: mean squared error".into(), format!("{e_weighted:.3}")),
         ],
     });
-    let chosen: Vec<String> = est.chosen.iter().map(|(k, v)| format!("{k} = {v:.4}")).collect();
+    let chosen: Vec<String> = est
+        .chosen
+        .iter()
+        .map(|(k, v)| format!("{k} = {}", crate::svg::num(*v)))
+        .collect();
     let n_candidates = est.candidates.len();
     let method = est.method.clone();
     report.estimator = Part::Available(est);
@@ -127,7 +173,12 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
 
     if !g.quiet {
         println!("shiftweight demo: household electricity use, coastal town (source) -> inland town (target)");
-        println!("  rows: {} source, {} target, features: {}", s.rows(), t.rows(), data.feature_names.join(", "));
+        println!(
+            "  rows: {} source, {} target, features: {}",
+            s.rows(),
+            t.rows(),
+            data.feature_names.join(", ")
+        );
         println!("{shift_line}");
         println!(
             "  estimator: {method}, {} (chosen by {} over {n_candidates} candidates)",
@@ -148,7 +199,12 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         println!("  Caution: weighting corrects covariate shift only; it needs overlap between the towns,");
         println!("  and must be validated on labelled target data before decisions rely on it.");
         println!("  report: {}", html.display());
-        println!("  also written: {}, {}, {}", json.display(), weights_path.display(), model_path.display());
+        println!(
+            "  also written: {}, {}, {}",
+            json.display(),
+            weights_path.display(),
+            model_path.display()
+        );
     }
     Ok(0)
 }

@@ -47,7 +47,11 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
         let _s = progress.step("reading source rows");
         read_table(&args.source, &opts, &args.input.choice())?
     };
-    let target_choice = ColumnChoice { columns: Some(source.names.clone()), exclude: Vec::new(), key: None };
+    let target_choice = ColumnChoice {
+        columns: Some(source.names.clone()),
+        exclude: Vec::new(),
+        key: None,
+    };
     let target = {
         let _s = progress.step("reading target rows");
         read_table(&args.target, &opts, &target_choice)?
@@ -59,14 +63,28 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
     let significant = outcome.shift.significant;
     let mut report = Report::new("detect", g.seed);
     report.inputs = vec![
-        InputFacts { role: "source".into(), path: args.source.display().to_string(), rows: source.rows, rows_dropped: source.rows_dropped },
-        InputFacts { role: "target".into(), path: args.target.display().to_string(), rows: target.rows, rows_dropped: target.rows_dropped },
+        InputFacts {
+            role: "source".into(),
+            path: args.source.display().to_string(),
+            rows: source.rows,
+            rows_dropped: source.rows_dropped,
+        },
+        InputFacts {
+            role: "target".into(),
+            path: args.target.display().to_string(),
+            rows: target.rows,
+            rows_dropped: target.rows_dropped,
+        },
     ];
     report.features_used = source.names.clone();
     if !g.quiet {
         println!(
             "{}: {} test, statistic {:.4}, p = {:.4} (level {})",
-            if significant { "shift detected" } else { "no significant shift" },
+            if significant {
+                "shift detected"
+            } else {
+                "no significant shift"
+            },
             outcome.shift.method,
             outcome.shift.statistic,
             outcome.shift.p_value,

@@ -90,7 +90,9 @@ pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator
             if args.alpha.is_some() {
                 return Err(Failure {
                     code: exit::BAD_INPUT,
-                    message: "--alpha applies to --estimator rulsif only (lsif is the alpha = 0 case)".into(),
+                    message:
+                        "--alpha applies to --estimator rulsif only (lsif is the alpha = 0 case)"
+                            .into(),
                 });
             }
             least_squares(0.0)
@@ -105,8 +107,9 @@ pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator
             }
             least_squares(alpha)
         }
-        EstimatorName::Auto | EstimatorName::Kliep | EstimatorName::Kmm | EstimatorName::Classifier => {
-            Err(not_in_build(args.estimator))
-        }
+        EstimatorName::Auto
+        | EstimatorName::Kliep
+        | EstimatorName::Kmm
+        | EstimatorName::Classifier => Err(not_in_build(args.estimator)),
     }
 }

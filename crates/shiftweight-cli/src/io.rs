@@ -41,7 +41,11 @@ impl FileOptions {
         if let Some(f) = self.format {
             return f;
         }
-        match path.extension().and_then(|e| e.to_str()).map(|e| e.to_ascii_lowercase()) {
+        match path
+            .extension()
+            .and_then(|e| e.to_str())
+            .map(|e| e.to_ascii_lowercase())
+        {
             Some(e) if e == "parquet" || e == "pq" => Format::Parquet,
             _ => Format::Csv,
         }
@@ -63,11 +67,17 @@ pub struct ColumnChoice {
 const MISSING_TOKENS: [&str; 8] = ["", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"];
 
 fn bad(message: String) -> Failure {
-    Failure { code: exit::BAD_INPUT, message }
+    Failure {
+        code: exit::BAD_INPUT,
+        message,
+    }
 }
 
 fn io_fail(path: &Path, what: &str, e: impl std::fmt::Display) -> Failure {
-    Failure { code: exit::IO, message: format!("{what} `{}`: {e}", path.display()) }
+    Failure {
+        code: exit::IO,
+        message: format!("{what} `{}`: {e}", path.display()),
+    }
 }
 
 /// One chunk of rows: row-major feature values and, if a key column was named, the keys.
@@ -112,8 +122,17 @@ fn parse_number(text: &str) -> Result<f64, FieldProblem> {
 }
 
 enum Source {
-    Csv { reader: csv::Reader<File>, record: csv::StringRecord, positions: Vec<usize>, key_pos: Option<usize> },
-    Parquet { rows: parquet::record::reader::RowIter<'static>, n_cols: usize, key: Option<String> },
+    Csv {
+        reader: csv::Reader<File>,
+        record: csv::StringRecord,
+        positions: Vec<usize>,
+        key_pos: Option<usize>,
+    },
+    Parquet {
+        rows: parquet::record::reader::RowIter<'static>,
+        n_cols: usize,
+        key: Option<String>,
+    },
 }
 
 /// Streams a table in chunks of rows, choosing feature columns by name.
@@ -132,7 +151,11 @@ pub struct TableReader {
 }
 
 /// Resolves the chosen columns against a header, returning feature positions and key position.
-fn resolve(path: &Path, header: &[String], choice: &ColumnChoice) -> Result<(Vec<usize>, Option<usize>), Failure> {
+fn resolve(
+    path: &Path,
+    header: &[String],
+    choice: &ColumnChoice,
+) -> Result<(Vec<usize>, Option<usize>), Failure> {
     let find = |name: &str, what: &str| -> Result<usize, Failure> {
         header.iter().position(|h| h == name).ok_or_else(|| {
             bad(format!(
@@ -144,7 +167,10 @@ fn resolve(path: &Path, header: &[String], choice: &ColumnChoice) -> Result<(Vec
     };
     for (i, h) in header.iter().enumerate() {
         if header[..i].contains(h) {
-            return Err(bad(format!("`{}` has the column name `{h}` more than once", path.display())));
+            return Err(bad(format!(
+                "`{}` has the column name `{h}` more than once",
+                path.display()
+            )));
         }
     }
     let key_pos = match &choice.key {
@@ -160,7 +186,9 @@ fn resolve(path: &Path, header: &[String], choice: &ColumnChoice) -> Result<(Vec
             for c in cols {
                 let j = find(c, "column")?;
                 if Some(j) == key_pos {
-                    return Err(bad(format!("column `{c}` is the key column; a key cannot also be a feature")));
+                    return Err(bad(format!(
+                        "column `{c}` is the key column; a key cannot also be a feature"
+                    )));
                 }
                 if p.contains(&j) {
                     return Err(bad(format!("column `{c}` is named twice in --columns")));
@@ -174,7 +202,10 @@ fn resolve(path: &Path, header: &[String], choice: &ColumnChoice) -> Result<(Vec
             .collect(),
     };
     if positions.is_empty() {
-        return Err(bad(format!("no feature columns are left to read in `{}`", path.display())));
+        return Err(bad(format!(
+            "no feature columns are left to read in `{}`",
+            path.display()
+        )));
     }
     Ok((positions, key_pos))
 }
@@ -197,11 +228,22 @@ impl TableReader {
                     .map(|h| h.trim().to_string())
                     .collect();
                 if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-                    return Err(bad(format!("`{}` is empty or has no header line", path.display())));
+                    return Err(bad(format!(
+                        "`{}` is empty or has no header line",
+                        path.display()
+                    )));
                 }
                 let (positions, key_pos) = resolve(path, &header, choice)?;
                 let names = positions.iter().map(|&j| header[j].clone()).collect();
-                (Source::Csv { reader, record: csv::StringRecord::new(), positions, key_pos }, names)
+                (
+                    Source::Csv {
+                        reader,
+                        record: csv::StringRecord::new(),
+                        positions,
+                        key_pos,
+                    },
+                    names,
+                )
             }
             Format::Parquet => open_parquet(path, file, choice)?,
         };
@@ -245,7 +287,12 @@ impl TableReader {
             let row = self.rows_seen + 1;
             // Fill row_buf (and the key) for one row, or find the end of the file.
             let (ok, key) = match &mut self.source {
-                Source::Csv { reader, record, positions, key_pos } => {
+                Source::Csv {
+                    reader,
+                    record,
+                    positions,
+                    key_pos,
+                } => {
                     match reader.read_record(record) {
                         Ok(false) => return Ok(chunk.rows > 0),
                         Ok(true) => {}
@@ -266,12 +313,18 @@ impl TableReader {
                     match problem {
                         None => (Ok(()), key),
                         Some((j, p)) => {
-                            let name = self.names[positions.iter().position(|&q| q == j).unwrap_or(0)].clone();
+                            let name = self.names
+                                [positions.iter().position(|&q| q == j).unwrap_or(0)]
+                            .clone();
                             (Err((name, p)), key)
                         }
                     }
                 }
-                Source::Parquet { rows, key: key_name, .. } => {
+                Source::Parquet {
+                    rows,
+                    key: key_name,
+                    ..
+                } => {
                     let r = match rows.next() {
                         None => return Ok(chunk.rows > 0),
                         Some(Err(e)) => return Err(parquet_fail(&self.path, e)),
@@ -323,15 +376,27 @@ impl TableReader {
 }
 
 fn csv_fail(path: &Path, e: csv::Error) -> Failure {
-    let code = if e.is_io_error() { exit::IO } else { exit::BAD_INPUT };
-    let at = e.position().map(|p| format!(" (line {})", p.line())).unwrap_or_default();
+    let code = if e.is_io_error() {
+        exit::IO
+    } else {
+        exit::BAD_INPUT
+    };
+    let at = e
+        .position()
+        .map(|p| format!(" (line {})", p.line()))
+        .unwrap_or_default();
     let detail = match e.kind() {
-        csv::ErrorKind::UnequalLengths { expected_len, len, .. } => {
+        csv::ErrorKind::UnequalLengths {
+            expected_len, len, ..
+        } => {
             format!("a line has {len} fields but the header has {expected_len}")
         }
         _ => e.to_string(),
     };
-    Failure { code, message: format!("cannot read `{}`{at}: {detail}", path.display()) }
+    Failure {
+        code,
+        message: format!("cannot read `{}`{at}: {detail}", path.display()),
+    }
 }
 
 fn parquet_fail(path: &Path, e: parquet::errors::ParquetError) -> Failure {
@@ -339,7 +404,10 @@ fn parquet_fail(path: &Path, e: parquet::errors::ParquetError) -> Failure {
         parquet::errors::ParquetError::External(_) => exit::IO,
         _ => exit::BAD_INPUT,
     };
-    Failure { code, message: format!("cannot read Parquet file `{}`: {e}", path.display()) }
+    Failure {
+        code,
+        message: format!("cannot read Parquet file `{}`: {e}", path.display()),
+    }
 }
 
 fn field_number(f: &parquet::record::Field) -> Result<f64, FieldProblem> {
@@ -377,11 +445,20 @@ fn field_text(f: &parquet::record::Field) -> String {
     }
 }
 
-fn open_parquet(path: &Path, file: File, choice: &ColumnChoice) -> Result<(Source, Vec<String>), Failure> {
+fn open_parquet(
+    path: &Path,
+    file: File,
+    choice: &ColumnChoice,
+) -> Result<(Source, Vec<String>), Failure> {
     use parquet::file::reader::{FileReader, SerializedFileReader};
     use parquet::schema::types::Type;
     let reader = SerializedFileReader::new(file).map_err(|e| parquet_fail(path, e))?;
-    let root = reader.metadata().file_metadata().schema_descr().root_schema().clone();
+    let root = reader
+        .metadata()
+        .file_metadata()
+        .schema_descr()
+        .root_schema()
+        .clone();
     let fields = root.get_fields().to_vec();
     let header: Vec<String> = fields.iter().map(|f| f.name().to_string()).collect();
     let (positions, key_pos) = resolve(path, &header, choice)?;
@@ -417,7 +494,14 @@ fn open_parquet(path: &Path, file: File, choice: &ColumnChoice) -> Result<(Sourc
     }
     let names = positions.iter().map(|&j| header[j].clone()).collect();
     let n_cols = positions.len();
-    Ok((Source::Parquet { rows, n_cols, key: choice.key.clone() }, names))
+    Ok((
+        Source::Parquet {
+            rows,
+            n_cols,
+            key: choice.key.clone(),
+        },
+        names,
+    ))
 }
 
 /// A whole table in memory.
@@ -438,12 +522,21 @@ pub struct Table {
 impl Table {
     /// A matrix view of the values.
     pub fn view(&self, argument: &str) -> Result<shiftweight::MatrixView<'_>, Failure> {
-        Ok(shiftweight::MatrixView::named(&self.values, self.rows, self.names.len(), argument)?)
+        Ok(shiftweight::MatrixView::named(
+            &self.values,
+            self.rows,
+            self.names.len(),
+            argument,
+        )?)
     }
 }
 
 /// Reads a whole table (for fitting), through the same streaming reader as `apply`.
-pub fn read_table(path: &Path, opts: &FileOptions, choice: &ColumnChoice) -> Result<Table, Failure> {
+pub fn read_table(
+    path: &Path,
+    opts: &FileOptions,
+    choice: &ColumnChoice,
+) -> Result<Table, Failure> {
     let mut reader = TableReader::open(path, opts, choice)?;
     let mut table = Table {
         names: reader.names.clone(),
@@ -495,7 +588,11 @@ impl AtomicFile {
             .into_owned();
         let tmp = dir.join(format!(".{name}.{}.partial", std::process::id()));
         let file = File::create(&tmp).map_err(|e| io_fail(dest, "cannot write beside", e))?;
-        Ok(AtomicFile { dest: dest.to_path_buf(), tmp, out: Some(BufWriter::new(file)) })
+        Ok(AtomicFile {
+            dest: dest.to_path_buf(),
+            tmp,
+            out: Some(BufWriter::new(file)),
+        })
     }
 
     /// The writer.
@@ -507,14 +604,19 @@ impl AtomicFile {
     /// Writes bytes, mapping failures to an I/O failure naming the destination.
     pub fn write_all(&mut self, bytes: &[u8]) -> Result<(), Failure> {
         let dest = self.dest.clone();
-        self.writer().write_all(bytes).map_err(|e| io_fail(&dest, "cannot write", e))
+        self.writer()
+            .write_all(bytes)
+            .map_err(|e| io_fail(&dest, "cannot write", e))
     }
 
     /// Flushes, fsyncs and renames the temporary file over the destination.
     pub fn commit(mut self) -> Result<(), Failure> {
         let out = self.out.take().expect("commit called once");
-        let file = out.into_inner().map_err(|e| io_fail(&self.dest, "cannot write", e.error()))?;
-        file.sync_all().map_err(|e| io_fail(&self.dest, "cannot flush", e))?;
+        let file = out
+            .into_inner()
+            .map_err(|e| io_fail(&self.dest, "cannot write", e.error()))?;
+        file.sync_all()
+            .map_err(|e| io_fail(&self.dest, "cannot flush", e))?;
         drop(file);
         fs::rename(&self.tmp, &self.dest).map_err(|e| io_fail(&self.dest, "cannot replace", e))?;
         // Make the rename itself durable where the platform allows opening a directory.
@@ -552,7 +654,11 @@ pub struct WeightsWriter {
 
 /// Refuses output names this build cannot write.
 pub fn check_weights_path(path: &Path) -> Result<(), Failure> {
-    match path.extension().and_then(|e| e.to_str()).map(|e| e.to_ascii_lowercase()) {
+    match path
+        .extension()
+        .and_then(|e| e.to_str())
+        .map(|e| e.to_ascii_lowercase())
+    {
         Some(e) if e == "parquet" || e == "pq" => Err(bad(format!(
             "`{}`: weights are written as CSV; choose a .csv name",
             path.display()
@@ -571,7 +677,11 @@ impl WeightsWriter {
             None => "weight\n".to_string(),
         };
         file.write_all(header.as_bytes())?;
-        Ok(WeightsWriter { file, key_name: key_name.map(str::to_string), line: String::new() })
+        Ok(WeightsWriter {
+            file,
+            key_name: key_name.map(str::to_string),
+            line: String::new(),
+        })
     }
 
     /// Appends rows; `keys` must be given exactly when a key column was named.
@@ -580,7 +690,10 @@ impl WeightsWriter {
         for (i, w) in weights.iter().enumerate() {
             self.line.clear();
             if self.key_name.is_some() {
-                let k = keys.and_then(|k| k.get(i)).map(String::as_str).unwrap_or("");
+                let k = keys
+                    .and_then(|k| k.get(i))
+                    .map(String::as_str)
+                    .unwrap_or("");
                 self.line.push_str(&csv_field(k));
                 self.line.push(',');
             }
@@ -615,8 +728,14 @@ mod tests {
         assert!(matches!(parse_number(" 1.5 "), Ok(v) if v == 1.5));
         assert!(matches!(parse_number("NA"), Err(FieldProblem::Missing)));
         assert!(matches!(parse_number(""), Err(FieldProblem::Missing)));
-        assert!(matches!(parse_number("abc"), Err(FieldProblem::NotNumeric(_))));
-        assert!(matches!(parse_number("inf"), Err(FieldProblem::NotNumeric(_))));
+        assert!(matches!(
+            parse_number("abc"),
+            Err(FieldProblem::NotNumeric(_))
+        ));
+        assert!(matches!(
+            parse_number("inf"),
+            Err(FieldProblem::NotNumeric(_))
+        ));
     }
 
     #[test]

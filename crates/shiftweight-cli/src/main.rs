@@ -94,8 +94,15 @@ pub struct Failure {
 
 impl From<shiftweight::Error> for Failure {
     fn from(e: shiftweight::Error) -> Self {
-        let code = if e.is_input_error() { exit::BAD_INPUT } else { exit::INTERNAL };
-        Failure { code, message: e.to_string() }
+        let code = if e.is_input_error() {
+            exit::BAD_INPUT
+        } else {
+            exit::INTERNAL
+        };
+        Failure {
+            code,
+            message: e.to_string(),
+        }
     }
 }
 
@@ -119,7 +126,10 @@ fn main() -> ExitCode {
             *s = info.to_string();
         }
     }));
-    let g = Globals { seed: cli.seed, quiet: cli.quiet };
+    let g = Globals {
+        seed: cli.seed,
+        quiet: cli.quiet,
+    };
     let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| match cli.command {
         Command::Demo(a) => demo::run(a, &g),
         Command::Detect(a) => detect::run(a, &g),

@@ -15,7 +15,9 @@ pub struct Progress {
 impl Progress {
     /// Shown only when not quiet and stderr is a terminal.
     pub fn new(quiet: bool) -> Self {
-        Progress { enabled: !quiet && std::io::stderr().is_terminal() }
+        Progress {
+            enabled: !quiet && std::io::stderr().is_terminal(),
+        }
     }
 
     /// Starts a step; the spinner appears only if the step is still running after one second,
@@ -26,12 +28,18 @@ impl Progress {
 
     /// As [`Progress::step`], with a running count (advance it with [`Step::inc`]).
     pub fn counter(&self, message: &str) -> Step {
-        self.start(message, "{spinner} {msg}: {human_pos} rows ({per_sec}, {elapsed})")
+        self.start(
+            message,
+            "{spinner} {msg}: {human_pos} rows ({per_sec}, {elapsed})",
+        )
     }
 
     fn start(&self, message: &str, template: &str) -> Step {
         if !self.enabled {
-            return Step { bar: None, done: Arc::new(Mutex::new(true)) };
+            return Step {
+                bar: None,
+                done: Arc::new(Mutex::new(true)),
+            };
         }
         let bar = ProgressBar::with_draw_target(None, ProgressDrawTarget::hidden());
         bar.set_style(
@@ -50,7 +58,10 @@ impl Progress {
                 }
             }
         });
-        Step { bar: Some(bar), done }
+        Step {
+            bar: Some(bar),
+            done,
+        }
     }
 }
 

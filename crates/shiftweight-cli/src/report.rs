@@ -50,7 +50,9 @@ pub enum Part<T> {
 impl<T> Part<T> {
     /// A missing section with its reason.
     pub fn missing(reason: impl Into<String>) -> Self {
-        Part::NotAvailable { reason: reason.into() }
+        Part::NotAvailable {
+            reason: reason.into(),
+        }
     }
 }
 
@@ -245,8 +247,12 @@ impl Report {
                 "shift" => part_html(&mut h, &self.shift, shift_html),
                 "estimator" => part_html(&mut h, &self.estimator, estimator_html),
                 "weights" => part_html(&mut h, &self.weights, weights_html),
-                "clipping" => part_html(&mut h, &self.clipping, |h, v: &Vec<ClipRow>| clipping_html(h, v)),
-                "features" => part_html(&mut h, &self.features, |h, v: &Vec<FeatureRow>| features_html(h, v)),
+                "clipping" => part_html(&mut h, &self.clipping, |h, v: &Vec<ClipRow>| {
+                    clipping_html(h, v)
+                }),
+                "features" => part_html(&mut h, &self.features, |h, v: &Vec<FeatureRow>| {
+                    features_html(h, v)
+                }),
                 _ => {
                     h.push_str("<ul class=\"cautions\">");
                     for c in &self.cautions {
@@ -268,7 +274,11 @@ impl Report {
                 "Shift test ({}): p = {}, {} at level {}.",
                 s.method,
                 num(s.p_value),
-                if s.significant { "a significant shift" } else { "no significant shift" },
+                if s.significant {
+                    "a significant shift"
+                } else {
+                    "no significant shift"
+                },
                 num(s.level)
             )),
             Part::NotAvailable { .. } => points.push("Shift test: not run (see below).".into()),
@@ -307,7 +317,11 @@ impl Report {
             h.push_str("</tbody></table>");
         }
         if !self.features_used.is_empty() {
-            let _ = write!(h, "<p>Features used: {}.</p>", esc(&self.features_used.join(", ")));
+            let _ = write!(
+                h,
+                "<p>Features used: {}.</p>",
+                esc(&self.features_used.join(", "))
+            );
         }
         for t in &self.extra {
             fact_table(h, t);
@@ -318,7 +332,12 @@ impl Report {
 fn fact_table(h: &mut String, t: &FactTable) {
     let _ = write!(h, "<table><caption>{}</caption><tbody>", esc(&t.caption));
     for (k, v) in &t.rows {
-        let _ = write!(h, "<tr><th scope=\"row\">{}</th><td class=\"n\">{}</td></tr>", esc(k), esc(v));
+        let _ = write!(
+            h,
+            "<tr><th scope=\"row\">{}</th><td class=\"n\">{}</td></tr>",
+            esc(k),
+            esc(v)
+        );
     }
     h.push_str("</tbody></table>");
 }
@@ -327,7 +346,11 @@ fn part_html<T>(h: &mut String, part: &Part<T>, body: fn(&mut String, &T)) {
     match part {
         Part::Available(v) => body(h, v),
         Part::NotAvailable { reason } => {
-            let _ = write!(h, "<p class=\"absent\">Not available in this report: {}.</p>", esc(reason));
+            let _ = write!(
+                h,
+                "<p class=\"absent\">Not available in this report: {}.</p>",
+                esc(reason)
+            );
         }
     }
 }
@@ -358,7 +381,11 @@ fn shift_html(h: &mut String, s: &ShiftPart) {
 }
 
 fn estimator_html(h: &mut String, e: &EstimatorPart) {
-    let chosen: Vec<String> = e.chosen.iter().map(|(k, v)| format!("{k} = {}", num(*v))).collect();
+    let chosen: Vec<String> = e
+        .chosen
+        .iter()
+        .map(|(k, v)| format!("{k} = {}", num(*v)))
+        .collect();
     let _ = write!(
         h,
         "<p>Method: <strong>{}</strong>. Chosen: {}. Candidates were scored by {} (lower is better).</p>",
@@ -376,7 +403,11 @@ fn estimator_html(h: &mut String, e: &EstimatorPart) {
     // Line chart: score against the parameter that varies most, one line per value of the others.
     let names: Vec<String> = e.candidates[0].params.keys().cloned().collect();
     let varying = |k: &String| {
-        let mut v: Vec<f64> = e.candidates.iter().filter_map(|c| c.params.get(k).copied()).collect();
+        let mut v: Vec<f64> = e
+            .candidates
+            .iter()
+            .filter_map(|c| c.params.get(k).copied())
+            .collect();
         v.sort_by(f64::total_cmp);
         v.dedup();
         v.len()
@@ -384,22 +415,45 @@ fn estimator_html(h: &mut String, e: &EstimatorPart) {
     if let Some(xname) = names.iter().max_by_key(|k| varying(k)).cloned() {
         let mut groups: BTreeMap<String, Vec<(f64, f64)>> = BTreeMap::new();
         for c in &e.candidates {
-            let label: Vec<String> =
-                c.params.iter().filter(|(k, _)| **k != xname).map(|(k, v)| format!("{k}={}", num(*v))).collect();
+            let label: Vec<String> = c
+                .params
+                .iter()
+                .filter(|(k, _)| **k != xname)
+                .map(|(k, v)| format!("{k}={}", num(*v)))
+                .collect();
             let x = c.params.get(&xname).copied().unwrap_or(f64::NAN);
-            groups.entry(label.join(" ")).or_default().push((x, c.score));
+            groups
+                .entry(label.join(" "))
+                .or_default()
+                .push((x, c.score));
         }
-        let all_pos = e.candidates.iter().all(|c| c.params.get(&xname).is_some_and(|v| *v > 0.0));
+        let all_pos = e
+            .candidates
+            .iter()
+            .all(|c| c.params.get(&xname).is_some_and(|v| *v > 0.0));
         let series: Vec<Series> = groups
             .into_iter()
             .take(svg::SERIES.len())
             .map(|(name, mut points)| {
                 points.sort_by(|a, b| a.0.total_cmp(&b.0));
-                Series { name: if name.is_empty() { "score".into() } else { name }, points }
+                Series {
+                    name: if name.is_empty() {
+                        "score".into()
+                    } else {
+                        name
+                    },
+                    points,
+                }
             })
             .collect();
         h.push_str("<figure>");
-        h.push_str(&svg::line_chart(&series, "Selection score of each candidate", &xname, "score (lower is better)", all_pos));
+        h.push_str(&svg::line_chart(
+            &series,
+            "Selection score of each candidate",
+            &xname,
+            "score (lower is better)",
+            all_pos,
+        ));
         h.push_str("</figure>");
     }
     h.push_str("<table><caption>Candidates and their scores</caption><thead><tr>");
@@ -409,9 +463,17 @@ fn estimator_html(h: &mut String, e: &EstimatorPart) {
     h.push_str("<th>score</th></tr></thead><tbody>");
     for c in &e.candidates {
         let is_chosen = names.iter().all(|n| c.params.get(n) == e.chosen.get(n));
-        let _ = write!(h, "<tr{}>", if is_chosen { " class=\"chosen\"" } else { "" });
+        let _ = write!(
+            h,
+            "<tr{}>",
+            if is_chosen { " class=\"chosen\"" } else { "" }
+        );
         for n in &names {
-            let _ = write!(h, "<td class=\"n\">{}</td>", c.params.get(n).map_or(String::new(), |v| num(*v)));
+            let _ = write!(
+                h,
+                "<td class=\"n\">{}</td>",
+                c.params.get(n).map_or(String::new(), |v| num(*v))
+            );
         }
         let _ = write!(h, "<td class=\"n\">{}</td></tr>", num(c.score));
     }
@@ -420,7 +482,12 @@ fn estimator_html(h: &mut String, e: &EstimatorPart) {
 
 fn weights_html(h: &mut String, w: &WeightsPart) {
     h.push_str("<figure>");
-    h.push_str(&svg::log_histogram(&w.values, "Distribution of the weights (log scale)", "weight", 30));
+    h.push_str(&svg::log_histogram(
+        &w.values,
+        "Distribution of the weights (log scale)",
+        "weight",
+        30,
+    ));
     h.push_str("</figure>");
     let mut rows = vec![
         ("rows".to_string(), w.n.to_string()),
@@ -432,11 +499,20 @@ fn weights_html(h: &mut String, w: &WeightsPart) {
         rows.push((format!("{}% quantile", num(100.0 * p)), num(*v)));
     }
     rows.push(("max".into(), num(w.max)));
-    rows.push(("effective sample size (Kish)".into(), num(w.effective_sample_size)));
+    rows.push((
+        "effective sample size (Kish)".into(),
+        num(w.effective_sample_size),
+    ));
     for (k, v) in &w.diagnostics {
         rows.push((k.clone(), v.clone()));
     }
-    fact_table(h, &FactTable { caption: "Weight statistics".into(), rows });
+    fact_table(
+        h,
+        &FactTable {
+            caption: "Weight statistics".into(),
+            rows,
+        },
+    );
     if w.diagnostics.is_empty() {
         h.push_str("<p class=\"absent\">Tail diagnostics (Pareto k and a verdict) are not available in this build.</p>");
     }
@@ -445,10 +521,19 @@ fn weights_html(h: &mut String, w: &WeightsPart) {
 fn clipping_html(h: &mut String, rows: &[ClipRow]) {
     let series = vec![Series {
         name: "effective sample size".into(),
-        points: rows.iter().map(|r| (r.cap, r.effective_sample_size)).collect(),
+        points: rows
+            .iter()
+            .map(|r| (r.cap, r.effective_sample_size))
+            .collect(),
     }];
     h.push_str("<figure>");
-    h.push_str(&svg::line_chart(&series, "Effective sample size against the cap", "cap on the weights", "effective sample size", true));
+    h.push_str(&svg::line_chart(
+        &series,
+        "Effective sample size against the cap",
+        "cap on the weights",
+        "effective sample size",
+        true,
+    ));
     h.push_str("</figure><table><caption>Caps and their effect</caption><thead><tr><th>cap</th><th>rows capped</th><th>effective sample size</th><th>shift of the weighted mean</th></tr></thead><tbody>");
     for r in rows {
         let _ = write!(
@@ -467,7 +552,12 @@ fn features_html(h: &mut String, rows: &[FeatureRow]) {
     let labels: Vec<String> = rows.iter().map(|r| r.feature.clone()).collect();
     let values: Vec<f64> = rows.iter().map(|r| r.score).collect();
     h.push_str("<figure>");
-    h.push_str(&svg::bar_chart(&labels, &values, "Shift of each feature", "shift score (larger = more shifted)"));
+    h.push_str(&svg::bar_chart(
+        &labels,
+        &values,
+        "Shift of each feature",
+        "shift score (larger = more shifted)",
+    ));
     h.push_str("</figure><table><caption>Feature shift, most shifted first</caption><thead><tr><th>feature</th><th>score</th><th>p-value</th></tr></thead><tbody>");
     for r in rows {
         let _ = write!(
@@ -515,7 +605,10 @@ pub fn describe_weights(w: &[f64], stabilisation: &str) -> WeightsPart {
         n,
         mean: if n > 0 { sum / n as f64 } else { f64::NAN },
         min: sorted.first().copied().unwrap_or(f64::NAN),
-        quantiles: [0.01, 0.25, 0.5, 0.75, 0.99].iter().map(|&p| (p, q(p))).collect(),
+        quantiles: [0.01, 0.25, 0.5, 0.75, 0.99]
+            .iter()
+            .map(|&p| (p, q(p)))
+            .collect(),
         max: sorted.last().copied().unwrap_or(f64::NAN),
         effective_sample_size: if sq > 0.0 { sum * sum / sq } else { 0.0 },
         diagnostics: BTreeMap::new(),
@@ -552,7 +645,10 @@ mod tests {
         chosen.insert("sigma".to_string(), 1.0);
         let candidates = [0.5, 1.0, 2.0]
             .iter()
-            .map(|&s| shiftweight::ratio::ScoreRow { params: [("sigma".to_string(), s)].into(), score: -s })
+            .map(|&s| shiftweight::ratio::ScoreRow {
+                params: [("sigma".to_string(), s)].into(),
+                score: -s,
+            })
             .collect();
         r.estimator = Part::Available(EstimatorPart {
             method: "uLSIF".into(),
@@ -563,18 +659,38 @@ mod tests {
         });
         r.weights = Part::Available(describe_weights(&[0.0, 0.1, 1.0, 3.0, 10.0], "none"));
         r.clipping = Part::Available(vec![
-            ClipRow { cap: 2.0, share_capped: 0.2, effective_sample_size: 3.0, shift_of_mean: None },
-            ClipRow { cap: 5.0, share_capped: 0.1, effective_sample_size: 2.0, shift_of_mean: Some(0.1) },
+            ClipRow {
+                cap: 2.0,
+                share_capped: 0.2,
+                effective_sample_size: 3.0,
+                shift_of_mean: None,
+            },
+            ClipRow {
+                cap: 5.0,
+                share_capped: 0.1,
+                effective_sample_size: 2.0,
+                shift_of_mean: Some(0.1),
+            },
         ]);
-        r.features = Part::Available(vec![FeatureRow { feature: "a<b".into(), score: 0.4, p_value: Some(0.2) }]);
+        r.features = Part::Available(vec![FeatureRow {
+            feature: "a<b".into(),
+            score: 0.4,
+            p_value: Some(0.2),
+        }]);
         let html = r.to_html();
         // reference: roxmltree, an independent strict XML parser (rejects unbalanced tags)
         let doc = roxmltree::Document::parse_with_options(
             &html,
-            roxmltree::ParsingOptions { allow_dtd: true, ..Default::default() },
+            roxmltree::ParsingOptions {
+                allow_dtd: true,
+                ..Default::default()
+            },
         )
         .unwrap();
-        assert_eq!(doc.descendants().filter(|n| n.has_tag_name("svg")).count(), 4);
+        assert_eq!(
+            doc.descendants().filter(|n| n.has_tag_name("svg")).count(),
+            4
+        );
         assert!(!html.contains("Not available"));
         let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
         assert_eq!(json["clipping"]["data"][1]["cap"], 5.0);

@@ -27,7 +27,10 @@ pub struct WeightsOutcome {
 ///
 /// MERGE: apply `shiftweight::weights` stabilisation per `opts` here, fill `part.diagnostics`
 /// from `shiftweight::diagnostics` (Pareto k, verdict, Kish ESS), and the clipping trade-off.
-pub fn finish_weights(model: &FittedRatio, opts: &StabiliseArgs) -> Result<WeightsOutcome, Failure> {
+pub fn finish_weights(
+    model: &FittedRatio,
+    opts: &StabiliseArgs,
+) -> Result<WeightsOutcome, Failure> {
     let _ = opts;
     let weights = model.source_weights.clone();
     let part = report::describe_weights(&weights, "none (raw estimates)");
@@ -75,10 +78,18 @@ pub struct DetectOutcome {
 ///
 /// MERGE: call `shiftweight::detect` (the two-sample test with `opts.method`,
 /// `opts.permutations`, `seed`, and the per-feature table with `source.names`) here.
-pub fn run_detection(source: &Table, target: &Table, opts: &DetectArgs, seed: u64) -> Result<DetectOutcome, Failure> {
+pub fn run_detection(
+    source: &Table,
+    target: &Table,
+    opts: &DetectArgs,
+    seed: u64,
+) -> Result<DetectOutcome, Failure> {
     let _ = (source, target, seed);
     if !(opts.level > 0.0 && opts.level < 1.0) {
-        return Err(Failure { code: exit::BAD_INPUT, message: format!("--level must be in (0, 1), got {}", opts.level) });
+        return Err(Failure {
+            code: exit::BAD_INPUT,
+            message: format!("--level must be in (0, 1), got {}", opts.level),
+        });
     }
     Err(Failure {
         code: exit::BAD_INPUT,

@@ -10,7 +10,9 @@ use std::fmt::Write as _;
 pub const INK: &str = "#23303b";
 pub const GRID: &str = "#d9dee3";
 /// Series colours, used in order.
-pub const SERIES: [&str; 6] = ["#1f6f78", "#c9772c", "#6d4a8c", "#4f8a3a", "#b23a48", "#5c6b78"];
+pub const SERIES: [&str; 6] = [
+    "#1f6f78", "#c9772c", "#6d4a8c", "#4f8a3a", "#b23a48", "#5c6b78",
+];
 
 const W: f64 = 640.0;
 const H: f64 = 300.0;
@@ -95,11 +97,19 @@ struct Frame {
 
 impl Frame {
     fn px(&self, x: f64) -> f64 {
-        let span = if self.x1 > self.x0 { self.x1 - self.x0 } else { 1.0 };
+        let span = if self.x1 > self.x0 {
+            self.x1 - self.x0
+        } else {
+            1.0
+        };
         LEFT + (x - self.x0) / span * (W - LEFT - RIGHT)
     }
     fn py(&self, y: f64) -> f64 {
-        let span = if self.y1 > self.y0 { self.y1 - self.y0 } else { 1.0 };
+        let span = if self.y1 > self.y0 {
+            self.y1 - self.y0
+        } else {
+            1.0
+        };
         self.h - BOTTOM - (y - self.y0) / span * (self.h - TOP - BOTTOM)
     }
     /// Axes, grid lines and labels. `xfmt` formats x tick values.
@@ -148,16 +158,27 @@ impl Frame {
 /// Histogram of the positive values on a log10 axis; zeros and non-finite values are counted in
 /// the caption instead of drawn.
 pub fn log_histogram(values: &[f64], title: &str, x_label: &str, bins: usize) -> String {
-    let logs: Vec<f64> = values.iter().filter(|v| v.is_finite() && **v > 0.0).map(|v| v.log10()).collect();
+    let logs: Vec<f64> = values
+        .iter()
+        .filter(|v| v.is_finite() && **v > 0.0)
+        .map(|v| v.log10())
+        .collect();
     let zeros = values.len() - logs.len();
     let mut s = open(title, H);
     if logs.is_empty() {
-        let _ = write!(s, "<text x=\"{LEFT}\" y=\"80\" fill=\"{INK}\">no positive values to draw</text></svg>");
+        let _ = write!(
+            s,
+            "<text x=\"{LEFT}\" y=\"80\" fill=\"{INK}\">no positive values to draw</text></svg>"
+        );
         return s;
     }
     let lo = logs.iter().cloned().fold(f64::INFINITY, f64::min);
     let hi = logs.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
-    let (lo, hi) = if hi - lo < 1e-9 { (lo - 0.5, hi + 0.5) } else { (lo, hi) };
+    let (lo, hi) = if hi - lo < 1e-9 {
+        (lo - 0.5, hi + 0.5)
+    } else {
+        (lo, hi)
+    };
     let bins = bins.max(1);
     let width = (hi - lo) / bins as f64;
     let mut counts = vec![0usize; bins];
@@ -166,10 +187,19 @@ pub fn log_histogram(values: &[f64], title: &str, x_label: &str, bins: usize) ->
         counts[b] += 1;
     }
     let top = *counts.iter().max().unwrap_or(&1) as f64;
-    let f = Frame { x0: lo, x1: hi, y0: 0.0, y1: top, h: H };
+    let f = Frame {
+        x0: lo,
+        x1: hi,
+        y0: 0.0,
+        y1: top,
+        h: H,
+    };
     f.axes(&mut s, x_label, "rows", &|t| num(10f64.powf(t)));
     for (b, c) in counts.iter().enumerate() {
-        let (xa, xb) = (f.px(lo + b as f64 * width), f.px(lo + (b + 1) as f64 * width));
+        let (xa, xb) = (
+            f.px(lo + b as f64 * width),
+            f.px(lo + (b + 1) as f64 * width),
+        );
         let (ya, yb) = (f.py(*c as f64), f.py(0.0));
         let _ = write!(
             s,
@@ -197,12 +227,21 @@ pub fn bar_chart(labels: &[String], values: &[f64], title: &str, value_label: &s
     let h = TOP + 22.0 * n as f64 + BOTTOM;
     let mut s = open(title, h);
     let label_w = 170.0;
-    let vmax = values.iter().take(n).cloned().filter(|v| v.is_finite()).fold(0.0, f64::max);
+    let vmax = values
+        .iter()
+        .take(n)
+        .cloned()
+        .filter(|v| v.is_finite())
+        .fold(0.0, f64::max);
     let vmax = if vmax > 0.0 { vmax } else { 1.0 };
     let plot_w = W - label_w - RIGHT - 60.0;
     for i in 0..n {
         let y = TOP + 22.0 * i as f64;
-        let v = if values[i].is_finite() { values[i].max(0.0) } else { 0.0 };
+        let v = if values[i].is_finite() {
+            values[i].max(0.0)
+        } else {
+            0.0
+        };
         let bw = v / vmax * plot_w;
         let _ = write!(
             s,
@@ -240,7 +279,13 @@ pub struct Series {
 }
 
 /// Line chart; with `log_x`, x values are drawn on a log10 axis (non-positive x skipped).
-pub fn line_chart(series: &[Series], title: &str, x_label: &str, y_label: &str, log_x: bool) -> String {
+pub fn line_chart(
+    series: &[Series],
+    title: &str,
+    x_label: &str,
+    y_label: &str,
+    log_x: bool,
+) -> String {
     let tx = |x: f64| if log_x { x.log10() } else { x };
     let pts: Vec<(f64, f64)> = series
         .iter()
@@ -250,10 +295,18 @@ pub fn line_chart(series: &[Series], title: &str, x_label: &str, y_label: &str, 
         .collect();
     let mut s = open(title, H);
     if pts.is_empty() {
-        let _ = write!(s, "<text x=\"{LEFT}\" y=\"80\" fill=\"{INK}\">no finite points to draw</text></svg>");
+        let _ = write!(
+            s,
+            "<text x=\"{LEFT}\" y=\"80\" fill=\"{INK}\">no finite points to draw</text></svg>"
+        );
         return s;
     }
-    let (mut x0, mut x1, mut y0, mut y1) = (f64::INFINITY, f64::NEG_INFINITY, f64::INFINITY, f64::NEG_INFINITY);
+    let (mut x0, mut x1, mut y0, mut y1) = (
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+        f64::INFINITY,
+        f64::NEG_INFINITY,
+    );
     for (x, y) in &pts {
         x0 = x0.min(*x);
         x1 = x1.max(*x);
@@ -264,9 +317,25 @@ pub fn line_chart(series: &[Series], title: &str, x_label: &str, y_label: &str, 
         x0 -= 0.5;
         x1 += 0.5;
     }
-    let pad = if y1 - y0 < 1e-12 { 0.5 } else { 0.05 * (y1 - y0) };
-    let f = Frame { x0, x1, y0: y0 - pad, y1: y1 + pad, h: H };
-    f.axes(&mut s, x_label, y_label, &|t| if log_x { num(10f64.powf(t)) } else { num(t) });
+    let pad = if y1 - y0 < 1e-12 {
+        0.5
+    } else {
+        0.05 * (y1 - y0)
+    };
+    let f = Frame {
+        x0,
+        x1,
+        y0: y0 - pad,
+        y1: y1 + pad,
+        h: H,
+    };
+    f.axes(&mut s, x_label, y_label, &|t| {
+        if log_x {
+            num(10f64.powf(t))
+        } else {
+            num(t)
+        }
+    });
     for (k, ser) in series.iter().enumerate() {
         let colour = SERIES[k % SERIES.len()];
         let mut d = String::new();
@@ -275,8 +344,19 @@ pub fn line_chart(series: &[Series], title: &str, x_label: &str, y_label: &str, 
             if !(x.is_finite() && y.is_finite()) {
                 continue;
             }
-            let _ = write!(d, "{}{:.1},{:.1} ", if d.is_empty() { "M" } else { "L" }, f.px(x), f.py(y));
-            let _ = write!(s, "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"3\" fill=\"{colour}\"/>", f.px(x), f.py(y));
+            let _ = write!(
+                d,
+                "{}{:.1},{:.1} ",
+                if d.is_empty() { "M" } else { "L" },
+                f.px(x),
+                f.py(y)
+            );
+            let _ = write!(
+                s,
+                "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"3\" fill=\"{colour}\"/>",
+                f.px(x),
+                f.py(y)
+            );
         }
         let _ = write!(
             s,

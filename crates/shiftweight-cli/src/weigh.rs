@@ -60,7 +60,11 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
         read_table(&args.source, &opts, &args.input.choice())?
     };
     // The target is read with exactly the source's feature columns, by name.
-    let target_choice = ColumnChoice { columns: Some(source.names.clone()), exclude: Vec::new(), key: None };
+    let target_choice = ColumnChoice {
+        columns: Some(source.names.clone()),
+        exclude: Vec::new(),
+        key: None,
+    };
     let target = {
         let _s = progress.step("reading target rows");
         read_table(&args.target, &opts, &target_choice)?
@@ -74,12 +78,23 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
 
     let mut report = Report::new("weigh", g.seed);
     report.inputs = vec![
-        InputFacts { role: "source".into(), path: args.source.display().to_string(), rows: source.rows, rows_dropped: source.rows_dropped },
-        InputFacts { role: "target".into(), path: args.target.display().to_string(), rows: target.rows, rows_dropped: target.rows_dropped },
+        InputFacts {
+            role: "source".into(),
+            path: args.source.display().to_string(),
+            rows: source.rows,
+            rows_dropped: source.rows_dropped,
+        },
+        InputFacts {
+            role: "target".into(),
+            path: args.target.display().to_string(),
+            rows: target.rows,
+            rows_dropped: target.rows_dropped,
+        },
     ];
     report.features_used = source.names.clone();
     report.shift = Part::missing("`weigh` does not test for a shift; run `shiftweight detect`");
-    report.features = Part::missing("`weigh` does not measure per-feature shift; run `shiftweight detect`");
+    report.features =
+        Part::missing("`weigh` does not measure per-feature shift; run `shiftweight detect`");
     report.estimator = Part::Available(estimator_part(&model, args.estimator.estimator.label()));
     let ess = outcome.part.effective_sample_size;
     report.weights = Part::Available(outcome.part);
@@ -105,7 +120,10 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
             args.out.display(),
             ess,
             if source.rows_dropped + target.rows_dropped > 0 {
-                format!("; dropped {} source and {} target rows with missing values", source.rows_dropped, target.rows_dropped)
+                format!(
+                    "; dropped {} source and {} target rows with missing values",
+                    source.rows_dropped, target.rows_dropped
+                )
             } else {
                 String::new()
             }
@@ -118,7 +136,9 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
 pub fn estimator_part(model: &shiftweight::FittedRatio, label: &str) -> EstimatorPart {
     let alpha = model.selection.chosen.get("alpha").copied().unwrap_or(0.0);
     let method = match model.kind {
-        shiftweight::EstimatorKind::LeastSquares if alpha > 0.0 => format!("RuLSIF (alpha = {alpha})"),
+        shiftweight::EstimatorKind::LeastSquares if alpha > 0.0 => {
+            format!("RuLSIF (alpha = {alpha})")
+        }
         shiftweight::EstimatorKind::LeastSquares => "uLSIF".to_string(),
         other => format!("{} ({label})", other.name()),
     };
