@@ -1,15 +1,32 @@
-//! `shiftweight demo`: the whole job on the invented electricity scenario.
+//! `shiftweight demo`: the whole job on the invented electricity scenario, with the report files.
 
-use crate::Failure;
+use crate::estimators::{build_estimator, EstimatorArgs, EstimatorName};
+use crate::io::{self, Table, WeightsWriter};
+use crate::progress::Progress;
+use crate::report::{FactTable, InputFacts, Part, Report};
+use crate::steps::{finish_weights, run_detection, DetectArgs, StabiliseArgs, TestMethod};
+use crate::weigh::estimator_part;
+use crate::{exit, Failure, Globals};
 use clap::Args;
 use shiftweight::learn::WeightedRidge;
-use shiftweight::{LeastSquaresRatio, RatioEstimator};
+use std::path::PathBuf;
+
+/// The estimator the demo uses.
+///
+/// MERGE: switch to `EstimatorName::Auto` once the automatic choice is in this build.
+const DEMO_ESTIMATOR: EstimatorName = EstimatorName::Lsif;
 
 #[derive(Args)]
+#[command(after_help = "Examples:
+  shiftweight demo
+  shiftweight demo --out /tmp/shiftweight-demo --seed 3
+
+Writes report.html, report.json, weights.csv and model.json into the output folder.
+Every number of the scenario is invented.")]
 pub struct DemoArgs {
-    /// Seed of the generated data and of every random choice.
-    #[arg(long, default_value_t = 0)]
-    seed: u64,
+    /// Folder for the report files (created if needed).
+    #[arg(long, default_value = "shiftweight-demo", value_name = "DIR")]
+    out: PathBuf,
     /// Source (coastal town) rows to generate.
     #[arg(long, default_value_t = 3000)]
     n_source: usize,
@@ -22,13 +39,95 @@ fn mean(v: &[f64]) -> f64 {
     v.iter().sum::<f64>() / v.len() as f64
 }
 
-pub fn run(args: DemoArgs, quiet: bool) -> Result<(), Failure> {
-    let data = shiftweight::demo::electricity(args.n_source, args.n_target, args.seed);
+fn table(m: &shiftweight::Matrix, names: &[String]) -> Table {
+    Table {
+        names: names.to_vec(),
+        values: m.as_slice().to_vec(),
+        keys: None,
+        rows: m.rows(),
+        rows_dropped: 0,
+    }
+}
+
+pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
+    std::fs::create_dir_all(&args.out).map_err(|e| Failure {
+        code: exit::IO,
+        message: format!("cannot create the folder `{}`: {e}", args.out.display()),
+    })?;
+    let progress = Progress::new(g.quiet);
+    let data = shiftweight::demo::electricity(args.n_source, args.n_target, g.seed);
     let (s, t) = (data.source.view(), data.target.view());
-    let model = LeastSquaresRatio::new().seed(args.seed).fit(s, t)?;
-    let w = &model.source_weights;
-    let wmean = mean(w);
-    let ess = w.iter().sum::<f64>().powi(2) / w.iter().map(|v| v * v).sum::<f64>();
+    let mut report = Report::new("demo", g.seed);
+    report.inputs = vec![
+        InputFacts {
+            role: "source".into(),
+            path: "generated: coastal town".into(),
+            rows: s.rows(),
+            rows_dropped: 0,
+        },
+        InputFacts {
+            role: "target".into(),
+            path: "generated: inland town".into(),
+            rows: t.rows(),
+            rows_dropped: 0,
+        },
+    ];
+    report.features_used = data.feature_names.clone();
+
+    let detect_opts = DetectArgs {
+        method: TestMethod::Classifier,
+        permutations: 100,
+        level: 0.05,
+    };
+    let detection = {
+        let _s = progress.step("testing for a shift");
+        run_detection(
+            &table(&data.source, &data.feature_names),
+            &table(&data.target, &data.feature_names),
+            &detect_opts,
+            g.seed,
+        )
+    };
+    let shift_line = match detection {
+        Ok(d) => {
+            let line = format!(
+                "  shift test ({}): p = {:.4}, {}",
+                d.shift.method,
+                d.shift.p_value,
+                if d.shift.significant {
+                    "significant"
+                } else {
+                    "not significant"
+                }
+            );
+            report.shift = Part::Available(d.shift);
+            report.features = d.features;
+            line
+        }
+        Err(f) => {
+            report.shift = Part::missing(f.message.clone());
+            report.features = Part::missing(f.message.clone());
+            format!("  shift test: {}", f.message)
+        }
+    };
+
+    let est_args = EstimatorArgs {
+        estimator: DEMO_ESTIMATOR,
+        sigma: None,
+        lambda: None,
+        n_basis: 200,
+        alpha: None,
+    };
+    let estimator = build_estimator(&est_args, g.seed)?;
+    let mut model = {
+        let _s = progress.step("fitting the density-ratio model");
+        estimator.fit(s, t)?
+    };
+    model.meta.feature_names = Some(data.feature_names.clone());
+    let outcome = finish_weights(&model, &StabiliseArgs::default())?;
+    let w = &outcome.weights;
+    let ess = outcome.part.effective_sample_size;
+    let est = estimator_part(&model, DEMO_ESTIMATOR.label());
     let plain = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, None)?;
     let weighted = WeightedRidge::new()
         .l2(1e-6)
@@ -43,7 +142,36 @@ pub fn run(args: DemoArgs, quiet: bool) -> Result<(), Failure> {
         ))
     };
     let (e_plain, e_weighted) = (mse(&plain)?, mse(&weighted)?);
-    if !quiet {
+    report.extra.push(FactTable {
+        caption: "Linear model of daily kWh, error on the target town (target labels are known only in this demo)".into(),
+        rows: vec![
+            ("unweighted fit: mean squared error".into(), format!("{e_plain:.3}")),
+            ("weighted fit: mean squared error".into(), format!("{e_weighted:.3}")),
+        ],
+    });
+    let chosen: Vec<String> = est
+        .chosen
+        .iter()
+        .map(|(k, v)| format!("{k} = {}", crate::svg::num(*v)))
+        .collect();
+    let n_candidates = est.candidates.len();
+    let method = est.method.clone();
+    report.estimator = Part::Available(est);
+    report.weights = Part::Available(outcome.part);
+    report.clipping = outcome.clipping;
+
+    let html = args.out.join("report.html");
+    let json = args.out.join("report.json");
+    let weights_path = args.out.join("weights.csv");
+    let model_path = args.out.join("model.json");
+    io::write_text(&html, &report.to_html())?;
+    io::write_text(&json, &report.to_json())?;
+    io::write_text(&model_path, &model.to_json()?)?;
+    let mut ww = WeightsWriter::create(&weights_path, None)?;
+    ww.write(w, None)?;
+    ww.commit()?;
+
+    if !g.quiet {
         println!("shiftweight demo: household electricity use, coastal town (source) -> inland town (target)");
         println!(
             "  rows: {} source, {} target, features: {}",
@@ -51,16 +179,15 @@ pub fn run(args: DemoArgs, quiet: bool) -> Result<(), Failure> {
             t.rows(),
             data.feature_names.join(", ")
         );
-        let c = &model.selection.chosen;
+        println!("{shift_line}");
         println!(
-            "  estimator: uLSIF, sigma = {:.3}, lambda = {} (chosen by leave-one-out CV over {} candidates)",
-            c["sigma"],
-            c["lam"],
-            model.selection.table.len()
+            "  estimator: {method}, {} (chosen by {} over {n_candidates} candidates)",
+            chosen.join(", "),
+            model.selection.criterion
         );
         println!(
             "  source weights: mean {:.3}, max {:.2}, effective sample size {:.0} of {} ({:.0}%)",
-            wmean,
+            mean(w),
             w.iter().cloned().fold(0.0, f64::max),
             ess,
             w.len(),
@@ -71,6 +198,13 @@ pub fn run(args: DemoArgs, quiet: bool) -> Result<(), Failure> {
         println!("    weighted fit:   mean squared error {e_weighted:.2}");
         println!("  Caution: weighting corrects covariate shift only; it needs overlap between the towns,");
         println!("  and must be validated on labelled target data before decisions rely on it.");
+        println!("  report: {}", html.display());
+        println!(
+            "  also written: {}, {}, {}",
+            json.display(),
+            weights_path.display(),
+            model_path.display()
+        );
     }
-    Ok(())
+    Ok(0)
 }

@@ -1,0 +1,106 @@
+//! `shiftweight detect`: is there a shift between source and target inputs, and where?
+
+use crate::args::InputArgs;
+use crate::io::{self, read_table, ColumnChoice};
+use crate::progress::Progress;
+use crate::report::{InputFacts, Part, Report};
+use crate::steps::{detect_exit_code, run_detection, DetectArgs};
+use crate::{Failure, Globals};
+use clap::Args;
+use std::path::PathBuf;
+
+/// Arguments of `detect`.
+#[derive(Debug, Clone, Args)]
+#[command(after_help = "Examples:
+  shiftweight detect --source train.csv --target recent.csv --exclude label
+  shiftweight detect --source train.parquet --target live.parquet --method mmd --fail-on-shift --json shift.json
+
+Exit status: 0 when the test ran (shift or not), 10 with --fail-on-shift when the shift is
+significant, 2 bad input, 3 file failure, 4 internal error.")]
+pub struct DetectCmdArgs {
+    /// Source rows: CSV with a header, or Parquet.
+    #[arg(long, value_name = "FILE")]
+    pub source: PathBuf,
+    /// Target rows, same columns.
+    #[arg(long, value_name = "FILE")]
+    pub target: PathBuf,
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub test: DetectArgs,
+    /// Exit with status 10 when the shift is significant, so a pipeline can stop.
+    #[arg(long)]
+    pub fail_on_shift: bool,
+    /// Also write the HTML report.
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
+    /// Also write the JSON report.
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
+}
+
+/// Runs `detect`.
+pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
+    let progress = Progress::new(g.quiet);
+    let opts = args.input.file_options();
+    let source = {
+        let _s = progress.step("reading source rows");
+        read_table(&args.source, &opts, &args.input.choice())?
+    };
+    let target_choice = ColumnChoice {
+        columns: Some(source.names.clone()),
+        exclude: Vec::new(),
+        key: None,
+    };
+    let target = {
+        let _s = progress.step("reading target rows");
+        read_table(&args.target, &opts, &target_choice)?
+    };
+    let outcome = {
+        let _s = progress.step("testing for a shift");
+        run_detection(&source, &target, &args.test, g.seed)?
+    };
+    let significant = outcome.shift.significant;
+    let mut report = Report::new("detect", g.seed);
+    report.inputs = vec![
+        InputFacts {
+            role: "source".into(),
+            path: args.source.display().to_string(),
+            rows: source.rows,
+            rows_dropped: source.rows_dropped,
+        },
+        InputFacts {
+            role: "target".into(),
+            path: args.target.display().to_string(),
+            rows: target.rows,
+            rows_dropped: target.rows_dropped,
+        },
+    ];
+    report.features_used = source.names.clone();
+    if !g.quiet {
+        println!(
+            "{}: {} test, statistic {:.4}, p = {:.4} (level {})",
+            if significant {
+                "shift detected"
+            } else {
+                "no significant shift"
+            },
+            outcome.shift.method,
+            outcome.shift.statistic,
+            outcome.shift.p_value,
+            outcome.shift.level
+        );
+    }
+    report.shift = Part::Available(outcome.shift);
+    report.features = outcome.features;
+    report.estimator = Part::missing("`detect` fits no weights; run `shiftweight weigh`");
+    report.weights = Part::missing("`detect` fits no weights; run `shiftweight weigh`");
+    report.clipping = Part::missing("`detect` fits no weights; run `shiftweight weigh`");
+    if let Some(p) = &args.json {
+        io::write_text(p, &report.to_json())?;
+    }
+    if let Some(p) = &args.report {
+        io::write_text(p, &report.to_html())?;
+    }
+    Ok(detect_exit_code(significant, args.fail_on_shift))
+}

@@ -1,0 +1,152 @@
+//! `shiftweight weigh`: fit a density-ratio model on source and target files, write one weight per
+//! source row, and optionally the model file and the reports.
+
+use crate::args::InputArgs;
+use crate::estimators::{build_estimator, EstimatorArgs};
+use crate::io::{self, read_table, ColumnChoice, WeightsWriter};
+use crate::progress::Progress;
+use crate::report::{EstimatorPart, InputFacts, Part, Report};
+use crate::steps::{finish_weights, StabiliseArgs};
+use crate::{Failure, Globals};
+use clap::Args;
+use std::path::PathBuf;
+
+/// Arguments of `weigh`.
+#[derive(Debug, Clone, Args)]
+#[command(after_help = "Examples:
+  shiftweight weigh --source train.csv --target recent.csv --exclude label --key id --estimator lsif --out weights.csv
+  shiftweight weigh --source train.parquet --target live.parquet --columns age,income --estimator rulsif --alpha 0.1 \\
+      --out weights.csv --model ratio.json --report weights.html --json weights.json
+
+The weights file has a header (`weight`, or `KEY,weight` with --key) and one line per source row, in
+source order (rows skipped by --drop-missing are left out: use --key to join).
+Cautions: weighting corrects covariate shift only; it needs overlap between source and target;
+validate on labelled target data; the rules of your domain come first.")]
+pub struct WeighArgs {
+    /// Source rows (the labelled training data): CSV with a header, or Parquet.
+    #[arg(long, value_name = "FILE")]
+    pub source: PathBuf,
+    /// Target rows (an unlabelled sample of the inputs the model will see), same columns.
+    #[arg(long, value_name = "FILE")]
+    pub target: PathBuf,
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub estimator: EstimatorArgs,
+    #[command(flatten)]
+    pub stabilise: StabiliseArgs,
+    /// Where to write the weights (CSV), replaced atomically.
+    #[arg(long, value_name = "FILE")]
+    pub out: PathBuf,
+    /// Also write the fitted model (JSON), for `shiftweight apply` or the Python package.
+    #[arg(long, value_name = "FILE")]
+    pub model: Option<PathBuf>,
+    /// Also write the HTML report.
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
+    /// Also write the JSON report.
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
+}
+
+/// Runs `weigh`.
+pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
+    io::check_weights_path(&args.out)?;
+    let estimator = build_estimator(&args.estimator, g.seed)?;
+    let progress = Progress::new(g.quiet);
+    let opts = args.input.file_options();
+    let source = {
+        let _s = progress.step("reading source rows");
+        read_table(&args.source, &opts, &args.input.choice())?
+    };
+    // The target is read with exactly the source's feature columns, by name.
+    let target_choice = ColumnChoice {
+        columns: Some(source.names.clone()),
+        exclude: Vec::new(),
+        key: None,
+    };
+    let target = {
+        let _s = progress.step("reading target rows");
+        read_table(&args.target, &opts, &target_choice)?
+    };
+    let mut model = {
+        let _s = progress.step("fitting the density-ratio model");
+        estimator.fit(source.view("source")?, target.view("target")?)?
+    };
+    model.meta.feature_names = Some(source.names.clone());
+    let outcome = finish_weights(&model, &args.stabilise)?;
+
+    let mut report = Report::new("weigh", g.seed);
+    report.inputs = vec![
+        InputFacts {
+            role: "source".into(),
+            path: args.source.display().to_string(),
+            rows: source.rows,
+            rows_dropped: source.rows_dropped,
+        },
+        InputFacts {
+            role: "target".into(),
+            path: args.target.display().to_string(),
+            rows: target.rows,
+            rows_dropped: target.rows_dropped,
+        },
+    ];
+    report.features_used = source.names.clone();
+    report.shift = Part::missing("`weigh` does not test for a shift; run `shiftweight detect`");
+    report.features =
+        Part::missing("`weigh` does not measure per-feature shift; run `shiftweight detect`");
+    report.estimator = Part::Available(estimator_part(&model, args.estimator.estimator.label()));
+    let ess = outcome.part.effective_sample_size;
+    report.weights = Part::Available(outcome.part);
+    report.clipping = outcome.clipping;
+
+    // Everything is computed; now write, each file atomically.
+    let mut w = WeightsWriter::create(&args.out, args.input.key.as_deref())?;
+    w.write(&outcome.weights, source.keys.as_deref())?;
+    w.commit()?;
+    if let Some(p) = &args.model {
+        io::write_text(p, &model.to_json()?)?;
+    }
+    if let Some(p) = &args.json {
+        io::write_text(p, &report.to_json())?;
+    }
+    if let Some(p) = &args.report {
+        io::write_text(p, &report.to_html())?;
+    }
+    if !g.quiet {
+        let n = outcome.weights.len();
+        eprintln!(
+            "wrote {n} weights to {} (effective sample size {:.0} of {n}){}",
+            args.out.display(),
+            ess,
+            if source.rows_dropped + target.rows_dropped > 0 {
+                format!(
+                    "; dropped {} source and {} target rows with missing values",
+                    source.rows_dropped, target.rows_dropped
+                )
+            } else {
+                String::new()
+            }
+        );
+    }
+    Ok(0)
+}
+
+/// The report section describing a fitted model.
+pub fn estimator_part(model: &shiftweight::FittedRatio, label: &str) -> EstimatorPart {
+    let alpha = model.selection.chosen.get("alpha").copied().unwrap_or(0.0);
+    let method = match model.kind {
+        shiftweight::EstimatorKind::LeastSquares if alpha > 0.0 => {
+            format!("RuLSIF (alpha = {alpha})")
+        }
+        shiftweight::EstimatorKind::LeastSquares => "uLSIF".to_string(),
+        other => format!("{} ({label})", other.name()),
+    };
+    EstimatorPart {
+        method,
+        criterion: model.selection.criterion.clone(),
+        chosen: model.selection.chosen.clone(),
+        candidates: model.selection.table.clone(),
+        warnings: model.warnings.clone(),
+    }
+}

@@ -1,0 +1,837 @@
+//! End-to-end tests of the `shiftweight` binary on small files in a temporary folder.
+//!
+//! The reference for every weight is the library itself called directly on the same numbers
+//! (`LeastSquaresRatio::fit(...).source_weights`, `FittedRatio::ratio`): the command must be a
+//! faithful door into it. The HTML report is checked with an independent strict XML parser
+//! (roxmltree), which rejects any unbalanced or malformed markup.
+
+use shiftweight::{FittedRatio, LeastSquaresRatio, MatrixView, RatioEstimator};
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+const BIN: &str = env!("CARGO_BIN_EXE_shiftweight");
+
+fn run(args: &[&str], dir: &Path) -> Output {
+    Command::new(BIN)
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .expect("the binary runs")
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+/// Small invented data (the demo scenario): source with an id and a label, target without label.
+struct Data {
+    names: Vec<String>,
+    source: Vec<f64>,
+    target: Vec<f64>,
+    n_s: usize,
+    n_t: usize,
+    y: Vec<f64>,
+}
+
+fn data() -> Data {
+    let d = shiftweight::demo::electricity(160, 120, 7);
+    Data {
+        names: d.feature_names.clone(),
+        n_s: d.source.rows(),
+        n_t: d.target.rows(),
+        source: d.source.as_slice().to_vec(),
+        target: d.target.as_slice().to_vec(),
+        y: d.y_source,
+    }
+}
+
+/// Writes a CSV with `id` (when ids is Some), the features and, optionally, a `kwh` label.
+/// Values use Rust's shortest round-trip formatting, so they read back exactly.
+fn write_csv(path: &Path, names: &[String], x: &[f64], ids: Option<&[String]>, y: Option<&[f64]>) {
+    let d = names.len();
+    let n = x.len() / d;
+    let mut s = String::new();
+    let mut header: Vec<String> = Vec::new();
+    if ids.is_some() {
+        header.push("id".into());
+    }
+    header.extend(names.iter().cloned());
+    if y.is_some() {
+        header.push("kwh".into());
+    }
+    s.push_str(&header.join(","));
+    s.push('\n');
+    for i in 0..n {
+        let mut f: Vec<String> = Vec::new();
+        if let Some(ids) = ids {
+            f.push(ids[i].clone());
+        }
+        f.extend(x[i * d..(i + 1) * d].iter().map(|v| format!("{v}")));
+        if let Some(y) = y {
+            f.push(format!("{}", y[i]));
+        }
+        let _ = writeln!(s, "{}", f.join(","));
+    }
+    std::fs::write(path, s).unwrap();
+}
+
+fn ids(n: usize) -> Vec<String> {
+    (0..n).map(|i| format!("house-{i:04}")).collect()
+}
+
+/// Reads a weights file: (keys if present, weights).
+fn read_weights(path: &Path) -> (Option<Vec<String>>, Vec<f64>) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let mut lines = text.lines();
+    let header = lines.next().unwrap();
+    let keyed = header.contains(',');
+    let mut keys = Vec::new();
+    let mut w = Vec::new();
+    for l in lines {
+        if keyed {
+            let (k, v) = l.rsplit_once(',').unwrap();
+            keys.push(k.to_string());
+            w.push(v.parse().unwrap());
+        } else {
+            w.push(l.parse().unwrap());
+        }
+    }
+    (keyed.then_some(keys), w)
+}
+
+fn library_weights(src: &[f64], n_s: usize, tgt: &[f64], n_t: usize, d: usize) -> FittedRatio {
+    LeastSquaresRatio::new()
+        .seed(0)
+        .fit(
+            MatrixView::new(src, n_s, d).unwrap(),
+            MatrixView::new(tgt, n_t, d).unwrap(),
+        )
+        .unwrap()
+}
+
+struct Files {
+    _tmp: tempfile::TempDir,
+    dir: PathBuf,
+}
+
+fn setup(d: &Data) -> Files {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path().to_path_buf();
+    write_csv(
+        &dir.join("source.csv"),
+        &d.names,
+        &d.source,
+        Some(&ids(d.n_s)),
+        Some(&d.y),
+    );
+    write_csv(&dir.join("target.csv"), &d.names, &d.target, None, None);
+    Files { _tmp: tmp, dir }
+}
+
+#[test]
+fn weigh_writes_the_library_weights_with_keys_and_a_loadable_model() {
+    let d = data();
+    let f = setup(&d);
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh",
+            "--key",
+            "id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w.csv",
+            "--model",
+            "m.json",
+            "--json",
+            "r.json",
+            "--report",
+            "r.html",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (keys, w) = read_weights(&f.dir.join("w.csv"));
+    assert_eq!(
+        keys.unwrap(),
+        ids(d.n_s),
+        "the key column is carried in source order"
+    );
+    let reference = library_weights(&d.source, d.n_s, &d.target, d.n_t, d.names.len());
+    assert_eq!(
+        w, reference.source_weights,
+        "weights equal LeastSquaresRatio's for the same input"
+    );
+
+    let model =
+        FittedRatio::from_json(&std::fs::read_to_string(f.dir.join("m.json")).unwrap()).unwrap();
+    assert_eq!(model.meta.feature_names.as_deref(), Some(&d.names[..]));
+    let x = MatrixView::new(&d.target, d.n_t, d.names.len()).unwrap();
+    assert_eq!(
+        model.ratio(x).unwrap(),
+        reference.ratio(x).unwrap(),
+        "the saved model gives the same ratios"
+    );
+
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(f.dir.join("r.json")).unwrap()).unwrap();
+    assert_eq!(json["format"], "shiftweight.report");
+    assert_eq!(json["weights"]["status"], "available");
+    assert_eq!(json["weights"]["data"]["n"], d.n_s);
+    assert_eq!(json["shift"]["status"], "not_available");
+    check_html(&f.dir.join("r.html"));
+}
+
+#[test]
+fn apply_streams_and_equals_fitted_ratio() {
+    let d = data();
+    let f = setup(&d);
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "rulsif",
+            "--out",
+            "w.csv",
+            "--model",
+            "m.json",
+            "--quiet",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(
+        o.stderr.is_empty() && o.stdout.is_empty(),
+        "--quiet prints nothing on success"
+    );
+    // 5000 new rows (three 2048-row chunks) in a different column order, with keys: columns are
+    // found by the names stored in the model.
+    let new = shiftweight::demo::electricity(2, 5000, 11).target;
+    let n_new = new.rows();
+    let mut names = d.names.clone();
+    names.reverse();
+    let x: Vec<f64> = (0..n_new)
+        .flat_map(|i| new.row(i).iter().rev().copied().collect::<Vec<_>>())
+        .collect();
+    let keys = ids(n_new);
+    write_csv(&f.dir.join("new.csv"), &names, &x, Some(&keys), None);
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "m.json",
+            "--input",
+            "new.csv",
+            "--key",
+            "id",
+            "--out",
+            "a.csv",
+            "--chunk-rows",
+            "7",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (k, w) = read_weights(&f.dir.join("a.csv"));
+    assert_eq!(k.unwrap(), keys);
+    let model =
+        FittedRatio::from_json(&std::fs::read_to_string(f.dir.join("m.json")).unwrap()).unwrap();
+    let expected = model.ratio(new.view()).unwrap();
+    assert_eq!(
+        w, expected,
+        "apply in chunks equals FittedRatio::ratio on the whole file"
+    );
+    assert!(
+        model.selection.chosen["alpha"] > 0.0,
+        "rulsif fitted with alpha > 0"
+    );
+}
+
+#[test]
+fn missing_and_non_numeric_values_name_file_row_and_column() {
+    let d = data();
+    let f = setup(&d);
+    let text = std::fs::read_to_string(f.dir.join("source.csv")).unwrap();
+    let mut lines: Vec<String> = text.lines().map(str::to_string).collect();
+    // Data row 5 (line 6): blank the floor area (column index 2 with the id first).
+    let mut cells: Vec<String> = lines[5].split(',').map(str::to_string).collect();
+    cells[2] = String::new();
+    lines[5] = cells.join(",");
+    std::fs::write(f.dir.join("holes.csv"), lines.join("\n") + "\n").unwrap();
+    let args = [
+        "weigh",
+        "--source",
+        "holes.csv",
+        "--target",
+        "target.csv",
+        "--exclude",
+        "kwh",
+        "--key",
+        "id",
+        "--estimator",
+        "lsif",
+        "--out",
+        "w.csv",
+    ];
+    let o = run(&args, &f.dir);
+    assert_eq!(o.status.code(), Some(2));
+    let e = stderr(&o);
+    assert!(
+        e.contains("holes.csv")
+            && e.contains("data row 5")
+            && e.contains("`floor_area_m2`")
+            && e.contains("missing"),
+        "{e}"
+    );
+    assert!(!e.contains("panicked"), "{e}");
+
+    cells[2] = "big".into();
+    lines[5] = cells.join(",");
+    std::fs::write(f.dir.join("words.csv"), lines.join("\n") + "\n").unwrap();
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "words.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("non-numeric value \"big\""),
+        "{}",
+        stderr(&o)
+    );
+
+    // --drop-missing: the row is skipped, counted, and the weights equal the library's on the rest.
+    let mut a: Vec<&str> = args.to_vec();
+    a.push("--drop-missing");
+    let o = run(&a, &f.dir);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stderr(&o).contains("dropped 1 source"), "{}", stderr(&o));
+    let (k, w) = read_weights(&f.dir.join("w.csv"));
+    let k = k.unwrap();
+    assert_eq!(k.len(), d.n_s - 1);
+    assert!(
+        !k.contains(&"house-0004".to_string()),
+        "data row 5 is house-0004"
+    );
+    let dd = d.names.len();
+    let kept: Vec<f64> = (0..d.n_s)
+        .filter(|&i| i != 4)
+        .flat_map(|i| d.source[i * dd..(i + 1) * dd].to_vec())
+        .collect();
+    let reference = library_weights(&kept, d.n_s - 1, &d.target, d.n_t, dd);
+    assert_eq!(w, reference.source_weights);
+}
+
+#[test]
+fn a_failed_run_leaves_the_earlier_output_unchanged() {
+    let d = data();
+    let f = setup(&d);
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w.csv",
+            "--model",
+            "m.json",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "m.json",
+            "--input",
+            "target.csv",
+            "--out",
+            "a.csv",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let before = std::fs::read(f.dir.join("a.csv")).unwrap();
+    // A bad value at data row 4500 of a 5000-row file: the first two 2048-row chunks are already
+    // scored and written to the temporary file when the run fails.
+    let new = shiftweight::demo::electricity(2, 5000, 12).target;
+    write_csv(
+        &f.dir.join("late_error.csv"),
+        &d.names,
+        new.as_slice(),
+        None,
+        None,
+    );
+    let text = std::fs::read_to_string(f.dir.join("late_error.csv")).unwrap();
+    let mut lines: Vec<String> = text.lines().map(str::to_string).collect();
+    let mut cells: Vec<String> = lines[4500].split(',').map(str::to_string).collect();
+    cells[1] = "oops".into();
+    lines[4500] = cells.join(",");
+    std::fs::write(f.dir.join("late_error.csv"), lines.join("\n") + "\n").unwrap();
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "m.json",
+            "--input",
+            "late_error.csv",
+            "--out",
+            "a.csv",
+            "--chunk-rows",
+            "2048",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("data row 4500"), "{}", stderr(&o));
+    assert_eq!(
+        std::fs::read(f.dir.join("a.csv")).unwrap(),
+        before,
+        "earlier output untouched"
+    );
+    let leftovers: Vec<_> = std::fs::read_dir(&f.dir)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().ends_with(".partial"))
+        .collect();
+    assert!(leftovers.is_empty(), "no temporary file is left behind");
+}
+
+#[test]
+fn unavailable_pieces_and_bad_files_have_clear_errors_and_codes() {
+    let d = data();
+    let f = setup(&d);
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "kliep",
+            "--out",
+            "w.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("not available in this build"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!f.dir.join("w.csv").exists());
+
+    let o = run(
+        &[
+            "detect",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--fail-on-shift",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("not available in this build"),
+        "{}",
+        stderr(&o)
+    );
+
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "nowhere.csv",
+            "--target",
+            "target.csv",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(
+        o.status.code(),
+        Some(3),
+        "a missing file is an I/O failure: {}",
+        stderr(&o)
+    );
+    assert!(stderr(&o).contains("nowhere.csv"));
+
+    std::fs::write(
+        f.dir.join("bad.json"),
+        "{\"format\": \"something-else\", \"version\": 1}",
+    )
+    .unwrap();
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "bad.json",
+            "--input",
+            "target.csv",
+            "--out",
+            "a.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("model file rejected"), "{}", stderr(&o));
+
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--columns",
+            "no_such",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("`no_such`"), "{}", stderr(&o));
+
+    for cmd in ["demo", "detect", "weigh", "apply"] {
+        let o = run(&[cmd, "--help"], &f.dir);
+        assert!(o.status.success());
+        let out = String::from_utf8_lossy(&o.stdout);
+        assert!(out.contains("Examples:"), "{cmd} --help has examples");
+    }
+    let o = run(&["detect", "--help"], &f.dir);
+    assert!(String::from_utf8_lossy(&o.stdout).contains("--fail-on-shift"));
+}
+
+#[test]
+fn tab_delimited_input_and_thread_count_give_the_same_weights() {
+    let d = data();
+    let f = setup(&d);
+    for name in ["source", "target"] {
+        let t = std::fs::read_to_string(f.dir.join(format!("{name}.csv"))).unwrap();
+        std::fs::write(f.dir.join(format!("{name}.tsv")), t.replace(',', "\t")).unwrap();
+    }
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w1.csv",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = run(
+        &[
+            "--threads",
+            "1",
+            "weigh",
+            "--source",
+            "source.tsv",
+            "--target",
+            "target.tsv",
+            "--delimiter",
+            "tab",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w2.csv",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(
+        read_weights(&f.dir.join("w1.csv")).1,
+        read_weights(&f.dir.join("w2.csv")).1
+    );
+}
+
+fn write_parquet(
+    path: &Path,
+    names: &[String],
+    x: &[f64],
+    ids: &[String],
+    null_at: Option<(usize, usize)>,
+) {
+    use parquet::basic::Compression;
+    use parquet::data_type::{ByteArray, ByteArrayType, DoubleType};
+    use parquet::file::properties::WriterProperties;
+    use parquet::file::writer::SerializedFileWriter;
+    use parquet::schema::parser::parse_message_type;
+    use std::sync::Arc;
+    let d = names.len();
+    let n = ids.len();
+    let mut msg = String::from("message rows { required binary id (UTF8);");
+    for nm in names {
+        let _ = write!(msg, " optional double {nm};");
+    }
+    msg.push_str(" }");
+    let schema = Arc::new(parse_message_type(&msg).unwrap());
+    let props = Arc::new(
+        WriterProperties::builder()
+            .set_compression(Compression::SNAPPY)
+            .build(),
+    );
+    let file = std::fs::File::create(path).unwrap();
+    let mut w = SerializedFileWriter::new(file, schema, props).unwrap();
+    let mut rg = w.next_row_group().unwrap();
+    let mut col_idx = 0;
+    while let Some(mut col) = rg.next_column().unwrap() {
+        if col_idx == 0 {
+            let v: Vec<ByteArray> = ids.iter().map(|s| ByteArray::from(s.as_str())).collect();
+            col.typed::<ByteArrayType>()
+                .write_batch(&v, None, None)
+                .unwrap();
+        } else {
+            let j = col_idx - 1;
+            let mut vals = Vec::new();
+            let mut defs = Vec::new();
+            for i in 0..n {
+                if null_at == Some((i, j)) {
+                    defs.push(0);
+                } else {
+                    defs.push(1);
+                    vals.push(x[i * d + j]);
+                }
+            }
+            col.typed::<DoubleType>()
+                .write_batch(&vals, Some(&defs), None)
+                .unwrap();
+        }
+        col.close().unwrap();
+        col_idx += 1;
+    }
+    rg.close().unwrap();
+    w.close().unwrap();
+}
+
+#[test]
+fn parquet_input_gives_the_same_weights_as_csv() {
+    let d = data();
+    let f = setup(&d);
+    write_parquet(
+        &f.dir.join("source.parquet"),
+        &d.names,
+        &d.source,
+        &ids(d.n_s),
+        None,
+    );
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.parquet",
+            "--target",
+            "target.csv",
+            "--key",
+            "id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "wp.csv",
+            "--model",
+            "m.json",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (k, w) = read_weights(&f.dir.join("wp.csv"));
+    assert_eq!(k.unwrap(), ids(d.n_s));
+    let reference = library_weights(&d.source, d.n_s, &d.target, d.n_t, d.names.len());
+    assert_eq!(w, reference.source_weights);
+
+    // apply on Parquet, in small chunks, equals the model's ratios.
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "m.json",
+            "--input",
+            "source.parquet",
+            "--key",
+            "id",
+            "--out",
+            "ap.csv",
+            "--chunk-rows",
+            "13",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (_, wa) = read_weights(&f.dir.join("ap.csv"));
+    assert_eq!(
+        wa,
+        reference
+            .ratio(MatrixView::new(&d.source, d.n_s, d.names.len()).unwrap())
+            .unwrap()
+    );
+
+    // A null at data row 3, column 2 (occupants) is reported by file, row and column.
+    write_parquet(
+        &f.dir.join("nulls.parquet"),
+        &d.names,
+        &d.source,
+        &ids(d.n_s),
+        Some((2, 2)),
+    );
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "nulls.parquet",
+            "--target",
+            "target.csv",
+            "--key",
+            "id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "wp.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    let e = stderr(&o);
+    assert!(
+        e.contains("nulls.parquet") && e.contains("data row 3") && e.contains("`occupants`"),
+        "{e}"
+    );
+}
+
+#[test]
+fn demo_writes_a_self_contained_report() {
+    let tmp = tempfile::tempdir().unwrap();
+    let o = run(
+        &[
+            "demo",
+            "--out",
+            "demo-out",
+            "--n-source",
+            "400",
+            "--n-target",
+            "200",
+        ],
+        tmp.path(),
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(out.contains("report.html"), "{out}");
+    for f in ["report.html", "report.json", "weights.csv", "model.json"] {
+        assert!(tmp.path().join("demo-out").join(f).exists(), "{f}");
+    }
+    check_html(&tmp.path().join("demo-out/report.html"));
+}
+
+/// The report parses as strict XML (so every tag is balanced), has every section, and references
+/// nothing outside itself.
+fn check_html(path: &Path) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let doc = roxmltree::Document::parse_with_options(
+        &text,
+        roxmltree::ParsingOptions {
+            allow_dtd: true,
+            ..Default::default()
+        },
+    )
+    .unwrap_or_else(|e| panic!("report is not well-formed: {e}"));
+    let ids: Vec<&str> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("section"))
+        .filter_map(|n| n.attribute("id"))
+        .collect();
+    assert_eq!(
+        ids,
+        [
+            "summary",
+            "shift",
+            "estimator",
+            "weights",
+            "clipping",
+            "features",
+            "cautions"
+        ]
+    );
+    for n in doc.descendants().filter(|n| n.is_element()) {
+        let tag = n.tag_name().name();
+        assert!(
+            !["script", "link", "img", "iframe", "object", "embed"].contains(&tag),
+            "no <{tag}>"
+        );
+        for a in n.attributes() {
+            if ["src", "href", "xlink:href", "action"].contains(&a.name()) {
+                assert!(
+                    a.value().starts_with('#'),
+                    "only in-page links: {}={}",
+                    a.name(),
+                    a.value()
+                );
+            }
+        }
+    }
+    let lower = text.to_ascii_lowercase();
+    assert!(
+        !lower.contains("http://") && !lower.contains("https://") && !lower.contains("url("),
+        "no external reference"
+    );
+    assert!(
+        doc.descendants().any(|n| n.has_tag_name("svg")),
+        "has an inline chart"
+    );
+    assert!(
+        text.contains("covariate shift only"),
+        "carries the cautions"
+    );
+}
