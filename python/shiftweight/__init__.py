@@ -21,12 +21,14 @@ from ._native import (
     set_threads,
 )
 from ._validation import NotFittedError
-from ._ratio import LeastSquaresRatio, from_json
+from ._ratio import KernelMeanMatching, KLRatio, LeastSquaresRatio, from_json
 from ._learn import WeightedLogistic, WeightedRidge
 from ._demo import demo_data
 
 __all__ = [
     "LeastSquaresRatio",
+    "KLRatio",
+    "KernelMeanMatching",
     "WeightedLogistic",
     "WeightedRidge",
     "from_json",

@@ -5,7 +5,7 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use shiftweight::ratio::{FittedRatio, RatioEstimator};
-use shiftweight::LeastSquaresRatio;
+use shiftweight::{KLRatio, KernelMeanMatching, KliepCv, LeastSquaresRatio};
 use std::sync::Arc;
 
 /// A fitted density-ratio model (immutable; safe to share between threads).
@@ -152,8 +152,61 @@ fn fit_least_squares(
     detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
 }
 
+/// Fits KLIEP. See `shiftweight.KLRatio` for the parameters.
+#[pyfunction]
+#[pyo3(signature = (source, target, sigma, n_basis, folds, seed, cv, sigma_multiples, tol, max_iter, feature_names=None))]
+#[allow(clippy::too_many_arguments)]
+fn fit_kliep(
+    py: Python<'_>,
+    source: PyReadonlyArray2<'_, f64>,
+    target: PyReadonlyArray2<'_, f64>,
+    sigma: Option<f64>,
+    n_basis: usize,
+    folds: usize,
+    seed: u64,
+    cv: String,
+    sigma_multiples: Vec<f64>,
+    tol: f64,
+    max_iter: usize,
+    feature_names: Option<Vec<String>>,
+) -> PyResult<RatioModel> {
+    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
+    let est = KLRatio::new()
+        .sigma(sigma)
+        .n_basis(n_basis)
+        .folds(folds)
+        .seed(seed)
+        .cv(KliepCv::from_name(&cv).map_err(to_py)?)
+        .sigma_multiples(sigma_multiples)
+        .tol(tol)
+        .max_iter(max_iter);
+    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
+}
+
+/// Fits KMM. See `shiftweight.KernelMeanMatching` for the parameters.
+#[pyfunction]
+#[pyo3(signature = (source, target, sigma, bound, eps, block_rows, seed, feature_names=None))]
+#[allow(clippy::too_many_arguments)]
+fn fit_kmm(
+    py: Python<'_>,
+    source: PyReadonlyArray2<'_, f64>,
+    target: PyReadonlyArray2<'_, f64>,
+    sigma: Option<f64>,
+    bound: f64,
+    eps: Option<f64>,
+    block_rows: usize,
+    seed: u64,
+    feature_names: Option<Vec<String>>,
+) -> PyResult<RatioModel> {
+    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
+    let est = KernelMeanMatching::new().sigma(sigma).bound(bound).eps(eps).block_rows(block_rows).seed(seed);
+    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
+}
+
 pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<RatioModel>()?;
     m.add_function(wrap_pyfunction!(fit_least_squares, m)?)?;
+    m.add_function(wrap_pyfunction!(fit_kliep, m)?)?;
+    m.add_function(wrap_pyfunction!(fit_kmm, m)?)?;
     Ok(())
 }

@@ -6,6 +6,8 @@
 //! `FittedRatio` scores any number of rows in fixed-size chunks in parallel, records what was chosen
 //! and the scores that chose it, and serialises to the versioned model file of [`crate::model`].
 
+pub mod kliep;
+pub mod kmm;
 pub mod lsif;
 
 use crate::data::{Matrix, MatrixView, Standardizer};
@@ -15,6 +17,8 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
+pub use kliep::{KLRatio, KliepCv};
+pub use kmm::KernelMeanMatching;
 pub use lsif::LeastSquaresRatio;
 
 /// Fits a density-ratio model from a source sample and a target sample.
@@ -163,8 +167,9 @@ impl FittedRatio {
                 Ok(())
             }
             RatioForm::SourceOnly => Err(Error::Unsupported(format!(
-                "{} weights exist only for the {} source rows it was fitted on (it is transductive); \
-                 use `source_weights`, or choose an estimator that scores new rows",
+                "{} weights exist only for the {} source rows it was fitted on (it is transductive): \
+                 use the fitted source weights (`source_weights_` in Python, `source_weights` in Rust), \
+                 or an estimator that scores new rows (KLIEP, uLSIF)",
                 self.kind.name(),
                 self.meta.n_source
             ))),
