@@ -20,12 +20,15 @@ from ._native import (
     set_threads,
 )
 from ._validation import NotFittedError
-from ._ratio import LeastSquaresRatio, from_json
+from ._ratio import AutoRatio, ClassifierRatio, LeastSquaresRatio, from_json, ratio_from_probabilities
 from ._learn import WeightedLogistic, WeightedRidge
 from ._demo import demo_data
 
 __all__ = [
     "LeastSquaresRatio",
+    "ClassifierRatio",
+    "AutoRatio",
+    "ratio_from_probabilities",
     "WeightedLogistic",
     "WeightedRidge",
     "from_json",

@@ -43,7 +43,10 @@ pub mod ratio;
 
 pub use data::{Matrix, MatrixView, Standardizer};
 pub use error::{Error, Result};
-pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
+pub use ratio::{
+    ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, LeastSquaresRatio,
+    RatioEstimator,
+};
 
 /// Sets the number of threads of the global pool used by the crate (call once, before any work).
 /// Returns an error if the pool was already built.
