@@ -30,8 +30,10 @@
 //! parallel; memory is one copy of the rows for the current fold.
 
 use super::classifier::{ClassifierRatio, Features};
-use super::{fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator,
-            RatioForm, ScoreRow, Selection};
+use super::{
+    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, LeastSquaresRatio,
+    RatioEstimator, RatioForm, ScoreRow, Selection,
+};
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
 use crate::error::{Error, Result};
 use rayon::prelude::*;
@@ -49,7 +51,10 @@ impl RatioEstimator for UniformRatio {
             standardizer: st,
             form: RatioForm::Uniform,
             source_weights: vec![1.0; source.rows()],
-            selection: Selection { criterion: "none (uniform weights)".into(), ..Default::default() },
+            selection: Selection {
+                criterion: "none (uniform weights)".into(),
+                ..Default::default()
+            },
             meta: fit_meta(&source, &target, 0),
             warnings,
         })
@@ -66,7 +71,9 @@ pub struct Candidate {
 
 impl std::fmt::Debug for Candidate {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.debug_struct("Candidate").field("name", &self.name).finish_non_exhaustive()
+        f.debug_struct("Candidate")
+            .field("name", &self.name)
+            .finish_non_exhaustive()
     }
 }
 
@@ -80,14 +87,34 @@ pub const UNIFORM_NAME: &str = "uniform";
 /// blow up in the tails); the Fourier classifier keeps l2 = 1 to bound the cost.
 pub fn default_candidates(seed: u64) -> Vec<Candidate> {
     fn c(name: &str, e: impl RatioEstimator + Send + Sync + 'static) -> Candidate {
-        Candidate { name: name.into(), estimator: Box::new(e) }
+        Candidate {
+            name: name.into(),
+            estimator: Box::new(e),
+        }
     }
     vec![
         c("ulsif", LeastSquaresRatio::new().seed(seed)),
-        c("rulsif_alpha_0.1", LeastSquaresRatio::new().alpha(0.1).seed(seed)),
-        c("classifier_linear", ClassifierRatio::new().l2(None).seed(seed)),
-        c("classifier_quadratic", ClassifierRatio::new().features(Features::Quadratic).l2(None).seed(seed)),
-        c("classifier_fourier", ClassifierRatio::new().features(Features::Fourier).seed(seed)),
+        c(
+            "rulsif_alpha_0.1",
+            LeastSquaresRatio::new().alpha(0.1).seed(seed),
+        ),
+        c(
+            "classifier_linear",
+            ClassifierRatio::new().l2(None).seed(seed),
+        ),
+        c(
+            "classifier_quadratic",
+            ClassifierRatio::new()
+                .features(Features::Quadratic)
+                .l2(None)
+                .seed(seed),
+        ),
+        c(
+            "classifier_fourier",
+            ClassifierRatio::new()
+                .features(Features::Fourier)
+                .seed(seed),
+        ),
     ]
 }
 
@@ -108,7 +135,13 @@ pub struct AutoRatio {
 
 impl Default for AutoRatio {
     fn default() -> Self {
-        Self { use_defaults: true, candidates: Vec::new(), folds: 5, seed: 0, se_margin: 1.0 }
+        Self {
+            use_defaults: true,
+            candidates: Vec::new(),
+            folds: 5,
+            seed: 0,
+            se_margin: 1.0,
+        }
     }
 }
 
@@ -145,13 +178,27 @@ impl AutoRatio {
         self
     }
     /// Adds a named candidate.
-    pub fn candidate(mut self, name: &str, estimator: impl RatioEstimator + Send + Sync + 'static) -> Self {
-        self.candidates.push(Candidate { name: name.into(), estimator: Box::new(estimator) });
+    pub fn candidate(
+        mut self,
+        name: &str,
+        estimator: impl RatioEstimator + Send + Sync + 'static,
+    ) -> Self {
+        self.candidates.push(Candidate {
+            name: name.into(),
+            estimator: Box::new(estimator),
+        });
         self
     }
     /// Adds a named, already boxed candidate.
-    pub fn boxed_candidate(mut self, name: &str, estimator: Box<dyn RatioEstimator + Send + Sync>) -> Self {
-        self.candidates.push(Candidate { name: name.into(), estimator });
+    pub fn boxed_candidate(
+        mut self,
+        name: &str,
+        estimator: Box<dyn RatioEstimator + Send + Sync>,
+    ) -> Self {
+        self.candidates.push(Candidate {
+            name: name.into(),
+            estimator,
+        });
         self
     }
     /// Held-out folds (>= 2).
@@ -173,14 +220,23 @@ impl AutoRatio {
     /// Rejects out-of-range settings with an error naming the parameter.
     pub fn check(&self) -> Result<()> {
         if self.folds < 2 {
-            return Err(Error::param("folds", format!("must be at least 2, got {}", self.folds)));
+            return Err(Error::param(
+                "folds",
+                format!("must be at least 2, got {}", self.folds),
+            ));
         }
         if !(self.se_margin.is_finite() && self.se_margin >= 0.0) {
-            return Err(Error::param("se_margin", format!("must be finite and >= 0, got {}", self.se_margin)));
+            return Err(Error::param(
+                "se_margin",
+                format!("must be finite and >= 0, got {}", self.se_margin),
+            ));
         }
         let mut seen = vec![UNIFORM_NAME.to_string()];
         for c in &self.candidates {
-            if c.name.is_empty() || seen.contains(&c.name) || (self.use_defaults && is_default_name(&c.name)) {
+            if c.name.is_empty()
+                || seen.contains(&c.name)
+                || (self.use_defaults && is_default_name(&c.name))
+            {
                 return Err(Error::param(
                     "candidates",
                     format!("candidate name {:?} is empty or used twice (\"{UNIFORM_NAME}\" is always present)", c.name),
@@ -193,26 +249,39 @@ impl AutoRatio {
 
     /// Scores uniform weights and every candidate on held-out folds (see the module docs).
     /// Returns the scores, uniform first, and the index of the chosen one.
-    pub fn evaluate(&self, source: MatrixView, target: MatrixView) -> Result<(Vec<CandidateScore>, usize)> {
+    pub fn evaluate(
+        &self,
+        source: MatrixView,
+        target: MatrixView,
+    ) -> Result<(Vec<CandidateScore>, usize)> {
         self.check()?;
         validate_pair(&source, &target, self.folds)?;
-        let defaults = if self.use_defaults { default_candidates(self.seed) } else { Vec::new() };
+        let defaults = if self.use_defaults {
+            default_candidates(self.seed)
+        } else {
+            Vec::new()
+        };
         let all: Vec<&Candidate> = defaults.iter().chain(&self.candidates).collect();
         let k = self.folds;
         let fold_s = kfold_assignment(source.rows(), k, self.seed ^ 0x6175_746f_73)?;
         let fold_t = kfold_assignment(target.rows(), k, self.seed ^ 0x6175_746f_74)?;
         let split = |x: MatrixView, fold: &[usize], j: usize| -> (Matrix, Matrix) {
-            let (inside, held): (Vec<usize>, Vec<usize>) = (0..x.rows()).partition(|i| fold[*i] != j);
+            let (inside, held): (Vec<usize>, Vec<usize>) =
+                (0..x.rows()).partition(|i| fold[*i] != j);
             (x.select_rows(&inside), x.select_rows(&held))
         };
-        let mut per: Vec<Vec<std::result::Result<f64, String>>> = vec![Vec::with_capacity(k); all.len()];
+        let mut per: Vec<Vec<std::result::Result<f64, String>>> =
+            vec![Vec::with_capacity(k); all.len()];
         for j in 0..k {
             let (tr_s, te_s) = split(source, &fold_s, j);
             let (tr_t, te_t) = split(target, &fold_t, j);
             let scores: Vec<std::result::Result<f64, String>> = all
                 .par_iter()
                 .map(|c| {
-                    let m = c.estimator.fit(tr_s.view(), tr_t.view()).map_err(|e| e.to_string())?;
+                    let m = c
+                        .estimator
+                        .fit(tr_s.view(), tr_t.view())
+                        .map_err(|e| e.to_string())?;
                     let ws = m.ratio(te_s.view()).map_err(|e| e.to_string())?;
                     let wt = m.ratio(te_t.view()).map_err(|e| e.to_string())?;
                     let score = least_squares_criterion(&ws, &wt);
@@ -244,7 +313,13 @@ impl AutoRatio {
                 let var = per_fold.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (k - 1) as f64;
                 (mean, (var / k as f64).sqrt())
             };
-            out.push(CandidateScore { name: c.name.clone(), mean, std_error, per_fold, error });
+            out.push(CandidateScore {
+                name: c.name.clone(),
+                mean,
+                std_error,
+                per_fold,
+                error,
+            });
         }
         let mut best = 0;
         for (i, s) in out.iter().enumerate().skip(1) {
@@ -270,7 +345,11 @@ impl RatioEstimator for AutoRatio {
         let mut fitted = if best == 0 {
             UniformRatio.fit(source, target)?
         } else {
-            let defaults = if self.use_defaults { default_candidates(self.seed) } else { Vec::new() };
+            let defaults = if self.use_defaults {
+                default_candidates(self.seed)
+            } else {
+                Vec::new()
+            };
             let c = defaults
                 .iter()
                 .chain(&self.candidates)
@@ -281,7 +360,10 @@ impl RatioEstimator for AutoRatio {
         let mut warnings = Vec::new();
         for s in &scores {
             if let Some(e) = &s.error {
-                warnings.push(format!("candidate {:?} could not be scored and was skipped: {e}", s.name));
+                warnings.push(format!(
+                    "candidate {:?} could not be scored and was skipped: {e}",
+                    s.name
+                ));
             }
         }
         if best == 0 {
@@ -297,9 +379,10 @@ impl RatioEstimator for AutoRatio {
         chosen.insert("folds".into(), self.folds as f64);
         chosen.insert("se_margin".into(), self.se_margin);
         fitted.selection = Selection {
-            criterion: "held-out least-squares criterion J(w) = 1/2 mean_source(w^2) - mean_target(w), \
+            criterion:
+                "held-out least-squares criterion J(w) = 1/2 mean_source(w^2) - mean_target(w), \
                         mean over folds (lower is better)"
-                .into(),
+                    .into(),
             chosen,
             table: scores
                 .iter()
@@ -338,14 +421,20 @@ mod tests {
     fn picks_a_weighting_estimator_under_shift_and_uniform_without() {
         let s = gaussian(300, 2, 0.0, 1);
         let t = gaussian(300, 2, 1.0, 2);
-        let (sv, tv) = (MatrixView::new(&s, 300, 2).unwrap(), MatrixView::new(&t, 300, 2).unwrap());
+        let (sv, tv) = (
+            MatrixView::new(&s, 300, 2).unwrap(),
+            MatrixView::new(&t, 300, 2).unwrap(),
+        );
         let auto = AutoRatio::new()
             .without_defaults()
             .candidate("classifier_linear", ClassifierRatio::new())
             .candidate("ulsif", LeastSquaresRatio::new().n_basis(50));
         let m = auto.fit(sv, tv).unwrap();
         assert_ne!(m.selection.candidate.as_deref(), Some(UNIFORM_NAME));
-        assert_eq!(m.selection.labels, vec!["uniform", "classifier_linear", "ulsif"]);
+        assert_eq!(
+            m.selection.labels,
+            vec!["uniform", "classifier_linear", "ulsif"]
+        );
         assert_eq!(m.selection.table[0].score, -0.5);
         assert!(m.selection.table[1].score < -0.5);
         let again = FittedRatio::from_json(&m.to_json().unwrap()).unwrap();
@@ -359,14 +448,19 @@ mod tests {
             .unwrap();
         assert_eq!(m0.selection.candidate.as_deref(), Some(UNIFORM_NAME));
         assert_eq!(m0.kind, EstimatorKind::Uniform);
-        assert!(m0.warnings.iter().any(|w| w.contains("no candidate estimator beat uniform")));
+        assert!(m0
+            .warnings
+            .iter()
+            .any(|w| w.contains("no candidate estimator beat uniform")));
     }
 
     #[test]
     fn duplicate_names_and_bad_settings_are_rejected() {
         let a = AutoRatio::new().candidate("ulsif", LeastSquaresRatio::new());
         assert!(a.check().is_err());
-        let b = AutoRatio::new().without_defaults().candidate("uniform", UniformRatio);
+        let b = AutoRatio::new()
+            .without_defaults()
+            .candidate("uniform", UniformRatio);
         assert!(b.check().is_err());
         assert!(AutoRatio::new().folds(1).check().is_err());
         assert!(AutoRatio::new().se_margin(-1.0).check().is_err());

@@ -41,8 +41,10 @@
 //! each Newton iteration is O(n p^2 + p^3); a fit is (folds + 1) x |grid| solves (typically
 //! 5-15 iterations each). Scoring m new rows is O(m p d) in fixed-size chunks.
 
-use super::{fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
-            ScoreRow, Selection};
+use super::{
+    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
+    ScoreRow, Selection,
+};
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
 use crate::error::{Error, Result};
 use crate::kernel::{self, CHUNK_ROWS};
@@ -190,7 +192,8 @@ impl FeatureMap {
             .collect();
         FeatureMap::Fourier {
             sigma,
-            frequencies: Matrix::new(freq, n_features, d).expect("shape is consistent by construction"),
+            frequencies: Matrix::new(freq, n_features, d)
+                .expect("shape is consistent by construction"),
             offsets,
         }
     }
@@ -204,7 +207,8 @@ impl FeatureMap {
         } = self
         {
             frequencies.check_shape("frequencies")?;
-            if frequencies.cols() != d || frequencies.rows() != offsets.len() || offsets.is_empty() {
+            if frequencies.cols() != d || frequencies.rows() != offsets.len() || offsets.is_empty()
+            {
                 return Err(Error::ModelFile(format!(
                     "Fourier map has a {} x {} frequency matrix and {} offsets for {d} features",
                     frequencies.rows(),
@@ -213,9 +217,15 @@ impl FeatureMap {
                 )));
             }
             if !(sigma.is_finite() && *sigma > 0.0)
-                || frequencies.as_slice().iter().chain(offsets).any(|v| !v.is_finite())
+                || frequencies
+                    .as_slice()
+                    .iter()
+                    .chain(offsets)
+                    .any(|v| !v.is_finite())
             {
-                return Err(Error::ModelFile("Fourier map holds a non-finite value or a width <= 0".into()));
+                return Err(Error::ModelFile(
+                    "Fourier map holds a non-finite value or a width <= 0".into(),
+                ));
             }
         }
         Ok(())
@@ -308,7 +318,10 @@ impl ClassifierRatio {
     pub fn check(&self) -> Result<()> {
         if let Some(l) = self.l2 {
             if !(l.is_finite() && l > 0.0) {
-                return Err(Error::param("l2", format!("must be finite and > 0, got {l}")));
+                return Err(Error::param(
+                    "l2",
+                    format!("must be finite and > 0, got {l}"),
+                ));
             }
         }
         if self.n_fourier == 0 {
@@ -318,10 +331,16 @@ impl ClassifierRatio {
             kernel::check_sigma("fourier_sigma", s)?;
         }
         if self.folds < 2 {
-            return Err(Error::param("folds", format!("must be at least 2, got {}", self.folds)));
+            return Err(Error::param(
+                "folds",
+                format!("must be at least 2, got {}", self.folds),
+            ));
         }
         if self.l2_grid.is_empty() || self.l2_grid.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
-            return Err(Error::param("l2_grid", "must be a non-empty list of finite values > 0"));
+            return Err(Error::param(
+                "l2_grid",
+                "must be a non-empty list of finite values > 0",
+            ));
         }
         Ok(())
     }
@@ -336,25 +355,43 @@ struct CrossFit {
 }
 
 /// Fits one penalty on every fold (folds in parallel) and collects the out-of-fold results.
-fn cross_fit(phi: MatrixView, y: &[f64], fold: &[usize], n_s: usize, k: usize, l2: f64) -> Result<CrossFit> {
+fn cross_fit(
+    phi: MatrixView,
+    y: &[f64],
+    fold: &[usize],
+    n_s: usize,
+    k: usize,
+    l2: f64,
+) -> Result<CrossFit> {
     let n = phi.rows();
     let per_fold: Vec<Result<(f64, Vec<(usize, f64)>)>> = (0..k)
         .into_par_iter()
         .map(|j| {
-            let w: Vec<f64> = fold.iter().map(|f| if *f == j { 0.0 } else { 1.0 }).collect();
-            let (n_s_in, n_t_in) = (0..n).filter(|i| fold[*i] != j).fold((0usize, 0usize), |(a, b), i| {
-                if i < n_s {
-                    (a + 1, b)
-                } else {
-                    (a, b + 1)
-                }
-            });
+            let w: Vec<f64> = fold
+                .iter()
+                .map(|f| if *f == j { 0.0 } else { 1.0 })
+                .collect();
+            let (n_s_in, n_t_in) =
+                (0..n)
+                    .filter(|i| fold[*i] != j)
+                    .fold((0usize, 0usize), |(a, b), i| {
+                        if i < n_s {
+                            (a + 1, b)
+                        } else {
+                            (a, b + 1)
+                        }
+                    });
             let log_prior = (n_s_in as f64 / n_t_in as f64).ln();
             let (coef, b, _) = fit_logistic(phi, y, &w, l2, MAX_ITER, TOL)?;
             let mut loss = 0.0;
             let mut out = Vec::new();
             for i in (0..n).filter(|i| fold[*i] == j) {
-                let eta = b + phi.row(i).iter().zip(&coef).map(|(a, c)| a * c).sum::<f64>();
+                let eta = b + phi
+                    .row(i)
+                    .iter()
+                    .zip(&coef)
+                    .map(|(a, c)| a * c)
+                    .sum::<f64>();
                 loss += log1pexp(eta) - y[i] * eta;
                 if i < n_s {
                     out.push((i, eta + log_prior));
@@ -372,7 +409,10 @@ fn cross_fit(phi: MatrixView, y: &[f64], fold: &[usize], n_s: usize, k: usize, l
             source_log_w[i] = v;
         }
     }
-    Ok(CrossFit { log_loss: total / n as f64, source_log_w })
+    Ok(CrossFit {
+        log_loss: total / n as f64,
+        source_log_w,
+    })
 }
 
 impl RatioEstimator for ClassifierRatio {
@@ -402,7 +442,9 @@ impl RatioEstimator for ClassifierRatio {
         let mut pooled = ps.into_vec();
         pooled.extend_from_slice(pt.as_slice());
         let phi = Matrix::new(pooled, n_s + n_t, p)?;
-        let y: Vec<f64> = (0..n_s + n_t).map(|i| if i < n_s { 0.0 } else { 1.0 }).collect();
+        let y: Vec<f64> = (0..n_s + n_t)
+            .map(|i| if i < n_s { 0.0 } else { 1.0 })
+            .collect();
         let k = self.folds;
         let mut fold = kfold_assignment(n_s, k, self.seed ^ 0x636c_6673)?;
         fold.extend(kfold_assignment(n_t, k, self.seed ^ 0x636c_6674)?);
@@ -417,13 +459,22 @@ impl RatioEstimator for ClassifierRatio {
         for &l2 in &grid {
             match cross_fit(phi.view(), &y, &fold, n_s, k, l2) {
                 Ok(cf) => {
-                    table.push(ScoreRow { params: params([("l2", l2)]), score: cf.log_loss });
-                    if best.as_ref().map_or(true, |(_, b)| cf.log_loss < b.log_loss) {
+                    table.push(ScoreRow {
+                        params: params([("l2", l2)]),
+                        score: cf.log_loss,
+                    });
+                    if best
+                        .as_ref()
+                        .map_or(true, |(_, b)| cf.log_loss < b.log_loss)
+                    {
                         best = Some((l2, cf));
                     }
                 }
                 Err(e @ Error::Numerical { .. }) if grid.len() > 1 => {
-                    table.push(ScoreRow { params: params([("l2", l2)]), score: f64::INFINITY });
+                    table.push(ScoreRow {
+                        params: params([("l2", l2)]),
+                        score: f64::INFINITY,
+                    });
                     failures.push(format!("l2 = {l2}: {e}"));
                 }
                 Err(e) => return Err(e),
@@ -431,14 +482,20 @@ impl RatioEstimator for ClassifierRatio {
         }
         let (l2, cf) = best.ok_or_else(|| Error::Numerical {
             context: "classifier ratio".into(),
-            reason: format!("no penalty of the grid could be fitted: {}", failures.join("; ")),
+            reason: format!(
+                "no penalty of the grid could be fitted: {}",
+                failures.join("; ")
+            ),
         })?;
         for f in failures {
-            warnings.push(format!("the logistic fit failed for {f}; that penalty was skipped"));
+            warnings.push(format!(
+                "the logistic fit failed for {f}; that penalty was skipped"
+            ));
         }
         // Chance level: the log-loss of the constant prediction n_t / n.
         let n = (n_s + n_t) as f64;
-        let chance = -(n_s as f64 / n * (n_s as f64 / n).ln() + n_t as f64 / n * (n_t as f64 / n).ln());
+        let chance =
+            -(n_s as f64 / n * (n_s as f64 / n).ln() + n_t as f64 / n * (n_t as f64 / n).ln());
         if cf.log_loss >= chance {
             warnings.push(format!(
                 "the classifier tells target from source rows no better than chance on held-out rows \
@@ -446,7 +503,11 @@ impl RatioEstimator for ClassifierRatio {
                 cf.log_loss, chance
             ));
         }
-        let capped = cf.source_log_w.iter().filter(|v| **v > LOG_WEIGHT_CAP).count();
+        let capped = cf
+            .source_log_w
+            .iter()
+            .filter(|v| **v > LOG_WEIGHT_CAP)
+            .count();
         if capped > 0 {
             warnings.push(format!(
                 "{capped} source row(s) had log-weights above {LOG_WEIGHT_CAP} and were capped: \
@@ -457,15 +518,29 @@ impl RatioEstimator for ClassifierRatio {
         let ones = vec![1.0; n_s + n_t];
         let (coef, intercept, _) = fit_logistic(phi.view(), &y, &ones, l2, MAX_ITER, TOL)?;
         let log_prior_ratio = (n_s as f64 / n_t as f64).ln();
-        let mut chosen = params([("l2", l2), ("folds", k as f64), ("n_mapped_features", p as f64)]);
+        let mut chosen = params([
+            ("l2", l2),
+            ("folds", k as f64),
+            ("n_mapped_features", p as f64),
+        ]);
         chosen.extend(extra.iter().map(|(a, b)| (a.to_string(), *b)));
         Ok(FittedRatio {
             kind: EstimatorKind::Classifier,
             standardizer: st,
-            form: RatioForm::LogLinear { map, coef, intercept, log_prior_ratio },
-            source_weights: cf.source_log_w.iter().map(|v| weight_from_logit(*v, 0.0)).collect(),
+            form: RatioForm::LogLinear {
+                map,
+                coef,
+                intercept,
+                log_prior_ratio,
+            },
+            source_weights: cf
+                .source_log_w
+                .iter()
+                .map(|v| weight_from_logit(*v, 0.0))
+                .collect(),
             selection: Selection {
-                criterion: "out-of-fold log-loss of the target-vs-source classifier (cross-fitting)".into(),
+                criterion:
+                    "out-of-fold log-loss of the target-vs-source classifier (cross-fitting)".into(),
                 chosen,
                 table,
                 ..Default::default()
@@ -499,7 +574,10 @@ pub fn ratio_from_probabilities(
     clip: f64,
 ) -> Result<ProbabilityWeights> {
     if !(clip > 0.0 && clip < 0.5) {
-        return Err(Error::param("clip", format!("must be in (0, 0.5), got {clip}")));
+        return Err(Error::param(
+            "clip",
+            format!("must be in (0, 0.5), got {clip}"),
+        ));
     }
     if n_source == 0 {
         return Err(Error::param("n_source", "must be at least 1"));
@@ -507,7 +585,10 @@ pub fn ratio_from_probabilities(
     if n_target == 0 {
         return Err(Error::param("n_target", "must be at least 1"));
     }
-    if let Some(i) = p_target.iter().position(|p| !(p.is_finite() && *p > 0.0 && *p < 1.0)) {
+    if let Some(i) = p_target
+        .iter()
+        .position(|p| !(p.is_finite() && *p > 0.0 && *p < 1.0))
+    {
         return Err(Error::param(
             "p_target",
             format!(
@@ -557,7 +638,10 @@ mod tests {
         let m = ClassifierRatio::new()
             .features(Features::Quadratic)
             .l2(Some(1e-3))
-            .fit(MatrixView::new(&s, 3000, 1).unwrap(), MatrixView::new(&t, 3000, 1).unwrap())
+            .fit(
+                MatrixView::new(&s, 3000, 1).unwrap(),
+                MatrixView::new(&t, 3000, 1).unwrap(),
+            )
             .unwrap();
         // The fitted log-ratio is exactly quadratic in x: compare its second difference (the x^2
         // coefficient times 2h^2) and values in the bulk of the target with the analytic ones.
@@ -565,9 +649,16 @@ mod tests {
         let w = m.ratio(MatrixView::new(&xs, 3, 1).unwrap()).unwrap();
         let lw: Vec<f64> = w.iter().map(|v| v.ln()).collect();
         let a_fit = (lw[0] - 2.0 * lw[1] + lw[2]) / (2.0 * 0.25);
-        assert!((a_fit - (-6.0)).abs() < 0.6, "x^2 coefficient {a_fit}, analytic -6");
+        assert!(
+            (a_fit - (-6.0)).abs() < 0.6,
+            "x^2 coefficient {a_fit}, analytic -6"
+        );
         for (x, l) in xs.iter().zip(&lw) {
-            assert!((l - true_log_ratio(*x)).abs() < 0.25, "log w({x}) = {l}, analytic {}", true_log_ratio(*x));
+            assert!(
+                (l - true_log_ratio(*x)).abs() < 0.25,
+                "log w({x}) = {l}, analytic {}",
+                true_log_ratio(*x)
+            );
         }
     }
 
@@ -575,12 +666,21 @@ mod tests {
     fn source_weights_are_cross_fitted_and_scaled() {
         let s = gaussian_1d(200, 0.0, 1.0, 3);
         let t = gaussian_1d(100, 0.5, 1.0, 4);
-        let (sv, tv) = (MatrixView::new(&s, 200, 1).unwrap(), MatrixView::new(&t, 100, 1).unwrap());
+        let (sv, tv) = (
+            MatrixView::new(&s, 200, 1).unwrap(),
+            MatrixView::new(&t, 100, 1).unwrap(),
+        );
         let m = ClassifierRatio::new().fit(sv, tv).unwrap();
         let full = m.ratio(sv).unwrap();
         // Out-of-fold weights differ from the all-rows model's, but not by much.
         assert!(m.source_weights.iter().zip(&full).any(|(a, b)| a != b));
-        let rel: f64 = m.source_weights.iter().zip(&full).map(|(a, b)| (a - b).abs() / b).sum::<f64>() / 200.0;
+        let rel: f64 = m
+            .source_weights
+            .iter()
+            .zip(&full)
+            .map(|(a, b)| (a - b).abs() / b)
+            .sum::<f64>()
+            / 200.0;
         assert!(rel < 0.2, "mean relative difference {rel}");
         // Class-prior factor (Bickel et al. 2009): the mean source weight estimates E_s[w] = 1.
         let mean: f64 = m.source_weights.iter().sum::<f64>() / 200.0;
@@ -594,17 +694,31 @@ mod tests {
     fn fourier_model_round_trips_and_chooses_l2() {
         let s = gaussian_1d(150, 0.0, 1.0, 5);
         let t = gaussian_1d(150, 1.0, 1.0, 6);
-        let (sv, tv) = (MatrixView::new(&s, 150, 1).unwrap(), MatrixView::new(&t, 150, 1).unwrap());
-        let m = ClassifierRatio::new().features(Features::Fourier).n_fourier(20).l2(None).fit(sv, tv).unwrap();
+        let (sv, tv) = (
+            MatrixView::new(&s, 150, 1).unwrap(),
+            MatrixView::new(&t, 150, 1).unwrap(),
+        );
+        let m = ClassifierRatio::new()
+            .features(Features::Fourier)
+            .n_fourier(20)
+            .l2(None)
+            .fit(sv, tv)
+            .unwrap();
         assert_eq!(m.selection.table.len(), 6);
         assert!(m.selection.chosen["fourier_sigma"] > 0.0);
         let text = m.to_json().unwrap();
         let again = FittedRatio::from_json(&text).unwrap();
         assert_eq!(again.ratio(tv).unwrap(), m.ratio(tv).unwrap());
-        assert_eq!(m.ratio_one(&[0.3]).unwrap(), m.ratio(MatrixView::new(&[0.3], 1, 1).unwrap()).unwrap()[0]);
+        assert_eq!(
+            m.ratio_one(&[0.3]).unwrap(),
+            m.ratio(MatrixView::new(&[0.3], 1, 1).unwrap()).unwrap()[0]
+        );
         // A corrupted map is rejected on load.
         let bad = text.replacen("\"offsets\":[", "\"offsets\":[1.0,", 1);
-        assert!(matches!(FittedRatio::from_json(&bad), Err(Error::ModelFile(_))));
+        assert!(matches!(
+            FittedRatio::from_json(&bad),
+            Err(Error::ModelFile(_))
+        ));
     }
 
     #[test]
@@ -635,7 +749,10 @@ mod tests {
         assert!(Features::parse("cubic").is_err());
         let s = [0.0, 1.0, 2.0];
         let err = ClassifierRatio::new()
-            .fit(MatrixView::new(&s, 3, 1).unwrap(), MatrixView::new(&s, 3, 1).unwrap())
+            .fit(
+                MatrixView::new(&s, 3, 1).unwrap(),
+                MatrixView::new(&s, 3, 1).unwrap(),
+            )
             .unwrap_err();
         assert!(matches!(err, Error::TooFewRows { .. }), "{err:?}");
     }
