@@ -198,11 +198,7 @@ pub fn validate_pair(source: &MatrixView, target: &MatrixView, min_rows: usize) 
 /// the first bad entry.
 pub fn validate_weights(w: &[f64], n: usize, argument: &str) -> Result<()> {
     if w.len() != n {
-        return Err(Error::LengthMismatch {
-            argument: argument.into(),
-            expected: n,
-            found: w.len(),
-        });
+        return Err(Error::LengthMismatch { argument: argument.into(), expected: n, found: w.len() });
     }
     if let Some(i) = w.iter().position(|v| !v.is_finite() || *v < 0.0) {
         return Err(Error::InvalidWeights {
@@ -211,10 +207,7 @@ pub fn validate_weights(w: &[f64], n: usize, argument: &str) -> Result<()> {
         });
     }
     if w.iter().all(|v| *v == 0.0) {
-        return Err(Error::InvalidWeights {
-            argument: argument.into(),
-            reason: "all weights are zero".into(),
-        });
+        return Err(Error::InvalidWeights { argument: argument.into(), reason: "all weights are zero".into() });
     }
     Ok(())
 }
@@ -224,16 +217,10 @@ pub fn validate_weights(w: &[f64], n: usize, argument: &str) -> Result<()> {
 pub fn kfold_assignment(n: usize, k: usize, seed: u64) -> Result<Vec<usize>> {
     use rand::seq::SliceRandom;
     if k < 2 {
-        return Err(Error::param(
-            "folds",
-            format!("must be at least 2, got {k}"),
-        ));
+        return Err(Error::param("folds", format!("must be at least 2, got {k}")));
     }
     if k > n {
-        return Err(Error::param(
-            "folds",
-            format!("{k} folds need at least {k} rows, got {n}"),
-        ));
+        return Err(Error::param("folds", format!("{k} folds need at least {k} rows, got {n}")));
     }
     let mut order: Vec<usize> = (0..n).collect();
     order.shuffle(&mut crate::kernel::rng(seed ^ 0x666f_6c64_73));
@@ -368,9 +355,7 @@ mod tests {
     #[test]
     fn kfold_is_balanced_and_seeded() {
         let f = kfold_assignment(10, 3, 1).unwrap();
-        let counts: Vec<usize> = (0..3)
-            .map(|k| f.iter().filter(|v| **v == k).count())
-            .collect();
+        let counts: Vec<usize> = (0..3).map(|k| f.iter().filter(|v| **v == k).count()).collect();
         assert_eq!(counts, vec![4, 3, 3]);
         assert_eq!(f, kfold_assignment(10, 3, 1).unwrap());
         assert!(kfold_assignment(3, 4, 0).is_err());

@@ -72,8 +72,7 @@ const INLAND: Town = Town {
 
 /// The consumption rule shared by both towns (kWh per day), without noise.
 pub fn consumption(row: &[f64]) -> f64 {
-    let (temp, area, occ, age, electric, weekend) =
-        (row[0], row[1], row[2], row[3], row[4], row[5]);
+    let (temp, area, occ, age, electric, weekend) = (row[0], row[1], row[2], row[3], row[4], row[5]);
     let degree_days = (15.5 - temp).max(0.0);
     let insulation = 0.0011 * (1.0 + age / 45.0);
     let heat_share = if electric > 0.5 { 1.0 } else { 0.07 };
@@ -105,16 +104,8 @@ fn draw_town(town: &Town, n: usize, r: &mut impl Rng) -> (Matrix, Vec<f64>) {
             (area.sample(r).clamp(25.0, 400.0)).round(),
             occ,
             age.sample(r).clamp(0.0, 120.0).round(),
-            if r.random::<f64>() < town.electric_share {
-                1.0
-            } else {
-                0.0
-            },
-            if r.random::<f64>() < 2.0 / 7.0 {
-                1.0
-            } else {
-                0.0
-            },
+            if r.random::<f64>() < town.electric_share { 1.0 } else { 0.0 },
+            if r.random::<f64>() < 2.0 / 7.0 { 1.0 } else { 0.0 },
         ];
         let mean = consumption(&row);
         y.push((mean + (0.8 + 0.06 * mean) * noise.sample(r)).max(0.1));
@@ -147,16 +138,8 @@ mod tests {
         let b = electricity(500, 400, 7);
         assert_eq!(a.source, b.source);
         assert_eq!(a.y_target, b.y_target);
-        let mean = |m: &Matrix, j: usize| {
-            (0..m.rows()).map(|i| m.row(i)[j]).sum::<f64>() / m.rows() as f64
-        };
-        assert!(
-            mean(&a.target, 0) < mean(&a.source, 0) - 3.0,
-            "target is colder"
-        );
-        assert!(
-            mean(&a.target, 1) > mean(&a.source, 1) + 15.0,
-            "target homes are larger"
-        );
+        let mean = |m: &Matrix, j: usize| (0..m.rows()).map(|i| m.row(i)[j]).sum::<f64>() / m.rows() as f64;
+        assert!(mean(&a.target, 0) < mean(&a.source, 0) - 3.0, "target is colder");
+        assert!(mean(&a.target, 1) > mean(&a.source, 1) + 15.0, "target homes are larger");
     }
 }

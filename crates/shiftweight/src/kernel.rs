@@ -148,10 +148,7 @@ pub fn choose_centres(target: MatrixView, n_basis: usize, seed: u64) -> Result<M
 /// Validates a kernel width.
 pub fn check_sigma(name: &str, sigma: f64) -> Result<()> {
     if !(sigma.is_finite() && sigma > 0.0) {
-        return Err(Error::param(
-            name,
-            format!("kernel width must be finite and > 0, got {sigma}"),
-        ));
+        return Err(Error::param(name, format!("kernel width must be finite and > 0, got {sigma}")));
     }
     Ok(())
 }
@@ -169,12 +166,7 @@ mod tests {
         let k = kernel_block(xv, cv, 0.7);
         for i in 0..3 {
             for l in 0..2 {
-                let sq: f64 = xv
-                    .row(i)
-                    .iter()
-                    .zip(cv.row(l))
-                    .map(|(a, b)| (a - b).powi(2))
-                    .sum();
+                let sq: f64 = xv.row(i).iter().zip(cv.row(l)).map(|(a, b)| (a - b).powi(2)).sum();
                 let want = (-sq / (2.0 * 0.49)).exp();
                 assert!((k[i * 2 + l] - want).abs() < 1e-14);
             }

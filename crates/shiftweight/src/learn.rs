@@ -54,14 +54,7 @@ impl LinearModel {
         x.expect_cols("X", self.coef.len())?;
         x.validate("X", 0)?;
         Ok((0..x.rows())
-            .map(|i| {
-                x.row(i)
-                    .iter()
-                    .zip(&self.coef)
-                    .map(|(a, b)| a * b)
-                    .sum::<f64>()
-                    + self.intercept
-            })
+            .map(|i| x.row(i).iter().zip(&self.coef).map(|(a, b)| a * b).sum::<f64>() + self.intercept)
             .collect())
     }
     /// Ridge: fitted values. Logistic: predicted class (0 or 1).
@@ -69,24 +62,15 @@ impl LinearModel {
         let eta = self.decision_function(x)?;
         Ok(match self.kind {
             LinearKind::Ridge => eta,
-            LinearKind::Logistic => eta
-                .into_iter()
-                .map(|e| if e > 0.0 { 1.0 } else { 0.0 })
-                .collect(),
+            LinearKind::Logistic => eta.into_iter().map(|e| if e > 0.0 { 1.0 } else { 0.0 }).collect(),
         })
     }
     /// Logistic: probability of class 1 for every row.
     pub fn predict_proba(&self, x: MatrixView) -> Result<Vec<f64>> {
         if self.kind != LinearKind::Logistic {
-            return Err(Error::Unsupported(
-                "predict_proba is defined for logistic models only".into(),
-            ));
+            return Err(Error::Unsupported("predict_proba is defined for logistic models only".into()));
         }
-        Ok(self
-            .decision_function(x)?
-            .into_iter()
-            .map(sigmoid)
-            .collect())
+        Ok(self.decision_function(x)?.into_iter().map(sigmoid).collect())
     }
     /// The model file document.
     pub fn to_json(&self) -> Result<String> {
@@ -96,9 +80,7 @@ impl LinearModel {
     pub fn from_json(text: &str) -> Result<Self> {
         let m: LinearModel = model::from_json_tagged(LINEAR_MODEL_FORMAT, text)?;
         if m.coef.is_empty() || m.coef.iter().any(|v| !v.is_finite()) || !m.intercept.is_finite() {
-            return Err(Error::ModelFile(
-                "linear model has no or non-finite coefficients".into(),
-            ));
+            return Err(Error::ModelFile("linear model has no or non-finite coefficients".into()));
         }
         Ok(m)
     }
@@ -144,11 +126,7 @@ pub struct WeightedLogistic {
 
 impl Default for WeightedLogistic {
     fn default() -> Self {
-        Self {
-            l2: 1.0,
-            max_iter: 100,
-            tol: 1e-10,
-        }
+        Self { l2: 1.0, max_iter: 100, tol: 1e-10 }
     }
 }
 
@@ -169,17 +147,9 @@ impl WeightedLogistic {
     }
 
     /// Fits on rows `x`, labels `y` in {0, 1}, optional non-negative weights.
-    pub fn fit(
-        &self,
-        x: MatrixView,
-        y: &[f64],
-        sample_weight: Option<&[f64]>,
-    ) -> Result<LinearModel> {
+    pub fn fit(&self, x: MatrixView, y: &[f64], sample_weight: Option<&[f64]>) -> Result<LinearModel> {
         if !(self.l2.is_finite() && self.l2 >= 0.0) {
-            return Err(Error::param(
-                "l2",
-                format!("must be finite and >= 0, got {}", self.l2),
-            ));
+            return Err(Error::param("l2", format!("must be finite and >= 0, got {}", self.l2)));
         }
         if self.max_iter == 0 {
             return Err(Error::param("max_iter", "must be at least 1"));
@@ -198,29 +168,16 @@ impl WeightedLogistic {
             }
         };
         let (beta, intercept, n_iter) = fit_logistic(x, y, w, self.l2, self.max_iter, self.tol)?;
-        Ok(LinearModel {
-            kind: LinearKind::Logistic,
-            coef: beta,
-            intercept,
-            l2: self.l2,
-            n_iter,
-        })
+        Ok(LinearModel { kind: LinearKind::Logistic, coef: beta, intercept, l2: self.l2, n_iter })
     }
 }
 
 fn check_labels(y: &[f64], n: usize) -> Result<()> {
     if y.len() != n {
-        return Err(Error::LengthMismatch {
-            argument: "y".into(),
-            expected: n,
-            found: y.len(),
-        });
+        return Err(Error::LengthMismatch { argument: "y".into(), expected: n, found: y.len() });
     }
     if let Some(i) = y.iter().position(|v| *v != 0.0 && *v != 1.0) {
-        return Err(Error::param(
-            "y",
-            format!("labels must be 0 or 1; row {i} has {}", y[i]),
-        ));
+        return Err(Error::param("y", format!("labels must be 0 or 1; row {i} has {}", y[i])));
     }
     Ok(())
 }
@@ -262,12 +219,7 @@ pub(crate) fn fit_logistic(
             },
             |a, v| *a += v,
         );
-        loss + 0.5
-            * th[..d]
-                .iter()
-                .zip(&pen)
-                .map(|(b, q)| q * b * b)
-                .sum::<f64>()
+        loss + 0.5 * th[..d].iter().zip(&pen).map(|(b, q)| q * b * b).sum::<f64>()
     };
 
     let mut f_old = objective(&theta);
@@ -298,14 +250,7 @@ pub(crate) fn fit_logistic(
                 }
                 let zm = MatRef::from_row_major_slice(&zt, m, p);
                 let mut h = Mat::<f64>::zeros(p, p);
-                faer::linalg::matmul::matmul(
-                    h.as_mut(),
-                    faer::Accum::Replace,
-                    zm.transpose(),
-                    zm,
-                    1.0,
-                    Par::Seq,
-                );
+                faer::linalg::matmul::matmul(h.as_mut(), faer::Accum::Replace, zm.transpose(), zm, 1.0, Par::Seq);
                 let hv: Vec<f64> = (0..p * p).map(|k| h[(k / p, k % p)]).collect();
                 (g, hv)
             },
@@ -410,33 +355,16 @@ impl WeightedRidge {
     }
 
     /// Fits on rows `x`, targets `y`, optional non-negative weights.
-    pub fn fit(
-        &self,
-        x: MatrixView,
-        y: &[f64],
-        sample_weight: Option<&[f64]>,
-    ) -> Result<LinearModel> {
+    pub fn fit(&self, x: MatrixView, y: &[f64], sample_weight: Option<&[f64]>) -> Result<LinearModel> {
         if !(self.l2.is_finite() && self.l2 >= 0.0) {
-            return Err(Error::param(
-                "l2",
-                format!("must be finite and >= 0, got {}", self.l2),
-            ));
+            return Err(Error::param("l2", format!("must be finite and >= 0, got {}", self.l2)));
         }
         x.validate("X", 1)?;
         if y.len() != x.rows() {
-            return Err(Error::LengthMismatch {
-                argument: "y".into(),
-                expected: x.rows(),
-                found: y.len(),
-            });
+            return Err(Error::LengthMismatch { argument: "y".into(), expected: x.rows(), found: y.len() });
         }
         if let Some(i) = y.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite {
-                argument: "y".into(),
-                row: i,
-                column: 0,
-                value: y[i],
-            });
+            return Err(Error::NonFinite { argument: "y".into(), row: i, column: 0, value: y[i] });
         }
         let ones;
         let w = match sample_weight {
@@ -479,18 +407,8 @@ impl WeightedRidge {
                 }
                 let zm = MatRef::from_row_major_slice(&zc, m, d);
                 let mut h = Mat::<f64>::zeros(d, d);
-                faer::linalg::matmul::matmul(
-                    h.as_mut(),
-                    faer::Accum::Replace,
-                    zm.transpose(),
-                    zm,
-                    1.0,
-                    Par::Seq,
-                );
-                (
-                    (0..d * d).map(|k| h[(k / d, k % d)]).collect::<Vec<f64>>(),
-                    xty,
-                )
+                faer::linalg::matmul::matmul(h.as_mut(), faer::Accum::Replace, zm.transpose(), zm, 1.0, Par::Seq);
+                ((0..d * d).map(|k| h[(k / d, k % d)]).collect::<Vec<f64>>(), xty)
             },
             |acc, part| {
                 par::add_into(&mut acc.0, &part.0);
@@ -508,13 +426,7 @@ impl WeightedRidge {
         let sol = llt.solve(Mat::<f64>::from_fn(d, 1, |i, _| xty[i]));
         let coef: Vec<f64> = (0..d).map(|j| sol[(j, 0)]).collect();
         let intercept = ym - coef.iter().zip(&xm).map(|(a, b)| a * b).sum::<f64>();
-        Ok(LinearModel {
-            kind: LinearKind::Ridge,
-            coef,
-            intercept,
-            l2: self.l2,
-            n_iter: 0,
-        })
+        Ok(LinearModel { kind: LinearKind::Ridge, coef, intercept, l2: self.l2, n_iter: 0 })
     }
 }
 
@@ -527,14 +439,7 @@ mod tests {
         // y = 1 + 2x exactly: any weights recover it.
         let x = [0.0, 1.0, 2.0, 3.0];
         let y = [1.0, 3.0, 5.0, 7.0];
-        let m = WeightedRidge::new()
-            .l2(0.0)
-            .fit(
-                MatrixView::new(&x, 4, 1).unwrap(),
-                &y,
-                Some(&[1.0, 2.0, 3.0, 4.0]),
-            )
-            .unwrap();
+        let m = WeightedRidge::new().l2(0.0).fit(MatrixView::new(&x, 4, 1).unwrap(), &y, Some(&[1.0, 2.0, 3.0, 4.0])).unwrap();
         assert!((m.coef[0] - 2.0).abs() < 1e-12 && (m.intercept - 1.0).abs() < 1e-12);
     }
 
@@ -550,20 +455,9 @@ mod tests {
     fn logistic_gradient_vanishes_at_solution() {
         let x: Vec<f64> = (0..40).map(|i| (i as f64 - 20.0) / 7.0).collect();
         // Overlapping classes: more ones on the right, some on both sides.
-        let y: Vec<f64> = (0..40)
-            .map(|i| {
-                if (i * 37) % 11 < 3 + 5 * usize::from(i > 20) {
-                    1.0
-                } else {
-                    0.0
-                }
-            })
-            .collect();
+        let y: Vec<f64> = (0..40).map(|i| if (i * 37) % 11 < 3 + 5 * usize::from(i > 20) { 1.0 } else { 0.0 }).collect();
         let w: Vec<f64> = (0..40).map(|i| 0.5 + (i % 3) as f64).collect();
-        let m = WeightedLogistic::new()
-            .l2(0.3)
-            .fit(MatrixView::new(&x, 40, 1).unwrap(), &y, Some(&w))
-            .unwrap();
+        let m = WeightedLogistic::new().l2(0.3).fit(MatrixView::new(&x, 40, 1).unwrap(), &y, Some(&w)).unwrap();
         let (mut g0, mut g1) = (0.3 * m.coef[0], 0.0);
         for i in 0..40 {
             let r = w[i] * (sigmoid(m.coef[0] * x[i] + m.intercept) - y[i]);

@@ -44,8 +44,8 @@ pub mod ratio;
 pub use data::{Matrix, MatrixView, Standardizer};
 pub use error::{Error, Result};
 pub use ratio::{
-    ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio,
-    LeastSquaresRatio, RatioEstimator,
+    ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, LeastSquaresRatio,
+    RatioEstimator,
 };
 
 /// Sets the number of threads of the global pool used by the crate (call once, before any work).
@@ -54,10 +54,5 @@ pub fn set_threads(n: usize) -> Result<()> {
     rayon::ThreadPoolBuilder::new()
         .num_threads(n)
         .build_global()
-        .map_err(|e| {
-            Error::param(
-                "threads",
-                format!("the thread pool is already running: {e}"),
-            )
-        })
+        .map_err(|e| Error::param("threads", format!("the thread pool is already running: {e}")))
 }

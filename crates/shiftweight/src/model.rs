@@ -38,12 +38,8 @@ struct EnvelopeIn {
 
 /// Serialises any model under a format tag.
 pub fn to_json_tagged<T: Serialize>(format: &str, model: &T) -> Result<String> {
-    serde_json::to_string(&EnvelopeOut {
-        format,
-        version: MODEL_VERSION,
-        model,
-    })
-    .map_err(|e| Error::ModelFile(format!("could not serialise: {e}")))
+    serde_json::to_string(&EnvelopeOut { format, version: MODEL_VERSION, model })
+        .map_err(|e| Error::ModelFile(format!("could not serialise: {e}")))
 }
 
 /// Parses a document written by [`to_json_tagged`] with the given format tag.
@@ -55,22 +51,14 @@ pub fn from_json_tagged<T: DeserializeOwned>(format: &str, text: &str) -> Result
         )));
     }
     let env: EnvelopeIn = serde_json::from_str(text).map_err(|e| {
-        Error::ModelFile(format!(
-            "not a valid JSON model document ({e}); the file may be truncated or corrupted"
-        ))
+        Error::ModelFile(format!("not a valid JSON model document ({e}); the file may be truncated or corrupted"))
     })?;
     match env.format {
         Some(Value::String(f)) if f == format => {}
         Some(other) => {
-            return Err(Error::ModelFile(format!(
-                "format is {other}, expected \"{format}\""
-            )));
+            return Err(Error::ModelFile(format!("format is {other}, expected \"{format}\"")));
         }
-        None => {
-            return Err(Error::ModelFile(format!(
-                "no \"format\" field; expected \"{format}\""
-            )))
-        }
+        None => return Err(Error::ModelFile(format!("no \"format\" field; expected \"{format}\""))),
     }
     match env.version {
         Some(Value::Number(n)) if n.as_u64() == Some(MODEL_VERSION) => {}
@@ -81,11 +69,8 @@ pub fn from_json_tagged<T: DeserializeOwned>(format: &str, text: &str) -> Result
         }
         None => return Err(Error::ModelFile("no \"version\" field".into())),
     }
-    let model = env
-        .model
-        .ok_or_else(|| Error::ModelFile("no \"model\" field".into()))?;
-    serde_json::from_value(model)
-        .map_err(|e| Error::ModelFile(format!("model body is malformed: {e}")))
+    let model = env.model.ok_or_else(|| Error::ModelFile("no \"model\" field".into()))?;
+    serde_json::from_value(model).map_err(|e| Error::ModelFile(format!("model body is malformed: {e}")))
 }
 
 /// Writes a fitted ratio model as a JSON document.

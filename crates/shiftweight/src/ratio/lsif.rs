@@ -26,10 +26,8 @@
 //! statistics H (accumulated over row chunks; no n x b matrix is ever held), O(n_sigma (b^3 +
 //! n_lambda m b^2)) for the cross-validation, O(n b d) to score n rows. Memory O(n_sigma b^2 + m b).
 
-use super::{
-    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
-    ScoreRow, Selection,
-};
+use super::{fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator,
+            RatioForm, ScoreRow, Selection};
 use crate::data::{validate_pair, MatrixView};
 use crate::error::{Error, Result};
 use crate::kernel;
@@ -129,42 +127,22 @@ impl LeastSquaresRatio {
         }
         if let Some(l) = self.lam {
             if !(l.is_finite() && l > 0.0) {
-                return Err(Error::param(
-                    "lam",
-                    format!("must be finite and > 0, got {l}"),
-                ));
+                return Err(Error::param("lam", format!("must be finite and > 0, got {l}")));
             }
         }
         if self.n_basis == 0 {
             return Err(Error::param("n_basis", "must be at least 1"));
         }
         if !(self.alpha >= 0.0 && self.alpha < 1.0) {
-            return Err(Error::param(
-                "alpha",
-                format!("must be in [0, 1), got {}", self.alpha),
-            ));
+            return Err(Error::param("alpha", format!("must be in [0, 1), got {}", self.alpha)));
         }
         if self.sigma_multiples.is_empty()
-            || self
-                .sigma_multiples
-                .iter()
-                .any(|v| !(v.is_finite() && *v > 0.0))
+            || self.sigma_multiples.iter().any(|v| !(v.is_finite() && *v > 0.0))
         {
-            return Err(Error::param(
-                "sigma_multiples",
-                "must be a non-empty list of finite values > 0",
-            ));
+            return Err(Error::param("sigma_multiples", "must be a non-empty list of finite values > 0"));
         }
-        if self.lambda_grid.is_empty()
-            || self
-                .lambda_grid
-                .iter()
-                .any(|v| !(v.is_finite() && *v > 0.0))
-        {
-            return Err(Error::param(
-                "lambda_grid",
-                "must be a non-empty list of finite values > 0",
-            ));
+        if self.lambda_grid.is_empty() || self.lambda_grid.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
+            return Err(Error::param("lambda_grid", "must be a non-empty list of finite values > 0"));
         }
         if self.max_cv_rows < 2 {
             return Err(Error::param("max_cv_rows", "must be at least 2"));
@@ -182,19 +160,11 @@ pub(crate) struct KernelSums {
 /// Accumulates, for every width, sum_i k(x_i) k(x_i)' (when `gram`) and sum_i k(x_i) over the rows
 /// of `z`, chunk by chunk through [`crate::par::reduce_chunks`] (bitwise reproducible for any
 /// thread count). Memory: O(BATCH_CHUNKS * n_sigma * b^2); no n x b matrix is held.
-pub(crate) fn kernel_sums(
-    z: MatrixView,
-    centres: MatrixView,
-    sigmas: &[f64],
-    gram: bool,
-) -> KernelSums {
+pub(crate) fn kernel_sums(z: MatrixView, centres: MatrixView, sigmas: &[f64], gram: bool) -> KernelSums {
     let b = centres.rows();
     let c_sq = kernel::row_sq_norms(centres);
     let init = KernelSums {
-        gram: sigmas
-            .iter()
-            .map(|_| gram.then(|| Mat::<f64>::zeros(b, b)))
-            .collect(),
+        gram: sigmas.iter().map(|_| gram.then(|| Mat::<f64>::zeros(b, b))).collect(),
         sum: sigmas.iter().map(|_| vec![0.0; b]).collect(),
     };
     par::reduce_chunks(
@@ -206,10 +176,7 @@ pub(crate) fn kernel_sums(
             let mut dist = vec![0.0; m * b];
             kernel::sq_distances_into(rows, centres, &c_sq, &mut dist);
             let mut kb = vec![0.0; m * b];
-            let mut part = KernelSums {
-                gram: Vec::new(),
-                sum: Vec::new(),
-            };
+            let mut part = KernelSums { gram: Vec::new(), sum: Vec::new() };
             for &s in sigmas {
                 kb.copy_from_slice(&dist);
                 kernel::gaussian_in_place(&mut kb, s);
@@ -221,14 +188,7 @@ pub(crate) fn kernel_sums(
                 part.gram.push(gram.then(|| {
                     let km = MatRef::from_row_major_slice(&kb, m, b);
                     let mut g = Mat::<f64>::zeros(b, b);
-                    matmul(
-                        g.as_mut(),
-                        Accum::Replace,
-                        km.transpose(),
-                        km,
-                        1.0,
-                        Par::Seq,
-                    );
+                    matmul(g.as_mut(), Accum::Replace, km.transpose(), km, 1.0, Par::Seq);
                     g
                 }));
             }
@@ -264,32 +224,15 @@ fn loo_scores(
     let b = sum_t.len();
     let eig = base
         .self_adjoint_eigen(Side::Lower)
-        .map_err(|e| Error::Numerical {
-            context: "uLSIF eigendecomposition".into(),
-            reason: format!("{e:?}"),
-        })?;
+        .map_err(|e| Error::Numerical { context: "uLSIF eigendecomposition".into(), reason: format!("{e:?}") })?;
     let u = eig.U();
     let s: Vec<f64> = (0..b).map(|j| eig.S()[j].max(0.0)).collect();
     let ksm = MatRef::from_row_major_slice(ks, m, b).transpose(); // b x m
     let ktm = MatRef::from_row_major_slice(kt, m, b).transpose();
     let mut g = Mat::<f64>::zeros(b, m);
     let mut f = Mat::<f64>::zeros(b, m);
-    matmul(
-        g.as_mut(),
-        Accum::Replace,
-        u.transpose(),
-        ksm,
-        1.0,
-        Par::Seq,
-    );
-    matmul(
-        f.as_mut(),
-        Accum::Replace,
-        u.transpose(),
-        ktm,
-        1.0,
-        Par::Seq,
-    );
+    matmul(g.as_mut(), Accum::Replace, u.transpose(), ksm, 1.0, Par::Seq);
+    matmul(f.as_mut(), Accum::Replace, u.transpose(), ktm, 1.0, Par::Seq);
     let st = ColRef::from_slice(sum_t);
     let gt: Col<f64> = u.transpose() * st;
     let a = 1.0 - alpha;
@@ -331,8 +274,7 @@ fn loo_scores(
             };
             for j in 0..b {
                 let dj = dinv[j];
-                tt[(j, i)] =
-                    dj * (gt[j] - f[(j, i)]) / nt1 + dj * g[(j, i)] * z0 + dj * f[(j, i)] * z1;
+                tt[(j, i)] = dj * (gt[j] - f[(j, i)]) / nt1 + dj * g[(j, i)] * z0 + dj * f[(j, i)] * z1;
             }
         }
         if bad {
@@ -340,14 +282,7 @@ fn loo_scores(
             continue;
         }
         let mut theta = Mat::<f64>::zeros(b, m);
-        matmul(
-            theta.as_mut(),
-            Accum::Replace,
-            u,
-            tt.as_ref(),
-            1.0,
-            Par::Seq,
-        );
+        matmul(theta.as_mut(), Accum::Replace, u, tt.as_ref(), 1.0, Par::Seq);
         let mut total = 0.0;
         for i in 0..m {
             let (mut rs, mut rt) = (0.0, 0.0);
@@ -370,10 +305,9 @@ pub(crate) fn solve_theta(h_mat: &Mat<f64>, h: &[f64], lam: f64) -> Result<Vec<f
     for j in 0..b {
         a[(j, j)] += lam;
     }
-    let llt = a.llt(Side::Lower).map_err(|e| Error::Numerical {
-        context: "uLSIF solve".into(),
-        reason: format!("{e:?}"),
-    })?;
+    let llt = a
+        .llt(Side::Lower)
+        .map_err(|e| Error::Numerical { context: "uLSIF solve".into(), reason: format!("{e:?}") })?;
     let rhs = Mat::<f64>::from_fn(b, 1, |i, _| h[i]);
     let sol = llt.solve(rhs);
     Ok((0..b).map(|i| sol[(i, 0)].max(0.0)).collect())
@@ -413,21 +347,15 @@ impl RatioEstimator for LeastSquaresRatio {
             let cvt = zt.view().select_rows(&it);
             let mut best = f64::INFINITY;
             for (si, &sigma) in sigmas.iter().enumerate() {
-                let mut base = ss.gram[si].as_ref().expect("gram").clone()
-                    * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
+                let mut base = ss.gram[si].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
                 if alpha > 0.0 {
-                    base += stt.gram[si].as_ref().expect("gram").clone()
-                        * Scale(alpha / (n_t as f64 - 1.0));
+                    base += stt.gram[si].as_ref().expect("gram").clone() * Scale(alpha / (n_t as f64 - 1.0));
                 }
                 let ks = kernel::kernel_block(cvs.view(), centres.view(), sigma);
                 let kt = kernel::kernel_block(cvt.view(), centres.view(), sigma);
-                let scores =
-                    loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)?;
+                let scores = loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)?;
                 for (li, &sc) in scores.iter().enumerate() {
-                    table.push(ScoreRow {
-                        params: params([("sigma", sigma), ("lam", lambdas[li])]),
-                        score: sc,
-                    });
+                    table.push(ScoreRow { params: params([("sigma", sigma), ("lam", lambdas[li])]), score: sc });
                     if sc < best {
                         best = sc;
                         best_s = si;
@@ -443,8 +371,7 @@ impl RatioEstimator for LeastSquaresRatio {
             }
         }
         let (sigma, lam) = (sigmas[best_s], lambdas[best_l]);
-        let mut h_mat =
-            ss.gram[best_s].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / n_s as f64);
+        let mut h_mat = ss.gram[best_s].as_ref().expect("gram").clone() * Scale((1.0 - alpha) / n_s as f64);
         if alpha > 0.0 {
             h_mat += stt.gram[best_s].as_ref().expect("gram").clone() * Scale(alpha / n_t as f64);
         }
@@ -457,11 +384,7 @@ impl RatioEstimator for LeastSquaresRatio {
         let mut fitted = FittedRatio {
             kind: EstimatorKind::LeastSquares,
             standardizer: st,
-            form: RatioForm::KernelExpansion {
-                sigma,
-                centres,
-                coef,
-            },
+            form: RatioForm::KernelExpansion { sigma, centres, coef },
             source_weights: Vec::new(),
             selection: Selection {
                 criterion: "closed-form leave-one-out squared loss (Kanamori et al. 2009)".into(),

@@ -301,11 +301,7 @@ impl FittedRatio {
                 )));
             }
         }
-        if self
-            .source_weights
-            .iter()
-            .any(|w| !w.is_finite() || *w < 0.0)
-        {
+        if self.source_weights.iter().any(|w| !w.is_finite() || *w < 0.0) {
             return Err(Error::ModelFile(
                 "source weights must be finite and non-negative".into(),
             ));
@@ -333,20 +329,11 @@ impl FittedRatio {
                 if !(sigma.is_finite() && *sigma > 0.0) {
                     return Err(Error::ModelFile(format!("kernel width {sigma} is not > 0")));
                 }
-                if coef
-                    .iter()
-                    .chain(centres.as_slice())
-                    .any(|v| !v.is_finite())
-                {
+                if coef.iter().chain(centres.as_slice()).any(|v| !v.is_finite()) {
                     return Err(Error::ModelFile("non-finite centre or coefficient".into()));
                 }
             }
-            RatioForm::LogLinear {
-                map,
-                coef,
-                intercept,
-                log_prior_ratio,
-            } => {
+            RatioForm::LogLinear { map, coef, intercept, log_prior_ratio } => {
                 map.check(d)?;
                 if coef.len() != map.dim(d) {
                     return Err(Error::ModelFile(format!(
@@ -356,23 +343,15 @@ impl FittedRatio {
                         map.name()
                     )));
                 }
-                if coef
-                    .iter()
-                    .chain([intercept, log_prior_ratio])
-                    .any(|v| !v.is_finite())
-                {
-                    return Err(Error::ModelFile(
-                        "non-finite classifier coefficient, intercept or prior".into(),
-                    ));
+                if coef.iter().chain([intercept, log_prior_ratio]).any(|v| !v.is_finite()) {
+                    return Err(Error::ModelFile("non-finite classifier coefficient, intercept or prior".into()));
                 }
             }
             RatioForm::SourceOnly | RatioForm::Uniform => {}
         }
         if let (Some(c), false) = (&self.selection.candidate, self.selection.labels.is_empty()) {
             if !self.selection.labels.contains(c) {
-                return Err(Error::ModelFile(format!(
-                    "chosen candidate {c:?} is not in the score table"
-                )));
+                return Err(Error::ModelFile(format!("chosen candidate {c:?} is not in the score table")));
             }
         }
         Ok(())
