@@ -21,7 +21,15 @@ from ._native import (
     set_threads,
 )
 from ._validation import NotFittedError
-from ._ratio import KernelMeanMatching, KLRatio, LeastSquaresRatio, from_json
+from ._ratio import (
+    AutoRatio,
+    ClassifierRatio,
+    KernelMeanMatching,
+    KLRatio,
+    LeastSquaresRatio,
+    from_json,
+    ratio_from_probabilities,
+)
 from ._learn import WeightedLogistic, WeightedRidge
 from ._demo import demo_data
 
@@ -29,6 +37,9 @@ __all__ = [
     "LeastSquaresRatio",
     "KLRatio",
     "KernelMeanMatching",
+    "ClassifierRatio",
+    "AutoRatio",
+    "ratio_from_probabilities",
     "WeightedLogistic",
     "WeightedRidge",
     "from_json",

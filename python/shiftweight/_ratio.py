@@ -8,19 +8,24 @@ and ``shiftweight.from_json(text)`` reads it back; pickling works (the state is 
 
 from __future__ import annotations
 
+import json
+import warnings
 from typing import Any, Dict, Optional, Sequence
 
 import numpy as np
 
 from . import _native
 from ._base import ParamsMixin
-from ._validation import NotFittedError, as_matrix, check_same_columns
+from ._validation import NotFittedError, as_matrix, as_vector, check_same_columns
 
 __all__ = [
     "RatioEstimatorBase",
     "LeastSquaresRatio",
     "KLRatio",
     "KernelMeanMatching",
+    "ClassifierRatio",
+    "AutoRatio",
+    "ratio_from_probabilities",
     "from_json",
     "register_kind",
 ]
@@ -178,20 +183,23 @@ class LeastSquaresRatio(RatioEstimatorBase):
         self.lambda_grid = lambda_grid
         self.max_cv_rows = max_cv_rows
 
-    def _fit_native(self, source, target, names):
-        return _native.fit_least_squares(
-            source,
-            target,
-            None if self.sigma is None else float(self.sigma),
-            None if self.lam is None else float(self.lam),
-            int(self.n_basis),
-            float(self.alpha),
-            int(self.seed),
-            [float(v) for v in self.sigma_multiples],
-            [float(v) for v in self.lambda_grid],
-            int(self.max_cv_rows),
-            names,
+    _native_kind = "least_squares"
+
+    def _native_params(self) -> Dict[str, Any]:
+        """The arguments of the native fit function (also how ``AutoRatio`` passes a candidate)."""
+        return dict(
+            sigma=None if self.sigma is None else float(self.sigma),
+            lam=None if self.lam is None else float(self.lam),
+            n_basis=int(self.n_basis),
+            alpha=float(self.alpha),
+            seed=int(self.seed),
+            sigma_multiples=[float(v) for v in self.sigma_multiples],
+            lambda_grid=[float(v) for v in self.lambda_grid],
+            max_cv_rows=int(self.max_cv_rows),
         )
+
+    def _fit_native(self, source, target, names):
+        return _native.fit_least_squares(source, target, **self._native_params(), feature_names=names)
 
     def _extract(self, model):
         chosen = model.selection["chosen"]
@@ -279,20 +287,22 @@ class KLRatio(RatioEstimatorBase):
         self.tol = tol
         self.max_iter = max_iter
 
-    def _fit_native(self, source, target, names):
-        return _native.fit_kliep(
-            source,
-            target,
-            None if self.sigma is None else float(self.sigma),
-            int(self.n_basis),
-            int(self.folds),
-            int(self.seed),
-            str(self.cv),
-            [float(v) for v in self.sigma_multiples],
-            float(self.tol),
-            int(self.max_iter),
-            names,
+    _native_kind = "kliep"
+
+    def _native_params(self) -> Dict[str, Any]:
+        return dict(
+            sigma=None if self.sigma is None else float(self.sigma),
+            n_basis=int(self.n_basis),
+            folds=int(self.folds),
+            seed=int(self.seed),
+            cv=str(self.cv),
+            sigma_multiples=[float(v) for v in self.sigma_multiples],
+            tol=float(self.tol),
+            max_iter=int(self.max_iter),
         )
+
+    def _fit_native(self, source, target, names):
+        return _native.fit_kliep(source, target, **self._native_params(), feature_names=names)
 
     def _extract(self, model):
         chosen = model.selection["chosen"]
@@ -397,6 +407,239 @@ class KernelMeanMatching(RatioEstimatorBase):
         return super().ratio(X)
 
 
+@register_kind("classifier")
+class ClassifierRatio(RatioEstimatorBase):
+    """Density ratio from a logistic classifier of target-vs-source rows (Bickel et al. 2009).
+
+    Fits an L2-penalised logistic regression of "is this row from the target?" on a feature map of
+    the pooled-standardised rows, minimising sum_i logloss_i + (l2/2)||beta||^2 with the intercept
+    unpenalised (scikit-learn's ``LogisticRegression(C=1/l2)``), and turns its log-odds eta(x) into
+    a weight with the class-prior correction: log w(x) = eta(x) + ln(n_source / n_target).
+
+    Source weights are cross-fitted: each source row's weight comes from the model fitted with its
+    fold held out, so no weight is scored by a model that saw its row. ``ratio(X)`` on new rows
+    uses the model fitted on all rows. Scales to millions of rows; prefer it when the log-ratio is
+    smooth (linear or quadratic in the features), when there are many features, or when kernel
+    methods are too slow.
+
+    Parameters
+    ----------
+    l2 : float or None
+        Penalty strength (> 0); None chooses it from ``l2_grid`` by out-of-fold log-loss.
+    features : {"linear", "quadratic", "fourier"}
+        Feature map: the standardised features; plus all pairwise products (the log-ratio of two
+        Gaussians is exactly quadratic); or ``n_fourier`` random Fourier features of a Gaussian
+        kernel (Rahimi & Recht 2007) with width ``fourier_sigma`` (None: median heuristic).
+    folds : int
+        Cross-fitting folds (>= 2).
+    seed : int
+        Seed of the folds and the Fourier frequencies.
+    n_fourier : int
+        Number of random Fourier features (default 100).
+    fourier_sigma : float or None
+        Width of the Fourier kernel in standardised units.
+    l2_grid : sequence of float
+        Penalties tried when ``l2`` is None.
+
+    Attributes
+    ----------
+    l2_ : penalty used; ``cv_scores_``: out-of-fold log-loss per penalty; ``coef_``, ``intercept_``:
+    the all-rows classifier on the mapped standardised features; ``log_prior_ratio_``:
+    ln(n_source / n_target); ``source_weights_``: cross-fitted source weights.
+
+    Weighting corrects covariate shift only, needs the source to cover the target, and should be
+    validated on labelled target data.
+
+    Examples
+    --------
+    >>> import numpy as np, shiftweight as sw
+    >>> rng = np.random.default_rng(0)
+    >>> src, tgt = rng.normal(0, 1, (400, 2)), rng.normal(0.5, 1, (400, 2))
+    >>> est = sw.ClassifierRatio(features="quadratic").fit(src, tgt)
+    >>> w = est.ratio(np.array([[-1.0, -1.0], [1.0, 1.0]]))
+    >>> bool(w[1] > w[0]), est.source_weights_.shape
+    (True, (400,))
+    """
+
+    _native_kind = "classifier"
+
+    def __init__(
+        self,
+        l2: Optional[float] = 1.0,
+        features: str = "linear",
+        folds: int = 5,
+        seed: int = 0,
+        n_fourier: int = 100,
+        fourier_sigma: Optional[float] = None,
+        l2_grid: Sequence[float] = (0.01, 0.1, 1.0, 10.0, 100.0, 1000.0),
+    ):
+        self.l2 = l2
+        self.features = features
+        self.folds = folds
+        self.seed = seed
+        self.n_fourier = n_fourier
+        self.fourier_sigma = fourier_sigma
+        self.l2_grid = l2_grid
+
+    def _native_params(self) -> Dict[str, Any]:
+        """The arguments of the native fit function (also how ``AutoRatio`` passes a candidate)."""
+        return dict(
+            l2=None if self.l2 is None else float(self.l2),
+            features=str(self.features),
+            n_fourier=int(self.n_fourier),
+            fourier_sigma=None if self.fourier_sigma is None else float(self.fourier_sigma),
+            folds=int(self.folds),
+            seed=int(self.seed),
+            l2_grid=[float(v) for v in self.l2_grid],
+        )
+
+    def _fit_native(self, source, target, names):
+        return _native.fit_classifier(source, target, **self._native_params(), feature_names=names)
+
+    def _extract(self, model):
+        chosen = model.selection["chosen"]
+        self.l2_ = chosen["l2"]
+        self.fourier_sigma_ = chosen.get("fourier_sigma")
+        self.cv_scores_ = model.selection["table"]
+        form = json.loads(model.form_json())
+        self.features_ = form["map"]["map"]
+        self.coef_ = np.asarray(form["coef"], dtype=np.float64)
+        self.intercept_ = float(form["intercept"])
+        self.log_prior_ratio_ = float(form["log_prior_ratio"])
+
+
+class AutoRatio(RatioEstimatorBase):
+    """Chooses among ratio estimators by the held-out least-squares criterion (no labels needed).
+
+    For each candidate, J(w) = 1/2 mean_source(w^2) - mean_target(w) is computed on held-out
+    folds of both samples (the candidate is fitted on the other folds, choosing its own
+    hyperparameters there), and averaged over folds. J differs from the squared error to the true
+    ratio by a constant (Kanamori, Hido, Sugiyama 2009), so lower is better. Uniform weights
+    (w = 1, J = -0.5) are always a candidate and are kept unless another candidate is better by
+    more than ``se_margin`` standard errors; then ``warnings_`` says that no correction was chosen.
+    The winner is refitted on all rows.
+
+    KMM cannot be a candidate: it is transductive (no weights for held-out rows, so no held-out
+    score).
+
+    Parameters
+    ----------
+    candidates : None, list or dict
+        None: uLSIF, RuLSIF (alpha 0.1) and the classifier with linear, quadratic and Fourier
+        features. Otherwise estimator instances, ``(name, estimator)`` pairs, or a dict
+        ``{name: estimator}`` (names default to the estimator's repr).
+    folds : int
+        Held-out folds (>= 2).
+    seed : int
+        Seed of the folds and of the default candidates.
+    se_margin : float
+        Standard errors by which a candidate must beat uniform weights.
+
+    Attributes
+    ----------
+    chosen_ : name of the chosen candidate ("uniform" for no correction); ``scores_``: list of
+    dicts (name, score, std_error), uniform first; ``chosen_estimator_``: the refitted winner as
+    its own class (None for uniform); ``source_weights_``: the winner's source weights.
+
+    Examples
+    --------
+    >>> import numpy as np, shiftweight as sw
+    >>> rng = np.random.default_rng(0)
+    >>> src, tgt = rng.normal(0, 1, (300, 2)), rng.normal(1, 1, (300, 2))
+    >>> auto = sw.AutoRatio(candidates=[sw.ClassifierRatio(), ("ulsif", sw.LeastSquaresRatio(n_basis=50))])
+    >>> auto = auto.fit(src, tgt)
+    >>> [row["name"] for row in auto.scores_]
+    ['uniform', 'ClassifierRatio()', 'ulsif']
+    >>> auto.chosen_ != "uniform"
+    True
+    """
+
+    def __init__(self, candidates: Any = None, folds: int = 5, seed: int = 0, se_margin: float = 1.0):
+        self.candidates = candidates
+        self.folds = folds
+        self.seed = seed
+        self.se_margin = se_margin
+
+    def _candidate_specs(self):
+        if self.candidates is None:
+            return None
+        items = self.candidates.items() if isinstance(self.candidates, dict) else self.candidates
+        specs = []
+        for item in items:
+            name, est = item if isinstance(item, tuple) else (repr(item), item)
+            if not hasattr(est, "_native_params") or not hasattr(est, "_native_kind"):
+                raise _native.ShiftweightError(
+                    f"candidate {name!r} ({type(est).__name__}) cannot enter AutoRatio: a candidate must be a "
+                    "shiftweight ratio estimator that scores held-out rows (KMM is transductive and cannot)"
+                )
+            specs.append((str(name), est._native_kind, est._native_params()))
+        return specs
+
+    def _fit_native(self, source, target, names):
+        return _native.fit_auto(
+            source,
+            target,
+            self._candidate_specs(),
+            int(self.folds),
+            int(self.seed),
+            float(self.se_margin),
+            feature_names=names,
+        )
+
+    def _extract(self, model):
+        sel = model.selection
+        self.chosen_ = sel["candidate"]
+        self.scores_ = [
+            {"name": n, "score": r["score"], "std_error": r["std_error"]} for n, r in zip(sel["labels"], sel["table"])
+        ]
+        cls = _KIND_TO_CLASS.get(model.kind)
+        if cls is None:
+            self.chosen_estimator_ = None
+        else:
+            est = cls()
+            est._set_fitted(model)
+            self.chosen_estimator_ = est
+
+    def score_table(self):
+        """The score table as a pandas DataFrame (needs pandas), best first."""
+        import pandas as pd
+
+        self._check_fitted()
+        return pd.DataFrame(self.scores_).sort_values("score", kind="stable").reset_index(drop=True)
+
+
+def ratio_from_probabilities(p_target: Any, n_source: int, n_target: int, clip: float = 1e-6) -> np.ndarray:
+    """Importance weights from any classifier's out-of-fold probabilities P(target | x).
+
+    w_i = p_i / (1 - p_i) * n_source / n_target, where ``n_source`` and ``n_target`` are the
+    numbers of source and target rows the classifier was trained on (the class-prior correction;
+    Bickel et al. 2009). Use out-of-fold probabilities (e.g. scikit-learn's ``cross_val_predict``
+    with ``method="predict_proba"``) so no weight comes from a model that saw its row. A
+    probability outside (0, 1) or non-finite raises ``ShiftweightError`` naming its index;
+    probabilities within ``clip`` of 0 or 1 are clipped, with a warning giving their count.
+
+    Examples
+    --------
+    >>> import shiftweight as sw
+    >>> sw.ratio_from_probabilities([0.5, 0.2], n_source=300, n_target=100)
+    array([3.  , 0.75])
+    """
+    p = as_vector(p_target, "p_target")
+    for name, v in (("n_source", n_source), ("n_target", n_target)):
+        if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < 1:
+            raise _native.ShiftweightError(f"`{name}` must be a positive integer (a row count), got {v!r}")
+    w, n_clipped = _native.weights_from_probabilities(p, int(n_source), int(n_target), float(clip))
+    if n_clipped:
+        warnings.warn(
+            f"{n_clipped} of {p.shape[0]} probabilities were within {clip:g} of 0 or 1 and were clipped to "
+            f"[{clip:g}, {1 - clip:g}]: the classifier is nearly certain there, so those weights are unreliable "
+            "(check support overlap)",
+            UserWarning,
+            stacklevel=2,
+        )
+    return w
+
+
 def from_json(text: str) -> RatioEstimatorBase:
     """Restores a fitted estimator from its JSON model document.
 
@@ -405,7 +648,10 @@ def from_json(text: str) -> RatioEstimatorBase:
     Raises ``ModelFileError`` for another format, another version or an inconsistent model.
     """
     model = _native.RatioModel.from_json(text)
-    cls = _KIND_TO_CLASS.get(model.kind)
+    if "candidate" in model.selection:
+        cls = AutoRatio
+    else:
+        cls = _KIND_TO_CLASS.get(model.kind)
     if cls is None:
         raise _native.ModelFileError(f"no Python class for estimator kind {model.kind!r}")
     est = cls()

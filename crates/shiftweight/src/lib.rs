@@ -44,7 +44,8 @@ pub mod ratio;
 pub use data::{Matrix, MatrixView, Standardizer};
 pub use error::{Error, Result};
 pub use ratio::{
-    EstimatorKind, FittedRatio, KLRatio, KernelMeanMatching, KliepCv, LeastSquaresRatio,
+    ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, KLRatio,
+    KernelMeanMatching, KliepCv, LeastSquaresRatio,
     RatioEstimator,
 };
 

@@ -519,6 +519,7 @@ impl RatioEstimator for KLRatio {
                     ("cv_holds_out_source", if self.cv == KliepCv::SourceAndTarget { 1.0 } else { 0.0 }),
                 ]),
                 table,
+                ..Default::default()
             },
             meta: fit_meta(&source, &target, self.seed),
             warnings,

@@ -335,6 +335,7 @@ impl RatioEstimator for KernelMeanMatching {
                     ("median_distance", median),
                 ]),
                 table: Vec::new(),
+                ..Default::default()
             },
             meta: fit_meta(&source, &target, self.seed),
             warnings,

@@ -473,6 +473,7 @@ impl RatioEstimator for LeastSquaresRatio {
                     ("median_distance", median),
                 ]),
                 table,
+                ..Default::default()
             },
             meta: fit_meta(&source, &target, self.seed),
             warnings,

@@ -8,6 +8,8 @@
 
 pub mod kliep;
 pub mod kmm;
+pub mod auto;
+pub mod classifier;
 pub mod lsif;
 
 use crate::data::{Matrix, MatrixView, Standardizer};
@@ -19,6 +21,8 @@ use std::collections::BTreeMap;
 
 pub use kliep::{KLRatio, KliepCv};
 pub use kmm::KernelMeanMatching;
+pub use auto::{AutoRatio, UniformRatio};
+pub use classifier::{ratio_from_probabilities, ClassifierRatio, FeatureMap, Features};
 pub use lsif::LeastSquaresRatio;
 
 /// Fits a density-ratio model from a source sample and a target sample.
@@ -69,6 +73,18 @@ pub enum RatioForm {
         /// Non-negative coefficients, one per centre.
         coef: Vec<f64>,
     },
+    /// w(x) = exp(min(intercept + coef' phi(x) + log_prior_ratio, 700)): a logistic classifier of
+    /// target-vs-source rows with the class-prior correction (see [`classifier`]).
+    LogLinear {
+        /// Feature map phi applied to the standardised row.
+        map: classifier::FeatureMap,
+        /// One coefficient per mapped feature.
+        coef: Vec<f64>,
+        /// Intercept of the classifier.
+        intercept: f64,
+        /// ln(n_source / n_target) of the rows the classifier was fitted on.
+        log_prior_ratio: f64,
+    },
     /// Weights exist only for the source rows the model was fitted on (KMM).
     SourceOnly,
     /// w(x) = 1 everywhere.
@@ -93,6 +109,13 @@ pub struct Selection {
     pub chosen: BTreeMap<String, f64>,
     /// Every candidate scored, in the order they were tried.
     pub table: Vec<ScoreRow>,
+    /// When the table compares named candidate estimators ([`AutoRatio`]): the name of each row's
+    /// candidate, in table order (empty otherwise).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub labels: Vec<String>,
+    /// When the table compares named candidate estimators: the name of the chosen one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub candidate: Option<String>,
 }
 
 /// Facts about the fit, kept for audit.
@@ -199,6 +222,23 @@ impl FittedRatio {
                             *o = r.max(0.0);
                         }
                         let _ = d;
+                    });
+                Ok(())
+            }
+            RatioForm::LogLinear { map, coef, intercept, log_prior_ratio } => {
+                let p = coef.len();
+                out.par_chunks_mut(CHUNK_ROWS)
+                    .enumerate()
+                    .for_each(|(k, out_chunk)| {
+                        let start = k * CHUNK_ROWS;
+                        let mut z = vec![0.0; x.cols()];
+                        let mut phi = vec![0.0; p];
+                        for (i, o) in out_chunk.iter_mut().enumerate() {
+                            self.standardizer.transform_row(x.row(start + i), &mut z);
+                            map.map_into(&z, &mut phi);
+                            let eta = intercept + phi.iter().zip(coef).map(|(a, c)| a * c).sum::<f64>();
+                            *o = classifier::weight_from_logit(eta, *log_prior_ratio);
+                        }
                     });
                 Ok(())
             }
@@ -313,7 +353,26 @@ impl FittedRatio {
                     return Err(Error::ModelFile("non-finite centre or coefficient".into()));
                 }
             }
+            RatioForm::LogLinear { map, coef, intercept, log_prior_ratio } => {
+                map.check(d)?;
+                if coef.len() != map.dim(d) {
+                    return Err(Error::ModelFile(format!(
+                        "{} coefficients for {} mapped features ({} map of {d} features)",
+                        coef.len(),
+                        map.dim(d),
+                        map.name()
+                    )));
+                }
+                if coef.iter().chain([intercept, log_prior_ratio]).any(|v| !v.is_finite()) {
+                    return Err(Error::ModelFile("non-finite classifier coefficient, intercept or prior".into()));
+                }
+            }
             RatioForm::SourceOnly | RatioForm::Uniform => {}
+        }
+        if let (Some(c), false) = (&self.selection.candidate, self.selection.labels.is_empty()) {
+            if !self.selection.labels.contains(c) {
+                return Err(Error::ModelFile(format!("chosen candidate {c:?} is not in the score table")));
+            }
         }
         Ok(())
     }

@@ -1,0 +1,475 @@
+//! Data-driven choice among ratio estimators by the held-out least-squares criterion.
+//!
+//! For any candidate ratio w, the Pearson (least-squares) criterion
+//!
+//! ```text
+//! J(w) = 1/2 E_source[w(x)^2] - E_target[w(x)]  =  1/2 E_source[(w - w*)^2] - 1/2 E_source[w*^2]
+//! ```
+//!
+//! differs from the squared error to the true ratio w* only by a constant, so it ranks estimators
+//! by accuracy without any labels (Kanamori, Hido, Sugiyama 2009, JMLR 10, section 3; it is the
+//! criterion uLSIF minimises). It is estimated on held-out rows: source and target rows are each
+//! split into `folds` seeded folds; every candidate is fitted on the other folds of both samples
+//! (choosing its own hyperparameters there by its own criterion) and J is computed on the
+//! held-out fold of both samples; the table reports the mean over folds and its standard error
+//! (sd / sqrt(folds)). The chosen candidate is refitted on all rows.
+//!
+//! Uniform weights (w = 1, "no correction", J = -1/2 exactly) are always scored. A candidate is
+//! chosen over them only if its mean score is lower by more than `se_margin` of its standard errors
+//! (default 1; a one-standard-error rule, common practice), so with no real shift the choice is
+//! "no correction" and the fitted model says so in a warning. The choice is therefore never worse
+//! than not weighting, as measured by this criterion.
+//!
+//! Candidates are named, boxed estimators: any [`RatioEstimator`] that scores new rows can enter.
+//! KMM cannot: it is transductive (weights exist only for the rows it was fitted on), so it has no
+//! value at held-out rows and no held-out score. A candidate that fails in any fold (for example a
+//! transductive one, or a solver that does not converge) gets an infinite score and a warning.
+//!
+//! Complexity: folds x (cost of fitting and scoring every candidate on (folds-1)/folds of the
+//! rows), plus one refit of the winner. Folds run one after another with the candidates in
+//! parallel; memory is one copy of the rows for the current fold.
+
+use super::classifier::{ClassifierRatio, Features};
+use super::{
+    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, LeastSquaresRatio,
+    RatioEstimator, RatioForm, ScoreRow, Selection,
+};
+use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
+use crate::error::{Error, Result};
+use rayon::prelude::*;
+
+/// Uniform weights w = 1: the "no correction" baseline.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct UniformRatio;
+
+impl RatioEstimator for UniformRatio {
+    fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
+        validate_pair(&source, &target, 1)?;
+        let (st, _, _, warnings) = standardise_pair(source, target);
+        Ok(FittedRatio {
+            kind: EstimatorKind::Uniform,
+            standardizer: st,
+            form: RatioForm::Uniform,
+            source_weights: vec![1.0; source.rows()],
+            selection: Selection {
+                criterion: "none (uniform weights)".into(),
+                ..Default::default()
+            },
+            meta: fit_meta(&source, &target, 0),
+            warnings,
+        })
+    }
+}
+
+/// A named candidate estimator.
+pub struct Candidate {
+    /// Name shown in the score table (unique within one [`AutoRatio`]).
+    pub name: String,
+    /// The estimator; it must score new rows.
+    pub estimator: Box<dyn RatioEstimator + Send + Sync>,
+}
+
+impl std::fmt::Debug for Candidate {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Candidate")
+            .field("name", &self.name)
+            .finish_non_exhaustive()
+    }
+}
+
+/// Name of the always-present baseline in the score table.
+pub const UNIFORM_NAME: &str = "uniform";
+
+/// The default candidates, seeded with `seed`. Adding an estimator is one line here.
+///
+/// The linear and quadratic classifiers choose their penalty by out-of-fold log-loss (with the
+/// fixed default l2 = 1, small samples under-fit the curvature of the log-ratio and the weights
+/// blow up in the tails); the Fourier classifier keeps l2 = 1 to bound the cost.
+pub fn default_candidates(seed: u64) -> Vec<Candidate> {
+    fn c(name: &str, e: impl RatioEstimator + Send + Sync + 'static) -> Candidate {
+        Candidate {
+            name: name.into(),
+            estimator: Box::new(e),
+        }
+    }
+    vec![
+        c("ulsif", LeastSquaresRatio::new().seed(seed)),
+        c(
+            "rulsif_alpha_0.1",
+            LeastSquaresRatio::new().alpha(0.1).seed(seed),
+        ),
+        c(
+            "classifier_linear",
+            ClassifierRatio::new().l2(None).seed(seed),
+        ),
+        c(
+            "classifier_quadratic",
+            ClassifierRatio::new()
+                .features(Features::Quadratic)
+                .l2(None)
+                .seed(seed),
+        ),
+        c(
+            "classifier_fourier",
+            ClassifierRatio::new()
+                .features(Features::Fourier)
+                .seed(seed),
+        ),
+    ]
+}
+
+/// Automatic choice among ratio estimators. Build with [`AutoRatio::new`] and the setters.
+#[derive(Debug)]
+pub struct AutoRatio {
+    /// Include [`default_candidates`] (default true).
+    pub use_defaults: bool,
+    /// Further candidates, scored after the defaults.
+    pub candidates: Vec<Candidate>,
+    /// Number of held-out folds (default 5, at least 2).
+    pub folds: usize,
+    /// Seed of the folds and of the default candidates (default 0).
+    pub seed: u64,
+    /// How many standard errors a candidate must beat uniform weights by (default 1, >= 0).
+    pub se_margin: f64,
+}
+
+impl Default for AutoRatio {
+    fn default() -> Self {
+        Self {
+            use_defaults: true,
+            candidates: Vec::new(),
+            folds: 5,
+            seed: 0,
+            se_margin: 1.0,
+        }
+    }
+}
+
+/// Held-out score of one candidate.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CandidateScore {
+    /// Candidate name.
+    pub name: String,
+    /// Mean held-out J over folds (lower is better; infinite when the candidate failed).
+    pub mean: f64,
+    /// Standard error of the mean over folds.
+    pub std_error: f64,
+    /// J on each fold.
+    pub per_fold: Vec<f64>,
+    /// The failure message, when the candidate failed in some fold.
+    pub error: Option<String>,
+}
+
+/// J(w) = 1/2 mean(w_source^2) - mean(w_target): the held-out least-squares criterion.
+pub fn least_squares_criterion(w_source: &[f64], w_target: &[f64]) -> f64 {
+    let a = w_source.iter().map(|w| w * w).sum::<f64>() / w_source.len().max(1) as f64;
+    let b = w_target.iter().sum::<f64>() / w_target.len().max(1) as f64;
+    0.5 * a - b
+}
+
+impl AutoRatio {
+    /// Defaults: the default candidates plus uniform weights, 5 folds, seed 0, margin 1 SE.
+    pub fn new() -> Self {
+        Self::default()
+    }
+    /// Only uniform weights and the candidates added with [`AutoRatio::candidate`].
+    pub fn without_defaults(mut self) -> Self {
+        self.use_defaults = false;
+        self
+    }
+    /// Adds a named candidate.
+    pub fn candidate(
+        mut self,
+        name: &str,
+        estimator: impl RatioEstimator + Send + Sync + 'static,
+    ) -> Self {
+        self.candidates.push(Candidate {
+            name: name.into(),
+            estimator: Box::new(estimator),
+        });
+        self
+    }
+    /// Adds a named, already boxed candidate.
+    pub fn boxed_candidate(
+        mut self,
+        name: &str,
+        estimator: Box<dyn RatioEstimator + Send + Sync>,
+    ) -> Self {
+        self.candidates.push(Candidate {
+            name: name.into(),
+            estimator,
+        });
+        self
+    }
+    /// Held-out folds (>= 2).
+    pub fn folds(mut self, k: usize) -> Self {
+        self.folds = k;
+        self
+    }
+    /// Seed of the folds and of the default candidates.
+    pub fn seed(mut self, seed: u64) -> Self {
+        self.seed = seed;
+        self
+    }
+    /// Standard errors by which a candidate must beat uniform weights (>= 0).
+    pub fn se_margin(mut self, m: f64) -> Self {
+        self.se_margin = m;
+        self
+    }
+
+    /// Rejects out-of-range settings with an error naming the parameter.
+    pub fn check(&self) -> Result<()> {
+        if self.folds < 2 {
+            return Err(Error::param(
+                "folds",
+                format!("must be at least 2, got {}", self.folds),
+            ));
+        }
+        if !(self.se_margin.is_finite() && self.se_margin >= 0.0) {
+            return Err(Error::param(
+                "se_margin",
+                format!("must be finite and >= 0, got {}", self.se_margin),
+            ));
+        }
+        let mut seen = vec![UNIFORM_NAME.to_string()];
+        for c in &self.candidates {
+            if c.name.is_empty()
+                || seen.contains(&c.name)
+                || (self.use_defaults && is_default_name(&c.name))
+            {
+                return Err(Error::param(
+                    "candidates",
+                    format!("candidate name {:?} is empty or used twice (\"{UNIFORM_NAME}\" is always present)", c.name),
+                ));
+            }
+            seen.push(c.name.clone());
+        }
+        Ok(())
+    }
+
+    /// Scores uniform weights and every candidate on held-out folds (see the module docs).
+    /// Returns the scores, uniform first, and the index of the chosen one.
+    pub fn evaluate(
+        &self,
+        source: MatrixView,
+        target: MatrixView,
+    ) -> Result<(Vec<CandidateScore>, usize)> {
+        self.check()?;
+        validate_pair(&source, &target, self.folds)?;
+        let defaults = if self.use_defaults {
+            default_candidates(self.seed)
+        } else {
+            Vec::new()
+        };
+        let all: Vec<&Candidate> = defaults.iter().chain(&self.candidates).collect();
+        let k = self.folds;
+        let fold_s = kfold_assignment(source.rows(), k, self.seed ^ 0x6175_746f_73)?;
+        let fold_t = kfold_assignment(target.rows(), k, self.seed ^ 0x6175_746f_74)?;
+        let split = |x: MatrixView, fold: &[usize], j: usize| -> (Matrix, Matrix) {
+            let (inside, held): (Vec<usize>, Vec<usize>) =
+                (0..x.rows()).partition(|i| fold[*i] != j);
+            (x.select_rows(&inside), x.select_rows(&held))
+        };
+        let mut per: Vec<Vec<std::result::Result<f64, String>>> =
+            vec![Vec::with_capacity(k); all.len()];
+        for j in 0..k {
+            let (tr_s, te_s) = split(source, &fold_s, j);
+            let (tr_t, te_t) = split(target, &fold_t, j);
+            let scores: Vec<std::result::Result<f64, String>> = all
+                .par_iter()
+                .map(|c| {
+                    let m = c
+                        .estimator
+                        .fit(tr_s.view(), tr_t.view())
+                        .map_err(|e| e.to_string())?;
+                    let ws = m.ratio(te_s.view()).map_err(|e| e.to_string())?;
+                    let wt = m.ratio(te_t.view()).map_err(|e| e.to_string())?;
+                    let score = least_squares_criterion(&ws, &wt);
+                    if score.is_finite() {
+                        Ok(score)
+                    } else {
+                        Err("held-out weights are not finite".into())
+                    }
+                })
+                .collect();
+            for (p, s) in per.iter_mut().zip(scores) {
+                p.push(s);
+            }
+        }
+        let mut out = vec![CandidateScore {
+            name: UNIFORM_NAME.into(),
+            mean: -0.5,
+            std_error: 0.0,
+            per_fold: vec![-0.5; k],
+            error: None,
+        }];
+        for (c, p) in all.iter().zip(per) {
+            let error = p.iter().find_map(|r| r.as_ref().err().cloned());
+            let per_fold: Vec<f64> = p.into_iter().map(|r| r.unwrap_or(f64::INFINITY)).collect();
+            let (mean, std_error) = if error.is_some() {
+                (f64::INFINITY, f64::NAN)
+            } else {
+                let mean = per_fold.iter().sum::<f64>() / k as f64;
+                let var = per_fold.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (k - 1) as f64;
+                (mean, (var / k as f64).sqrt())
+            };
+            out.push(CandidateScore {
+                name: c.name.clone(),
+                mean,
+                std_error,
+                per_fold,
+                error,
+            });
+        }
+        let mut best = 0;
+        for (i, s) in out.iter().enumerate().skip(1) {
+            if s.mean < out[best].mean {
+                best = i;
+            }
+        }
+        if best != 0 && out[best].mean + self.se_margin * out[best].std_error >= out[0].mean {
+            best = 0;
+        }
+        Ok((out, best))
+    }
+}
+
+fn is_default_name(name: &str) -> bool {
+    default_candidates(0).iter().any(|c| c.name == name)
+}
+
+impl RatioEstimator for AutoRatio {
+    fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
+        let (scores, best) = self.evaluate(source, target)?;
+        let name = scores[best].name.clone();
+        let mut fitted = if best == 0 {
+            UniformRatio.fit(source, target)?
+        } else {
+            let defaults = if self.use_defaults {
+                default_candidates(self.seed)
+            } else {
+                Vec::new()
+            };
+            let c = defaults
+                .iter()
+                .chain(&self.candidates)
+                .find(|c| c.name == name)
+                .expect("the chosen name comes from this list");
+            c.estimator.fit(source, target)?
+        };
+        let mut warnings = Vec::new();
+        for s in &scores {
+            if let Some(e) = &s.error {
+                warnings.push(format!(
+                    "candidate {:?} could not be scored and was skipped: {e}",
+                    s.name
+                ));
+            }
+        }
+        if best == 0 {
+            warnings.push(format!(
+                "no candidate estimator beat uniform weights (w = 1, no correction) on the held-out \
+                 least-squares criterion by more than {} standard error(s); uniform weights were chosen: \
+                 the data give no evidence that weighting would help",
+                self.se_margin
+            ));
+        }
+        fitted.warnings.extend(warnings);
+        let mut chosen = fitted.selection.chosen.clone();
+        chosen.insert("folds".into(), self.folds as f64);
+        chosen.insert("se_margin".into(), self.se_margin);
+        fitted.selection = Selection {
+            criterion:
+                "held-out least-squares criterion J(w) = 1/2 mean_source(w^2) - mean_target(w), \
+                        mean over folds (lower is better)"
+                    .into(),
+            chosen,
+            table: scores
+                .iter()
+                .map(|s| ScoreRow {
+                    params: params([("std_error", s.std_error)]),
+                    score: s.mean,
+                })
+                .collect(),
+            labels: scores.iter().map(|s| s.name.clone()).collect(),
+            candidate: Some(name),
+        };
+        fitted.meta.seed = self.seed;
+        Ok(fitted)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::kernel;
+    use rand_distr::{Distribution, Normal};
+
+    fn gaussian(n: usize, d: usize, mean: f64, seed: u64) -> Vec<f64> {
+        let mut r = kernel::rng(seed);
+        let g = Normal::new(mean, 1.0).unwrap();
+        (0..n * d).map(|_| g.sample(&mut r)).collect()
+    }
+
+    #[test]
+    fn criterion_of_uniform_is_minus_half() {
+        // J(1) = 1/2 - 1 by the definition of the criterion (Kanamori et al. 2009).
+        assert_eq!(least_squares_criterion(&[1.0; 4], &[1.0; 3]), -0.5);
+    }
+
+    #[test]
+    fn picks_a_weighting_estimator_under_shift_and_uniform_without() {
+        let s = gaussian(300, 2, 0.0, 1);
+        let t = gaussian(300, 2, 1.0, 2);
+        let (sv, tv) = (
+            MatrixView::new(&s, 300, 2).unwrap(),
+            MatrixView::new(&t, 300, 2).unwrap(),
+        );
+        let auto = AutoRatio::new()
+            .without_defaults()
+            .candidate("classifier_linear", ClassifierRatio::new())
+            .candidate("ulsif", LeastSquaresRatio::new().n_basis(50));
+        let m = auto.fit(sv, tv).unwrap();
+        assert_ne!(m.selection.candidate.as_deref(), Some(UNIFORM_NAME));
+        assert_eq!(
+            m.selection.labels,
+            vec!["uniform", "classifier_linear", "ulsif"]
+        );
+        assert_eq!(m.selection.table[0].score, -0.5);
+        assert!(m.selection.table[1].score < -0.5);
+        let again = FittedRatio::from_json(&m.to_json().unwrap()).unwrap();
+        assert_eq!(again.selection, m.selection);
+
+        let same = gaussian(300, 2, 0.0, 3);
+        let m0 = AutoRatio::new()
+            .without_defaults()
+            .candidate("classifier_linear", ClassifierRatio::new())
+            .fit(sv, MatrixView::new(&same, 300, 2).unwrap())
+            .unwrap();
+        assert_eq!(m0.selection.candidate.as_deref(), Some(UNIFORM_NAME));
+        assert_eq!(m0.kind, EstimatorKind::Uniform);
+        assert!(m0
+            .warnings
+            .iter()
+            .any(|w| w.contains("no candidate estimator beat uniform")));
+    }
+
+    #[test]
+    fn duplicate_names_and_bad_settings_are_rejected() {
+        let a = AutoRatio::new().candidate("ulsif", LeastSquaresRatio::new());
+        assert!(a.check().is_err());
+        let b = AutoRatio::new()
+            .without_defaults()
+            .candidate("uniform", UniformRatio);
+        assert!(b.check().is_err());
+        assert!(AutoRatio::new().folds(1).check().is_err());
+        assert!(AutoRatio::new().se_margin(-1.0).check().is_err());
+    }
+
+    #[test]
+    fn auto_ratio_is_send_and_sync() {
+        fn is<T: Send + Sync>() {}
+        is::<AutoRatio>();
+        is::<FittedRatio>();
+    }
+}
