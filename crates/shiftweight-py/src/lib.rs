@@ -8,8 +8,11 @@ use pyo3::prelude::*;
 use shiftweight::{Error, MatrixView};
 use std::panic::{catch_unwind, AssertUnwindSafe};
 
+mod conformal;
+mod data;
 mod demo;
 mod learn;
+mod metrics;
 mod ratio;
 
 create_exception!(
@@ -120,5 +123,8 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     ratio::register(m)?;
     learn::register(m)?;
     demo::register(m)?;
+    data::register(m)?;
+    metrics::register(m)?;
+    conformal::register(m)?;
     Ok(())
 }
