@@ -5,7 +5,12 @@ use numpy::{IntoPyArray, PyArray1, PyArray2, PyArrayMethods, PyReadonlyArray1, P
 use pyo3::prelude::*;
 use shiftweight::conformal;
 
-type Intervals<'py> = (Bound<'py, PyArray1<f64>>, Bound<'py, PyArray1<f64>>, Bound<'py, PyArray1<f64>>, usize);
+type Intervals<'py> = (
+    Bound<'py, PyArray1<f64>>,
+    Bound<'py, PyArray1<f64>>,
+    Bound<'py, PyArray1<f64>>,
+    usize,
+);
 
 fn opt<'a>(w: &'a Option<PyReadonlyArray1<'_, f64>>, name: &str) -> PyResult<Option<&'a [f64]>> {
     match w {
@@ -31,8 +36,15 @@ fn conformal_intervals<'py>(
     let cw = opt(&cal_weights, "cal_weights")?;
     let p = vector(&pred, "predictions")?;
     let w = opt(&weights, "weights")?;
-    let r = detached(py, move || conformal::regression_intervals(y, pc, cw, p, w, alpha))?;
-    Ok((r.lower.into_pyarray(py), r.upper.into_pyarray(py), r.threshold.into_pyarray(py), r.n_infinite))
+    let r = detached(py, move || {
+        conformal::regression_intervals(y, pc, cw, p, w, alpha)
+    })?;
+    Ok((
+        r.lower.into_pyarray(py),
+        r.upper.into_pyarray(py),
+        r.threshold.into_pyarray(py),
+        r.n_infinite,
+    ))
 }
 
 /// Class sets: (membership matrix m x k of bool, threshold, n_infinite).
@@ -54,12 +66,11 @@ fn conformal_sets<'py>(
     let p = view(&proba, "probabilities")?;
     let w = opt(&weights, "weights")?;
     let m = p.rows();
-    let r = detached(py, move || conformal::classification_sets(pc, y, cw, p, w, alpha))?;
+    let r = detached(py, move || {
+        conformal::classification_sets(pc, y, cw, p, w, alpha)
+    })?;
     let k = r.n_classes;
-    let members = r
-        .members
-        .into_pyarray(py)
-        .reshape([m, k])?;
+    let members = r.members.into_pyarray(py).reshape([m, k])?;
     Ok((members, r.threshold.into_pyarray(py), r.n_infinite))
 }
 

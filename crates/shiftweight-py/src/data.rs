@@ -6,9 +6,17 @@ use pyo3::prelude::*;
 
 /// Fold index (0..k) of each of `n` rows, in a seeded random order (`data::kfold_assignment`).
 #[pyfunction]
-fn kfold_assignment(py: Python<'_>, n: usize, k: usize, seed: u64) -> PyResult<Bound<'_, PyArray1<i64>>> {
+fn kfold_assignment(
+    py: Python<'_>,
+    n: usize,
+    k: usize,
+    seed: u64,
+) -> PyResult<Bound<'_, PyArray1<i64>>> {
     let f = shiftweight::data::kfold_assignment(n, k, seed).map_err(to_py)?;
-    Ok(f.into_iter().map(|v| v as i64).collect::<Vec<i64>>().into_pyarray(py))
+    Ok(f.into_iter()
+        .map(|v| v as i64)
+        .collect::<Vec<i64>>()
+        .into_pyarray(py))
 }
 
 /// Checks importance weights (`data::validate_weights`): length, finite, non-negative, not all zero.

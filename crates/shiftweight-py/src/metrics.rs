@@ -14,7 +14,9 @@ fn folds(arr: &PyReadonlyArray1<'_, i64>) -> PyResult<Vec<usize>> {
     s.iter()
         .enumerate()
         .map(|(i, &f)| {
-            usize::try_from(f).map_err(|_| ShiftweightError::new_err(format!("`fold` entry {i} is negative ({f})")))
+            usize::try_from(f).map_err(|_| {
+                ShiftweightError::new_err(format!("`fold` entry {i} is negative ({f})"))
+            })
         })
         .collect()
 }
@@ -35,7 +37,11 @@ fn cv_dict<'py>(py: Python<'py>, cv: &CrossValidated) -> PyResult<Bound<'py, PyD
     d.set_item("std_error", cv.std_error)?;
     d.set_item("unweighted_estimate", cv.unweighted_estimate)?;
     d.set_item("unweighted_std_error", cv.unweighted_std_error)?;
-    let folds: Vec<Bound<'py, PyDict>> = cv.per_fold.iter().map(|m| mean_dict(py, m)).collect::<PyResult<_>>()?;
+    let folds: Vec<Bound<'py, PyDict>> = cv
+        .per_fold
+        .iter()
+        .map(|m| mean_dict(py, m))
+        .collect::<PyResult<_>>()?;
     d.set_item("per_fold", folds)?;
     d.set_item("per_fold_unweighted", cv.per_fold_unweighted.clone())?;
     Ok(d)
@@ -101,7 +107,9 @@ fn compare_weighting<'py>(
     let b = vector(&without_weights, "without_weights")?;
     let w = vector(&weights, "weights")?;
     let f = folds(&fold)?;
-    let c = detached(py, move || metrics::compare_weighting(a, b, w, &f, n_folds, greater_is_better, z))?;
+    let c = detached(py, move || {
+        metrics::compare_weighting(a, b, w, &f, n_folds, greater_is_better, z)
+    })?;
     let d = PyDict::new(py);
     d.set_item("weighted", cv_dict(py, &c.weighted)?)?;
     d.set_item("unweighted", cv_dict(py, &c.unweighted)?)?;
@@ -119,8 +127,9 @@ fn compare_weighting_per_fold(
     greater_is_better: bool,
     z: f64,
 ) -> PyResult<(f64, f64, &'static str)> {
-    let (m, se, v) = metrics::compare_weighting_per_fold(&with_weights, &without_weights, greater_is_better, z)
-        .map_err(crate::to_py)?;
+    let (m, se, v) =
+        metrics::compare_weighting_per_fold(&with_weights, &without_weights, greater_is_better, z)
+            .map_err(crate::to_py)?;
     Ok((m, se, v.name()))
 }
 
@@ -150,7 +159,9 @@ fn metric_interval<'py>(
             )))
         }
     };
-    let r = detached(py, move || metrics::metric_interval(v, w, confidence, method, n_boot, seed))?;
+    let r = detached(py, move || {
+        metrics::metric_interval(v, w, confidence, method, n_boot, seed)
+    })?;
     let d = mean_dict(py, &r.summary)?;
     d.set_item("lower", r.lower)?;
     d.set_item("upper", r.upper)?;

@@ -12,14 +12,20 @@ use std::time::Duration;
 /// Seeded rows, labels from a logistic model, and exponential-like positive weights.
 fn data(n: usize, d: usize, seed: u64) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
     let mut r = shiftweight::kernel::rng(seed);
-    let beta: Vec<f64> = (0..d).map(|j| if j % 2 == 0 { 0.5 } else { -0.3 }).collect();
+    let beta: Vec<f64> = (0..d)
+        .map(|j| if j % 2 == 0 { 0.5 } else { -0.3 })
+        .collect();
     let mut x = Vec::with_capacity(n * d);
     let mut y = Vec::with_capacity(n);
     let mut w = Vec::with_capacity(n);
     for _ in 0..n {
         let row: Vec<f64> = (0..d).map(|_| r.random_range(-2.0..2.0)).collect();
         let eta: f64 = row.iter().zip(&beta).map(|(a, b)| a * b).sum();
-        y.push(if r.random::<f64>() < sigmoid(eta) { 1.0 } else { 0.0 });
+        y.push(if r.random::<f64>() < sigmoid(eta) {
+            1.0
+        } else {
+            0.0
+        });
         w.push(-(1.0 - r.random::<f64>()).ln());
         x.extend(row);
     }
@@ -33,7 +39,14 @@ fn weighted_logistic(c: &mut Criterion) {
     let mut g = c.benchmark_group("weighted_logistic");
     g.sample_size(10).measurement_time(Duration::from_secs(20));
     g.bench_function("n=1e6,d=20,l2=1", |b| {
-        b.iter(|| black_box(WeightedLogistic::new().l2(1.0).fit(view, &y, Some(&w)).expect("fit")))
+        b.iter(|| {
+            black_box(
+                WeightedLogistic::new()
+                    .l2(1.0)
+                    .fit(view, &y, Some(&w))
+                    .expect("fit"),
+            )
+        })
     });
     g.finish();
 }

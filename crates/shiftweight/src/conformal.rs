@@ -39,10 +39,19 @@ impl Calibration {
     fn new(scores: &[f64], weights: Option<&[f64]>) -> Result<Self> {
         let n = scores.len();
         if n == 0 {
-            return Err(Error::TooFewRows { argument: "calibration rows".into(), found: 0, required: 1 });
+            return Err(Error::TooFewRows {
+                argument: "calibration rows".into(),
+                found: 0,
+                required: 1,
+            });
         }
         if let Some(i) = scores.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite { argument: "calibration scores".into(), row: i, column: 0, value: scores[i] });
+            return Err(Error::NonFinite {
+                argument: "calibration scores".into(),
+                row: i,
+                column: 0,
+                value: scores[i],
+            });
         }
         if let Some(w) = weights {
             validate_weights(w, n, "cal_weights")?;
@@ -55,7 +64,11 @@ impl Calibration {
             acc += weights.map_or(1.0, |w| w[i]);
             cumulative.push(acc);
         }
-        Ok(Self { scores: order.iter().map(|&i| scores[i]).collect(), cumulative, total: acc })
+        Ok(Self {
+            scores: order.iter().map(|&i| scores[i]).collect(),
+            cumulative,
+            total: acc,
+        })
     }
 
     /// The (1 - alpha)-quantile of sum_i p_i delta_{s_i} + p_x delta_{+inf}.
@@ -75,7 +88,10 @@ impl Calibration {
 
 fn check_alpha(alpha: f64) -> Result<()> {
     if !(alpha > 0.0 && alpha < 1.0) {
-        return Err(Error::param("alpha", format!("the miscoverage level must lie strictly between 0 and 1, got {alpha}")));
+        return Err(Error::param(
+            "alpha",
+            format!("the miscoverage level must lie strictly between 0 and 1, got {alpha}"),
+        ));
     }
     Ok(())
 }
@@ -83,7 +99,11 @@ fn check_alpha(alpha: f64) -> Result<()> {
 fn check_new_weights(w: Option<&[f64]>, m: usize) -> Result<()> {
     if let Some(w) = w {
         if w.len() != m {
-            return Err(Error::LengthMismatch { argument: "weights".into(), expected: m, found: w.len() });
+            return Err(Error::LengthMismatch {
+                argument: "weights".into(),
+                expected: m,
+                found: w.len(),
+            });
         }
         if let Some(i) = w.iter().position(|v| !v.is_finite() || *v < 0.0) {
             return Err(Error::InvalidWeights {
@@ -120,7 +140,11 @@ pub fn regression_intervals(
 ) -> Result<ConformalIntervals> {
     check_alpha(alpha)?;
     if pred_cal.len() != y_cal.len() {
-        return Err(Error::LengthMismatch { argument: "calibration predictions".into(), expected: y_cal.len(), found: pred_cal.len() });
+        return Err(Error::LengthMismatch {
+            argument: "calibration predictions".into(),
+            expected: y_cal.len(),
+            found: pred_cal.len(),
+        });
     }
     if cal_weights.is_some() != weights.is_some() {
         return Err(Error::param(
@@ -129,17 +153,32 @@ pub fn regression_intervals(
         ));
     }
     if let Some(i) = pred.iter().position(|v| !v.is_finite()) {
-        return Err(Error::NonFinite { argument: "predictions".into(), row: i, column: 0, value: pred[i] });
+        return Err(Error::NonFinite {
+            argument: "predictions".into(),
+            row: i,
+            column: 0,
+            value: pred[i],
+        });
     }
     check_new_weights(weights, pred.len())?;
-    let scores: Vec<f64> = y_cal.iter().zip(pred_cal).map(|(y, p)| (y - p).abs()).collect();
+    let scores: Vec<f64> = y_cal
+        .iter()
+        .zip(pred_cal)
+        .map(|(y, p)| (y - p).abs())
+        .collect();
     let cal = Calibration::new(&scores, cal_weights)?;
-    let threshold: Vec<f64> =
-        (0..pred.len()).map(|j| cal.threshold(weights.map_or(1.0, |w| w[j]), alpha)).collect();
+    let threshold: Vec<f64> = (0..pred.len())
+        .map(|j| cal.threshold(weights.map_or(1.0, |w| w[j]), alpha))
+        .collect();
     let lower = pred.iter().zip(&threshold).map(|(p, q)| p - q).collect();
     let upper = pred.iter().zip(&threshold).map(|(p, q)| p + q).collect();
     let n_infinite = threshold.iter().filter(|q| q.is_infinite()).count();
-    Ok(ConformalIntervals { lower, upper, threshold, n_infinite })
+    Ok(ConformalIntervals {
+        lower,
+        upper,
+        threshold,
+        n_infinite,
+    })
 }
 
 /// Prediction sets for classification.
@@ -169,7 +208,11 @@ pub fn classification_sets(
     let k = proba_cal.cols();
     proba.expect_cols("probabilities of the rows to predict", k)?;
     if label_cal.len() != proba_cal.rows() {
-        return Err(Error::LengthMismatch { argument: "y_cal".into(), expected: proba_cal.rows(), found: label_cal.len() });
+        return Err(Error::LengthMismatch {
+            argument: "y_cal".into(),
+            expected: proba_cal.rows(),
+            found: label_cal.len(),
+        });
     }
     if cal_weights.is_some() != weights.is_some() {
         return Err(Error::param(
@@ -183,7 +226,10 @@ pub fn classification_sets(
     let mut scores = Vec::with_capacity(label_cal.len());
     for (i, &y) in label_cal.iter().enumerate() {
         if y < 0.0 || y.fract() != 0.0 || y as usize >= k {
-            return Err(Error::param("y_cal", format!("row {i} has class index {y}, expected an integer in 0..{k}")));
+            return Err(Error::param(
+                "y_cal",
+                format!("row {i} has class index {y}, expected an integer in 0..{k}"),
+            ));
         }
         scores.push(1.0 - proba_cal.row(i)[y as usize]);
     }
@@ -197,7 +243,12 @@ pub fn classification_sets(
         threshold.push(q);
     }
     let n_infinite = threshold.iter().filter(|q| q.is_infinite()).count();
-    Ok(ConformalSets { members, n_classes: k, threshold, n_infinite })
+    Ok(ConformalSets {
+        members,
+        n_classes: k,
+        threshold,
+        n_infinite,
+    })
 }
 
 #[cfg(test)]
@@ -212,13 +263,23 @@ mod tests {
         assert_eq!(r.threshold, vec![8.0]);
         // alpha = 0.05: ceil(0.95 * 10) = 10 > 9: infinite.
         let r = regression_intervals(&y, &[0.0; 9], None, &[0.0, 1.0], None, 0.05).unwrap();
-        assert!(r.threshold[0].is_infinite() && r.n_infinite == 2 && r.lower[1] == f64::NEG_INFINITY);
+        assert!(
+            r.threshold[0].is_infinite() && r.n_infinite == 2 && r.lower[1] == f64::NEG_INFINITY
+        );
     }
 
     #[test]
     fn heavy_new_row_weight_gives_infinite_interval() {
         let y: Vec<f64> = (1..=9).map(f64::from).collect();
-        let r = regression_intervals(&y, &[0.0; 9], Some(&[1.0; 9]), &[0.0, 0.0], Some(&[0.5, 50.0]), 0.2).unwrap();
+        let r = regression_intervals(
+            &y,
+            &[0.0; 9],
+            Some(&[1.0; 9]),
+            &[0.0, 0.0],
+            Some(&[0.5, 50.0]),
+            0.2,
+        )
+        .unwrap();
         assert!(r.threshold[0].is_finite() && r.threshold[1].is_infinite());
     }
 
@@ -226,6 +287,8 @@ mod tests {
     fn bad_inputs_are_named() {
         assert!(regression_intervals(&[1.0], &[1.0], None, &[0.0], None, 1.5).is_err());
         assert!(regression_intervals(&[1.0], &[1.0], Some(&[1.0]), &[0.0], None, 0.1).is_err());
-        assert!(regression_intervals(&[1.0], &[1.0], Some(&[1.0]), &[0.0], Some(&[-1.0]), 0.1).is_err());
+        assert!(
+            regression_intervals(&[1.0], &[1.0], Some(&[1.0]), &[0.0], Some(&[-1.0]), 0.1).is_err()
+        );
     }
 }

@@ -80,10 +80,16 @@ impl Metric {
 
     /// Parses a metric name (see [`Metric::name`]).
     pub fn from_name(name: &str) -> Result<Self> {
-        Self::ALL.into_iter().find(|m| m.name() == name).ok_or_else(|| {
-            let names: Vec<&str> = Self::ALL.iter().map(|m| m.name()).collect();
-            Error::param("scoring", format!("unknown metric {name:?}; use one of {names:?}"))
-        })
+        Self::ALL
+            .into_iter()
+            .find(|m| m.name() == name)
+            .ok_or_else(|| {
+                let names: Vec<&str> = Self::ALL.iter().map(|m| m.name()).collect();
+                Error::param(
+                    "scoring",
+                    format!("unknown metric {name:?}; use one of {names:?}"),
+                )
+            })
     }
 
     /// True when larger values are better (accuracy); false for losses.
@@ -105,38 +111,77 @@ impl Metric {
     pub fn row_values(&self, y_true: &[f64], pred: MatrixView) -> Result<Vec<f64>> {
         let n = pred.rows();
         if y_true.len() != n {
-            return Err(Error::LengthMismatch { argument: "y_true".into(), expected: n, found: y_true.len() });
+            return Err(Error::LengthMismatch {
+                argument: "y_true".into(),
+                expected: n,
+                found: y_true.len(),
+            });
         }
         if let Some(i) = y_true.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite { argument: "y_true".into(), row: i, column: 0, value: y_true[i] });
+            return Err(Error::NonFinite {
+                argument: "y_true".into(),
+                row: i,
+                column: 0,
+                value: y_true[i],
+            });
         }
         pred.validate("y_pred", 0)?;
         if self.needs_probabilities() {
             let k = pred.cols();
             if k < 2 {
-                return Err(Error::param("y_pred", format!("{} needs a probability column per class (at least 2), got {k}", self.name())));
+                return Err(Error::param(
+                    "y_pred",
+                    format!(
+                        "{} needs a probability column per class (at least 2), got {k}",
+                        self.name()
+                    ),
+                ));
             }
             if *self == Metric::Brier && k != 2 {
                 return Err(Error::param("y_pred", format!("the Brier score is defined here for two classes, got {k} probability columns")));
             }
-            if let Some(pos) = pred.as_slice().iter().position(|p| !(0.0..=1.0).contains(p)) {
-                return Err(Error::param("y_pred", format!("probabilities must lie in [0, 1]; row {}, column {} has {}", pos / k, pos % k, pred.as_slice()[pos])));
+            if let Some(pos) = pred
+                .as_slice()
+                .iter()
+                .position(|p| !(0.0..=1.0).contains(p))
+            {
+                return Err(Error::param(
+                    "y_pred",
+                    format!(
+                        "probabilities must lie in [0, 1]; row {}, column {} has {}",
+                        pos / k,
+                        pos % k,
+                        pred.as_slice()[pos]
+                    ),
+                ));
             }
             let mut out = Vec::with_capacity(n);
             for (i, &y) in y_true.iter().enumerate() {
                 if y < 0.0 || y.fract() != 0.0 || y as usize >= k {
-                    return Err(Error::param("y_true", format!("row {i} has class index {y}, expected an integer in 0..{k}")));
+                    return Err(Error::param(
+                        "y_true",
+                        format!("row {i} has class index {y}, expected an integer in 0..{k}"),
+                    ));
                 }
                 let row = pred.row(i);
                 out.push(match self {
-                    Metric::LogLoss => -row[y as usize].clamp(PROBABILITY_EPS, 1.0 - PROBABILITY_EPS).ln(),
+                    Metric::LogLoss => -row[y as usize]
+                        .clamp(PROBABILITY_EPS, 1.0 - PROBABILITY_EPS)
+                        .ln(),
                     _ => (row[1] - y).powi(2),
                 });
             }
             Ok(out)
         } else {
             if pred.cols() != 1 {
-                return Err(Error::param("y_pred", format!("{} needs one prediction per row, got {} columns", self.name(), pred.cols())));
+                return Err(Error::param(
+                    "y_pred",
+                    format!(
+                        "{} needs one prediction per row, got {} columns",
+                        self.name(),
+                        pred.cols()
+                    ),
+                ));
             }
             let p = pred.as_slice();
             Ok(y_true
@@ -171,10 +216,19 @@ pub struct WeightedMean {
 pub fn weighted_mean(values: &[f64], weights: Option<&[f64]>) -> Result<WeightedMean> {
     let n = values.len();
     if n == 0 {
-        return Err(Error::TooFewRows { argument: "values".into(), found: 0, required: 1 });
+        return Err(Error::TooFewRows {
+            argument: "values".into(),
+            found: 0,
+            required: 1,
+        });
     }
     if let Some(i) = values.iter().position(|v| v.is_nan()) {
-        return Err(Error::NonFinite { argument: "values".into(), row: i, column: 0, value: values[i] });
+        return Err(Error::NonFinite {
+            argument: "values".into(),
+            row: i,
+            column: 0,
+            value: values[i],
+        });
     }
     if let Some(w) = weights {
         validate_weights(w, n, "weights")?;
@@ -203,7 +257,13 @@ pub fn weighted_mean(values: &[f64], weights: Option<&[f64]>) -> Result<Weighted
             .sum();
         (s / (sw * sw) * positive as f64 / (positive - 1) as f64).sqrt()
     };
-    Ok(WeightedMean { estimate: m, std_error, ess: sw * sw / sw2, n, total_weight: sw })
+    Ok(WeightedMean {
+        estimate: m,
+        std_error,
+        ess: sw * sw / sw2,
+        n,
+        total_weight: sw,
+    })
 }
 
 /// The result of (importance-weighted) cross-validation.
@@ -225,7 +285,11 @@ pub struct CrossValidated {
 
 fn fold_groups(n: usize, fold: &[usize], n_folds: usize) -> Result<Vec<Vec<usize>>> {
     if fold.len() != n {
-        return Err(Error::LengthMismatch { argument: "fold".into(), expected: n, found: fold.len() });
+        return Err(Error::LengthMismatch {
+            argument: "fold".into(),
+            expected: n,
+            found: fold.len(),
+        });
     }
     if n_folds == 0 {
         return Err(Error::param("n_folds", "must be at least 1"));
@@ -233,12 +297,18 @@ fn fold_groups(n: usize, fold: &[usize], n_folds: usize) -> Result<Vec<Vec<usize
     let mut groups = vec![Vec::new(); n_folds];
     for (i, &f) in fold.iter().enumerate() {
         if f >= n_folds {
-            return Err(Error::param("fold", format!("entry {i} names fold {f} but there are {n_folds} folds")));
+            return Err(Error::param(
+                "fold",
+                format!("entry {i} names fold {f} but there are {n_folds} folds"),
+            ));
         }
         groups[f].push(i);
     }
     if let Some(k) = groups.iter().position(|g| g.is_empty()) {
-        return Err(Error::param("fold", format!("fold {k} has no held-out rows")));
+        return Err(Error::param(
+            "fold",
+            format!("fold {k} has no held-out rows"),
+        ));
     }
     Ok(groups)
 }
@@ -246,7 +316,12 @@ fn fold_groups(n: usize, fold: &[usize], n_folds: usize) -> Result<Vec<Vec<usize
 /// Combines per-row held-out values into the cross-validated estimate. `fold[i]` names the fold in
 /// which value `i` was held out (a row may appear in several folds for splitters that are not
 /// partitions). Every fold needs at least one row of positive weight.
-pub fn cross_validated(values: &[f64], weights: &[f64], fold: &[usize], n_folds: usize) -> Result<CrossValidated> {
+pub fn cross_validated(
+    values: &[f64],
+    weights: &[f64],
+    fold: &[usize],
+    n_folds: usize,
+) -> Result<CrossValidated> {
     let n = values.len();
     validate_weights(weights, n, "weights")?;
     let groups = fold_groups(n, fold, n_folds)?;
@@ -269,7 +344,12 @@ pub fn cross_validated(values: &[f64], weights: &[f64], fold: &[usize], n_folds:
     }
     let kf = n_folds as f64;
     let estimate = per_fold.iter().map(|f| f.estimate).sum::<f64>() / kf;
-    let std_error = per_fold.iter().map(|f| f.std_error.powi(2)).sum::<f64>().sqrt() / kf;
+    let std_error = per_fold
+        .iter()
+        .map(|f| f.std_error.powi(2))
+        .sum::<f64>()
+        .sqrt()
+        / kf;
     let unweighted_estimate = per_fold_unweighted.iter().sum::<f64>() / kf;
     Ok(CrossValidated {
         estimate,
@@ -286,10 +366,19 @@ pub fn cross_validated(values: &[f64], weights: &[f64], fold: &[usize], n_folds:
 pub fn fold_average(per_fold: &[f64]) -> Result<(f64, f64)> {
     let k = per_fold.len();
     if k == 0 {
-        return Err(Error::TooFewRows { argument: "per_fold".into(), found: 0, required: 1 });
+        return Err(Error::TooFewRows {
+            argument: "per_fold".into(),
+            found: 0,
+            required: 1,
+        });
     }
     if let Some(i) = per_fold.iter().position(|v| !v.is_finite()) {
-        return Err(Error::NonFinite { argument: "per_fold".into(), row: i, column: 0, value: per_fold[i] });
+        return Err(Error::NonFinite {
+            argument: "per_fold".into(),
+            row: i,
+            column: 0,
+            value: per_fold[i],
+        });
     }
     let m = per_fold.iter().sum::<f64>() / k as f64;
     let se = if k < 2 {
@@ -362,17 +451,35 @@ pub fn compare_weighting(
         });
     }
     if !(z.is_finite() && z > 0.0) {
-        return Err(Error::param("z", format!("must be finite and > 0, got {z}")));
+        return Err(Error::param(
+            "z",
+            format!("must be finite and > 0, got {z}"),
+        ));
     }
     let weighted = cross_validated(with_weights, weights, fold, n_folds)?;
     let unweighted = cross_validated(without_weights, weights, fold, n_folds)?;
-    let diff: Vec<f64> = with_weights.iter().zip(without_weights).map(|(a, b)| a - b).collect();
+    let diff: Vec<f64> = with_weights
+        .iter()
+        .zip(without_weights)
+        .map(|(a, b)| a - b)
+        .collect();
     let d = cross_validated(&diff, weights, fold, n_folds)?;
-    Ok(finish_comparison(weighted, unweighted, d.estimate, d.std_error, greater_is_better, z))
+    Ok(finish_comparison(
+        weighted,
+        unweighted,
+        d.estimate,
+        d.std_error,
+        greater_is_better,
+        z,
+    ))
 }
 
 fn verdict_of(difference: f64, se: f64, greater_is_better: bool, z: f64) -> WeightingVerdict {
-    let gain = if greater_is_better { difference } else { -difference };
+    let gain = if greater_is_better {
+        difference
+    } else {
+        -difference
+    };
     if se.is_finite() && gain > z * se {
         WeightingVerdict::FavoursWeighting
     } else if se.is_finite() && -gain > z * se {
@@ -397,7 +504,15 @@ fn finish_comparison(
     z: f64,
 ) -> WeightingComparison {
     let verdict = verdict_of(difference, difference_std_error, greater_is_better, z);
-    WeightingComparison { weighted, unweighted, difference, difference_std_error, greater_is_better, verdict, z }
+    WeightingComparison {
+        weighted,
+        unweighted,
+        difference,
+        difference_std_error,
+        greater_is_better,
+        verdict,
+        z,
+    }
 }
 
 /// The same comparison from per-fold values only (user-supplied metrics): the standard error of the
@@ -416,9 +531,16 @@ pub fn compare_weighting_per_fold(
         });
     }
     if !(z.is_finite() && z > 0.0) {
-        return Err(Error::param("z", format!("must be finite and > 0, got {z}")));
+        return Err(Error::param(
+            "z",
+            format!("must be finite and > 0, got {z}"),
+        ));
     }
-    let diff: Vec<f64> = with_weights.iter().zip(without_weights).map(|(a, b)| a - b).collect();
+    let diff: Vec<f64> = with_weights
+        .iter()
+        .zip(without_weights)
+        .map(|(a, b)| a - b)
+        .collect();
     let (m, se) = fold_average(&diff)?;
     Ok((m, se, verdict_of(m, se, greater_is_better, z)))
 }
@@ -461,20 +583,34 @@ pub fn metric_interval(
     seed: u64,
 ) -> Result<MetricInterval> {
     if !(confidence > 0.0 && confidence < 1.0) {
-        return Err(Error::param("confidence", format!("must lie strictly between 0 and 1, got {confidence}")));
+        return Err(Error::param(
+            "confidence",
+            format!("must lie strictly between 0 and 1, got {confidence}"),
+        ));
     }
     let summary = weighted_mean(values, weights)?;
     if let Some(i) = values.iter().position(|v| !v.is_finite()) {
-        return Err(Error::NonFinite { argument: "values".into(), row: i, column: 0, value: values[i] });
+        return Err(Error::NonFinite {
+            argument: "values".into(),
+            row: i,
+            column: 0,
+            value: values[i],
+        });
     }
     let (lower, upper) = match method {
         IntervalMethod::Normal => {
             let z = Normal::standard().inverse_cdf(0.5 + confidence / 2.0);
-            (summary.estimate - z * summary.std_error, summary.estimate + z * summary.std_error)
+            (
+                summary.estimate - z * summary.std_error,
+                summary.estimate + z * summary.std_error,
+            )
         }
         IntervalMethod::Bootstrap => {
             if n_boot < 10 {
-                return Err(Error::param("n_boot", format!("must be at least 10, got {n_boot}")));
+                return Err(Error::param(
+                    "n_boot",
+                    format!("must be at least 10, got {n_boot}"),
+                ));
             }
             let n = values.len();
             let w = |i: usize| weights.map_or(1.0, |w| w[i]);
@@ -507,7 +643,13 @@ pub fn metric_interval(
             (quantile_sorted(&stats, a), quantile_sorted(&stats, 1.0 - a))
         }
     };
-    Ok(MetricInterval { summary, lower, upper, confidence, method })
+    Ok(MetricInterval {
+        summary,
+        lower,
+        upper,
+        confidence,
+        method,
+    })
 }
 
 /// Linear-interpolation quantile of sorted data (numpy's default rule).
@@ -543,12 +685,20 @@ mod tests {
     #[test]
     fn row_values_by_hand() {
         let p = [0.2, 0.8, 0.6, 0.4];
-        let v = Metric::LogLoss.row_values(&[1.0, 0.0], MatrixView::new(&p, 2, 2).unwrap()).unwrap();
+        let v = Metric::LogLoss
+            .row_values(&[1.0, 0.0], MatrixView::new(&p, 2, 2).unwrap())
+            .unwrap();
         assert!((v[0] + 0.8f64.ln()).abs() < 1e-15 && (v[1] + 0.6f64.ln()).abs() < 1e-15);
-        let b = Metric::Brier.row_values(&[1.0, 0.0], MatrixView::new(&p, 2, 2).unwrap()).unwrap();
+        let b = Metric::Brier
+            .row_values(&[1.0, 0.0], MatrixView::new(&p, 2, 2).unwrap())
+            .unwrap();
         assert!((b[0] - 0.04).abs() < 1e-15 && (b[1] - 0.16).abs() < 1e-15);
-        assert!(Metric::LogLoss.row_values(&[2.0, 0.0], MatrixView::new(&p, 2, 2).unwrap()).is_err());
-        let a = Metric::Accuracy.row_values(&[1.0, 2.0], MatrixView::new(&[1.0, 3.0], 2, 1).unwrap()).unwrap();
+        assert!(Metric::LogLoss
+            .row_values(&[2.0, 0.0], MatrixView::new(&p, 2, 2).unwrap())
+            .is_err());
+        let a = Metric::Accuracy
+            .row_values(&[1.0, 2.0], MatrixView::new(&[1.0, 3.0], 2, 1).unwrap())
+            .unwrap();
         assert_eq!(a, vec![1.0, 0.0]);
     }
 
@@ -565,9 +715,18 @@ mod tests {
 
     #[test]
     fn verdict_follows_the_sign_convention() {
-        assert_eq!(verdict_of(-1.0, 0.1, false, 2.0), WeightingVerdict::FavoursWeighting);
-        assert_eq!(verdict_of(-1.0, 0.1, true, 2.0), WeightingVerdict::FavoursNoWeighting);
-        assert_eq!(verdict_of(0.1, 0.1, false, 2.0), WeightingVerdict::NoClearDifference);
+        assert_eq!(
+            verdict_of(-1.0, 0.1, false, 2.0),
+            WeightingVerdict::FavoursWeighting
+        );
+        assert_eq!(
+            verdict_of(-1.0, 0.1, true, 2.0),
+            WeightingVerdict::FavoursNoWeighting
+        );
+        assert_eq!(
+            verdict_of(0.1, 0.1, false, 2.0),
+            WeightingVerdict::NoClearDifference
+        );
     }
 
     #[test]
