@@ -31,6 +31,17 @@ from ._ratio import (
     ratio_from_probabilities,
 )
 from ._learn import WeightedLogistic, WeightedRidge
+from ._ratio import LeastSquaresRatio, from_json
+from ._learn import WeightedLogistic, WeightedRidge, linear_model_from_json
+from ._evaluate import (
+    CrossValidatedRisk,
+    MetricEstimate,
+    WeightingComparison,
+    compare_weighting,
+    iw_cross_validate,
+    weighted_metric,
+)
+from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
 from ._demo import demo_data
 
 __all__ = [
@@ -42,6 +53,17 @@ __all__ = [
     "ratio_from_probabilities",
     "WeightedLogistic",
     "WeightedRidge",
+    "linear_model_from_json",
+    "iw_cross_validate",
+    "compare_weighting",
+    "weighted_metric",
+    "conformal_intervals",
+    "conformal_sets",
+    "CrossValidatedRisk",
+    "WeightingComparison",
+    "MetricEstimate",
+    "ConformalIntervals",
+    "ConformalSets",
     "from_json",
     "demo_data",
     "set_threads",

@@ -29,6 +29,10 @@ impl LinearModel {
         }
     }
     #[getter]
+    fn l2(&self) -> f64 {
+        self.inner.l2
+    }
+    #[getter]
     fn n_iter(&self) -> usize {
         self.inner.n_iter
     }

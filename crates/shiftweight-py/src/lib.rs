@@ -10,8 +10,11 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex};
 
+mod conformal;
+mod data;
 mod demo;
 mod learn;
+mod metrics;
 mod ratio;
 
 create_exception!(
@@ -178,5 +181,8 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     ratio::register(m)?;
     learn::register(m)?;
     demo::register(m)?;
+    data::register(m)?;
+    metrics::register(m)?;
+    conformal::register(m)?;
     Ok(())
 }

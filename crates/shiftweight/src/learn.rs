@@ -9,7 +9,24 @@
 //!   `Ridge(alpha = l2)` with `sample_weight`. One pass, O(n p^2 + p^3).
 //!
 //! Fitted models are [`LinearModel`] values that serialise to the model file format
-//! `shiftweight.linear-model`, so a service can train or load and predict without Python.
+//! `shiftweight.linear-model`, so a service can train or load and predict without Python:
+//!
+//! ```
+//! use shiftweight::learn::{LinearModel, WeightedLogistic};
+//! use shiftweight::MatrixView;
+//! // Six rows, one feature; the importance weights stress the right-hand rows.
+//! let x = [0.0, 1.0, 2.0, 3.0, 4.0, 5.0];
+//! let y = [0.0, 0.0, 1.0, 0.0, 1.0, 1.0];
+//! let w = [0.5, 0.5, 1.0, 1.0, 2.0, 2.0];
+//! let model = WeightedLogistic::new().l2(1.0).fit(MatrixView::new(&x, 6, 1)?, &y, Some(&w))?;
+//! let text = model.to_json()?; // write it to a file; a service reads it back
+//! let loaded = LinearModel::from_json(&text)?;
+//! let new_rows = MatrixView::new(&[0.5, 4.5], 2, 1)?;
+//! let p = loaded.predict_proba(new_rows)?;
+//! assert!(p[1] > p[0]);
+//! assert_eq!(loaded.predict(new_rows)?, model.predict(new_rows)?);
+//! # Ok::<(), shiftweight::Error>(())
+//! ```
 
 pub use crate::data::validate_weights;
 use crate::data::MatrixView;

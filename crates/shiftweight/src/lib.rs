@@ -10,6 +10,9 @@
 //!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
 //!   memory and saves to a versioned JSON file ([`model`]).
 //! - [`learn`]: importance-weighted logistic and ridge regression.
+//! - [`metrics`]: weighted losses, IWCV aggregation, the weighted-versus-unweighted comparison and
+//!   weighted metrics with confidence intervals.
+//! - [`conformal`]: weighted split conformal prediction intervals and sets valid on the target.
 //! - [`demo`]: the invented electricity-consumption scenario used by the CLI and notebooks.
 //!
 //! ```
@@ -32,11 +35,13 @@
 //! Validate on labelled target data before relying on it, and defer to the regulations and review
 //! processes of the domain when the weights feed decisions about people.
 
+pub mod conformal;
 pub mod data;
 pub mod demo;
 pub mod error;
 pub mod kernel;
 pub mod learn;
+pub mod metrics;
 pub mod model;
 pub mod par;
 pub mod ratio;
