@@ -23,12 +23,17 @@ from ._validation import NotFittedError
 from ._ratio import LeastSquaresRatio, from_json
 from ._learn import WeightedLogistic, WeightedRidge
 from ._demo import demo_data
+from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
 
 __all__ = [
     "LeastSquaresRatio",
     "WeightedLogistic",
     "WeightedRidge",
     "from_json",
+    "shift_test",
+    "feature_shift",
+    "ShiftTestResult",
+    "FeatureShiftTable",
     "demo_data",
     "set_threads",
     "ShiftweightError",

@@ -9,6 +9,7 @@ use shiftweight::{Error, MatrixView};
 use std::panic::{catch_unwind, AssertUnwindSafe};
 
 mod demo;
+mod detect;
 mod learn;
 mod ratio;
 
@@ -120,5 +121,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     ratio::register(m)?;
     learn::register(m)?;
     demo::register(m)?;
+    detect::register(m)?;
     Ok(())
 }

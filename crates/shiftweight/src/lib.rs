@@ -9,6 +9,8 @@
 //! - [`ratio`]: importance weights w(x) = p_target(x) / p_source(x). Every estimator implements
 //!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
 //!   memory and saves to a versioned JSON file ([`model`]).
+//! - [`detect`]: is there a shift, and where? Classifier and MMD two-sample tests with valid
+//!   p-values, and per-feature tests, effect sizes and importances.
 //! - [`learn`]: importance-weighted logistic and ridge regression.
 //! - [`demo`]: the invented electricity-consumption scenario used by the CLI and notebooks.
 //!
@@ -34,6 +36,7 @@
 
 pub mod data;
 pub mod demo;
+pub mod detect;
 pub mod error;
 pub mod kernel;
 pub mod learn;
@@ -42,6 +45,9 @@ pub mod par;
 pub mod ratio;
 
 pub use data::{Matrix, MatrixView, Standardizer};
+pub use detect::{
+    ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult,
+};
 pub use error::{Error, Result};
 pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
 
@@ -51,5 +57,10 @@ pub fn set_threads(n: usize) -> Result<()> {
     rayon::ThreadPoolBuilder::new()
         .num_threads(n)
         .build_global()
-        .map_err(|e| Error::param("threads", format!("the thread pool is already running: {e}")))
+        .map_err(|e| {
+            Error::param(
+                "threads",
+                format!("the thread pool is already running: {e}"),
+            )
+        })
 }
