@@ -45,9 +45,7 @@ pub mod par;
 pub mod ratio;
 
 pub use data::{Matrix, MatrixView, Standardizer};
-pub use detect::{
-    ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult,
-};
+pub use detect::{ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult};
 pub use error::{Error, Result};
 pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
 
@@ -57,10 +55,5 @@ pub fn set_threads(n: usize) -> Result<()> {
     rayon::ThreadPoolBuilder::new()
         .num_threads(n)
         .build_global()
-        .map_err(|e| {
-            Error::param(
-                "threads",
-                format!("the thread pool is already running: {e}"),
-            )
-        })
+        .map_err(|e| Error::param("threads", format!("the thread pool is already running: {e}")))
 }
