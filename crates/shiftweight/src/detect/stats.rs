@@ -174,8 +174,8 @@ pub struct KsResult {
 ///   arithmetic decides the boundary exactly. O(n1 n2) time, O(n2) memory.
 /// - Asymptotic: the Kolmogorov limit distribution at (sqrt(e) + 0.12 + 0.11 / sqrt(e)) d with
 ///   e = round(n1 n2 / (n1 + n2)) (Stephens 1970, J. Royal Statistical Society B 32, 115-122).
-///   scipy evaluates the exact one-sample distribution at n = e instead; the two agree to about
-///   1% relative accuracy at these sizes (see the tests).
+///   scipy evaluates the exact one-sample distribution at n = e instead; measured at n ~ 11,000
+///   per sample the two differ by 1.9% relative at p ~ 1e-6 (a known gap; see the tests).
 pub fn ks_two_sample(a: &[f64], b: &[f64]) -> Result<KsResult> {
     let mode = if a.len().max(b.len()) <= KS_EXACT_MAX_N {
         KsMode::Exact
