@@ -43,6 +43,7 @@ from ._evaluate import (
 )
 from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
 from ._demo import demo_data
+from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
 
 __all__ = [
     "LeastSquaresRatio",
@@ -65,6 +66,10 @@ __all__ = [
     "ConformalIntervals",
     "ConformalSets",
     "from_json",
+    "shift_test",
+    "feature_shift",
+    "ShiftTestResult",
+    "FeatureShiftTable",
     "demo_data",
     "set_threads",
     "get_threads",

@@ -13,6 +13,7 @@ use std::sync::{Arc, Mutex};
 mod conformal;
 mod data;
 mod demo;
+mod detect;
 mod learn;
 mod metrics;
 mod ratio;
@@ -184,5 +185,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     data::register(m)?;
     metrics::register(m)?;
     conformal::register(m)?;
+    detect::register(m)?;
     Ok(())
 }

@@ -9,6 +9,8 @@
 //! - [`ratio`]: importance weights w(x) = p_target(x) / p_source(x). Every estimator implements
 //!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
 //!   memory and saves to a versioned JSON file ([`model`]).
+//! - [`detect`]: is there a shift, and where? Classifier and MMD two-sample tests with valid
+//!   p-values, and per-feature tests, effect sizes and importances.
 //! - [`learn`]: importance-weighted logistic and ridge regression.
 //! - [`metrics`]: weighted losses, IWCV aggregation, the weighted-versus-unweighted comparison and
 //!   weighted metrics with confidence intervals.
@@ -38,6 +40,7 @@
 pub mod conformal;
 pub mod data;
 pub mod demo;
+pub mod detect;
 pub mod error;
 pub mod kernel;
 pub mod learn;
@@ -47,6 +50,7 @@ pub mod par;
 pub mod ratio;
 
 pub use data::{Matrix, MatrixView, Standardizer};
+pub use detect::{ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult};
 pub use error::{Error, Result};
 pub use ratio::{
     ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, KLRatio,
