@@ -23,6 +23,19 @@ from ._validation import NotFittedError
 from ._ratio import LeastSquaresRatio, from_json
 from ._learn import WeightedLogistic, WeightedRidge
 from ._demo import demo_data
+from ._weights import (
+    ClipTradeoff,
+    OverlapReport,
+    StabilizeReport,
+    WeightDiagnosis,
+    check_overlap,
+    clip_for_ess,
+    clip_tradeoff,
+    diagnose,
+    effective_sample_size,
+    pareto_k,
+    stabilize,
+)
 
 __all__ = [
     "LeastSquaresRatio",
@@ -30,6 +43,17 @@ __all__ = [
     "WeightedRidge",
     "from_json",
     "demo_data",
+    "stabilize",
+    "StabilizeReport",
+    "effective_sample_size",
+    "pareto_k",
+    "diagnose",
+    "WeightDiagnosis",
+    "clip_tradeoff",
+    "ClipTradeoff",
+    "clip_for_ess",
+    "check_overlap",
+    "OverlapReport",
     "set_threads",
     "ShiftweightError",
     "ModelFileError",

@@ -9,8 +9,10 @@ use shiftweight::{Error, MatrixView};
 use std::panic::{catch_unwind, AssertUnwindSafe};
 
 mod demo;
+mod diagnostics;
 mod learn;
 mod ratio;
+mod weights;
 
 create_exception!(
     _native,
@@ -120,5 +122,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     ratio::register(m)?;
     learn::register(m)?;
     demo::register(m)?;
+    weights::register(m)?;
+    diagnostics::register(m)?;
     Ok(())
 }

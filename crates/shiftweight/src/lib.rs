@@ -9,6 +9,9 @@
 //! - [`ratio`]: importance weights w(x) = p_target(x) / p_source(x). Every estimator implements
 //!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
 //!   memory and saves to a versioned JSON file ([`model`]).
+//! - [`weights`]: stabilising weights (flattening, PSIS smoothing, clipping, truncation, mean 1);
+//!   [`diagnostics`]: Kish ESS, Pareto k and its verdict, concentration, the clipping trade-off,
+//!   support overlap.
 //! - [`learn`]: importance-weighted logistic and ridge regression.
 //! - [`demo`]: the invented electricity-consumption scenario used by the CLI and notebooks.
 //!
@@ -34,16 +37,20 @@
 
 pub mod data;
 pub mod demo;
+pub mod diagnostics;
 pub mod error;
 pub mod kernel;
 pub mod learn;
 pub mod model;
 pub mod par;
 pub mod ratio;
+pub mod weights;
 
 pub use data::{Matrix, MatrixView, Standardizer};
 pub use error::{Error, Result};
 pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
+pub use diagnostics::{diagnose, effective_sample_size, pareto_k, Diagnosis, Verdict};
+pub use weights::{stabilize, StabilizeOptions, Stabilized};
 
 /// Sets the number of threads of the global pool used by the crate (call once, before any work).
 /// Returns an error if the pool was already built.
