@@ -21,7 +21,9 @@ fn effective_sample_size(py: Python<'_>, w: PyReadonlyArray1<'_, f64>) -> PyResu
 #[pyfunction]
 fn pareto_k(py: Python<'_>, w: PyReadonlyArray1<'_, f64>) -> PyResult<String> {
     let wv = vector(&w, "weights")?;
-    json(serde_json::to_string(&detached(py, move || core::pareto_k(wv))?))
+    json(serde_json::to_string(&detached(py, move || {
+        core::pareto_k(wv)
+    })?))
 }
 
 /// Full diagnosis as a `shiftweight.weight-diagnosis` document. `codes` (one per row, in
@@ -37,15 +39,18 @@ fn diagnose(
     let wv = vector(&w, "weights")?;
     let codes: Option<Vec<usize>> = match &codes {
         Some(c) => {
-            let s = c
-                .as_slice()
-                .map_err(|_| ShiftweightError::new_err("`groups` codes must be a contiguous int64 vector"))?;
+            let s = c.as_slice().map_err(|_| {
+                ShiftweightError::new_err("`groups` codes must be a contiguous int64 vector")
+            })?;
             Some(
                 s.iter()
                     .enumerate()
                     .map(|(i, v)| {
-                        usize::try_from(*v)
-                            .map_err(|_| ShiftweightError::new_err(format!("`groups` code at row {i} is negative")))
+                        usize::try_from(*v).map_err(|_| {
+                            ShiftweightError::new_err(format!(
+                                "`groups` code at row {i} is negative"
+                            ))
+                        })
                     })
                     .collect::<PyResult<_>>()?,
             )
@@ -54,7 +59,10 @@ fn diagnose(
     };
     let names = names.unwrap_or_default();
     let d = detached(py, || {
-        let groups = codes.as_deref().map(|c| Groups { codes: c, names: &names });
+        let groups = codes.as_deref().map(|c| Groups {
+            codes: c,
+            names: &names,
+        });
         core::diagnose(wv, groups)
     })?;
     d.to_json().map_err(to_py)
@@ -63,29 +71,50 @@ fn diagnose(
 /// Checks and re-emits a diagnosis document (rejects other formats and versions).
 #[pyfunction]
 fn diagnosis_from_json(text: &str) -> PyResult<String> {
-    Diagnosis::from_json(text).and_then(|d| d.to_json()).map_err(to_py)
+    Diagnosis::from_json(text)
+        .and_then(|d| d.to_json())
+        .map_err(to_py)
 }
 
 /// Clipping trade-off table as a `shiftweight.clip-tradeoff` document.
 #[pyfunction]
 #[pyo3(signature = (w, quantiles=None))]
-fn clip_tradeoff(py: Python<'_>, w: PyReadonlyArray1<'_, f64>, quantiles: Option<Vec<f64>>) -> PyResult<String> {
+fn clip_tradeoff(
+    py: Python<'_>,
+    w: PyReadonlyArray1<'_, f64>,
+    quantiles: Option<Vec<f64>>,
+) -> PyResult<String> {
     let wv = vector(&w, "weights")?;
-    detached(py, move || core::clip_tradeoff(wv, quantiles.as_deref())?.to_json())
+    detached(py, move || {
+        core::clip_tradeoff(wv, quantiles.as_deref())?.to_json()
+    })
 }
 
 /// The least clipping reaching an ESS fraction, as the JSON of one trade-off row.
 #[pyfunction]
-fn clip_for_ess(py: Python<'_>, w: PyReadonlyArray1<'_, f64>, ess_fraction: f64) -> PyResult<String> {
+fn clip_for_ess(
+    py: Python<'_>,
+    w: PyReadonlyArray1<'_, f64>,
+    ess_fraction: f64,
+) -> PyResult<String> {
     let wv = vector(&w, "weights")?;
-    json(serde_json::to_string(&detached(py, move || core::clip_for_ess(wv, ess_fraction))?))
+    json(serde_json::to_string(&detached(py, move || {
+        core::clip_for_ess(wv, ess_fraction)
+    })?))
 }
 
 /// Support-overlap check from ratios at the target rows (`shiftweight.overlap-report`).
 #[pyfunction]
-fn check_overlap(py: Python<'_>, target_ratios: PyReadonlyArray1<'_, f64>, limit: f64, tolerance: f64) -> PyResult<String> {
+fn check_overlap(
+    py: Python<'_>,
+    target_ratios: PyReadonlyArray1<'_, f64>,
+    limit: f64,
+    tolerance: f64,
+) -> PyResult<String> {
     let r = vector(&target_ratios, "target_ratios")?;
-    detached(py, move || core::check_overlap(r, limit, tolerance)?.to_json())
+    detached(py, move || {
+        core::check_overlap(r, limit, tolerance)?.to_json()
+    })
 }
 
 /// Support-overlap check from classifier probabilities p(target | x) at the target rows.
@@ -99,7 +128,9 @@ fn check_overlap_probabilities(
     tolerance: f64,
 ) -> PyResult<String> {
     let p = vector(&probabilities, "probabilities")?;
-    detached(py, move || core::check_overlap_probabilities(p, n_source, n_target, limit, tolerance)?.to_json())
+    detached(py, move || {
+        core::check_overlap_probabilities(p, n_source, n_target, limit, tolerance)?.to_json()
+    })
 }
 
 pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {

@@ -21,7 +21,15 @@ fn stabilize<'py>(
     normalize: bool,
 ) -> PyResult<(Bound<'py, PyArray1<f64>>, String)> {
     let wv = vector(&w, "weights")?;
-    let options = StabilizeOptions { lower, upper, upper_quantile, truncate, power, smooth, normalize };
+    let options = StabilizeOptions {
+        lower,
+        upper,
+        upper_quantile,
+        truncate,
+        power,
+        smooth,
+        normalize,
+    };
     let out = detached(py, move || core_stabilize(wv, &options))?;
     let report = serde_json::to_string(&out.report)
         .map_err(|e| ShiftweightError::new_err(format!("could not serialise the report: {e}")))?;

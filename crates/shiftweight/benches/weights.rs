@@ -19,18 +19,31 @@ fn weights(n: usize) -> Vec<f64> {
 
 /// One shared configuration: few samples, the inputs are large.
 fn config() -> Criterion {
-    Criterion::default().sample_size(10).warm_up_time(Duration::from_secs(1)).measurement_time(Duration::from_secs(8))
+    Criterion::default()
+        .sample_size(10)
+        .warm_up_time(Duration::from_secs(1))
+        .measurement_time(Duration::from_secs(8))
 }
 
 fn bench(c: &mut Criterion) {
     let big = weights(10_000_000);
-    c.bench_function("diagnose 10M", |b| b.iter(|| diagnose(black_box(&big), None).expect("valid")));
-    c.bench_function("effective_sample_size 10M", |b| b.iter(|| effective_sample_size(black_box(&big)).expect("valid")));
-    c.bench_function("pareto_k 10M", |b| b.iter(|| pareto_k(black_box(&big)).expect("valid")));
+    c.bench_function("diagnose 10M", |b| {
+        b.iter(|| diagnose(black_box(&big), None).expect("valid"))
+    });
+    c.bench_function("effective_sample_size 10M", |b| {
+        b.iter(|| effective_sample_size(black_box(&big)).expect("valid"))
+    });
+    c.bench_function("pareto_k 10M", |b| {
+        b.iter(|| pareto_k(black_box(&big)).expect("valid"))
+    });
     let mid = weights(1_000_000);
     let opts = StabilizeOptions::new().smooth(true).truncate(true);
-    c.bench_function("stabilize smooth+truncate 1M", |b| b.iter(|| stabilize(black_box(&mid), &opts).expect("valid")));
-    c.bench_function("clip_tradeoff 1M", |b| b.iter(|| clip_tradeoff(black_box(&mid), None).expect("valid")));
+    c.bench_function("stabilize smooth+truncate 1M", |b| {
+        b.iter(|| stabilize(black_box(&mid), &opts).expect("valid"))
+    });
+    c.bench_function("clip_tradeoff 1M", |b| {
+        b.iter(|| clip_tradeoff(black_box(&mid), None).expect("valid"))
+    });
 }
 
 criterion_group! {

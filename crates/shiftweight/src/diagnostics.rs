@@ -188,7 +188,11 @@ pub(crate) fn fit_gpd(x: &[f64]) -> Option<GpdFit> {
     let q1 = xs[((n as f64 / 4.0 + 0.5).floor() as usize).clamp(1, n) - 1];
     // A zero first quartile (many ties at the threshold) would make the grid infinite; use the
     // smallest positive exceedance instead (our guard).
-    let xstar = if q1 > 0.0 { q1 } else { xs.iter().copied().find(|v| *v > 0.0)? };
+    let xstar = if q1 > 0.0 {
+        q1
+    } else {
+        xs.iter().copied().find(|v| *v > 0.0)?
+    };
     let m = 30 + (n as f64).sqrt().floor() as usize;
     let prior = 3.0;
     let kof = |theta: f64| xs.iter().map(|v| (-theta * v).ln_1p()).sum::<f64>() / n as f64;
@@ -244,7 +248,15 @@ pub struct TailFit {
 fn tail_fit_from_sorted(sorted_top: &[f64], s: usize) -> TailFit {
     let m = sorted_top.len().saturating_sub(1);
     let u = sorted_top.first().copied().unwrap_or(0.0);
-    let mut fit = TailFit { k: None, sigma: None, tail_size: m, tail_start: u, k_threshold: k_threshold(s), bounded: false, note: None };
+    let mut fit = TailFit {
+        k: None,
+        sigma: None,
+        tail_size: m,
+        tail_start: u,
+        k_threshold: k_threshold(s),
+        bounded: false,
+        note: None,
+    };
     if m < MIN_TAIL {
         fit.note = Some(format!(
             "too few weights ({s}) to fit the tail: the tail would hold {m} rows, at least {MIN_TAIL} are needed"
@@ -254,7 +266,8 @@ fn tail_fit_from_sorted(sorted_top: &[f64], s: usize) -> TailFit {
     let x: Vec<f64> = sorted_top[1..].iter().map(|v| v - u).collect();
     if x[m - 1] <= 0.0 {
         fit.bounded = true;
-        fit.note = Some("the largest weights are all equal: the tail is bounded (no heavy tail)".into());
+        fit.note =
+            Some("the largest weights are all equal: the tail is bounded (no heavy tail)".into());
         return fit;
     }
     match fit_gpd(&x) {
@@ -306,7 +319,10 @@ fn multi_select(a: &mut [f64], ranks: &[usize], offset: usize) {
     let (left, _, right) = a.select_nth_unstable_by(r, f64::total_cmp);
     let (lr, rr) = (&ranks[..mid], &ranks[mid + 1..]);
     if left.len() + right.len() > 1 << 16 {
-        rayon::join(|| multi_select(left, lr, offset), || multi_select(right, rr, offset + r + 1));
+        rayon::join(
+            || multi_select(left, lr, offset),
+            || multi_select(right, rr, offset + r + 1),
+        );
     } else {
         multi_select(left, lr, offset);
         multi_select(right, rr, offset + r + 1);
@@ -492,12 +508,20 @@ pub fn diagnose(w: &[f64], groups: Option<Groups>) -> Result<Diagnosis> {
     validate_weights(w, n, "weights")?;
     if let Some(g) = groups {
         if g.codes.len() != n {
-            return Err(Error::LengthMismatch { argument: "groups".into(), expected: n, found: g.codes.len() });
+            return Err(Error::LengthMismatch {
+                argument: "groups".into(),
+                expected: n,
+                found: g.codes.len(),
+            });
         }
         if let Some(i) = g.codes.iter().position(|c| *c >= g.names.len()) {
             return Err(Error::param(
                 "groups",
-                format!("row {i} has group code {} but only {} group names were given", g.codes[i], g.names.len()),
+                format!(
+                    "row {i} has group code {} but only {} group names were given",
+                    g.codes[i],
+                    g.names.len()
+                ),
             ));
         }
     }
@@ -619,12 +643,20 @@ fn group_ess(w: &[f64], g: Groups, total: f64) -> Vec<GroupEss> {
     }
     (0..k)
         .map(|c| {
-            let ess = if s2[c] > 0.0 { s1[c] * s1[c] / s2[c] } else { 0.0 };
+            let ess = if s2[c] > 0.0 {
+                s1[c] * s1[c] / s2[c]
+            } else {
+                0.0
+            };
             GroupEss {
                 group: g.names[c].clone(),
                 n: count[c],
                 ess,
-                ess_fraction: if count[c] > 0 { ess / count[c] as f64 } else { 0.0 },
+                ess_fraction: if count[c] > 0 {
+                    ess / count[c] as f64
+                } else {
+                    0.0
+                },
                 weight_share: s1[c] * max[c] / total,
                 row_share: count[c] as f64 / w.len() as f64,
             }
@@ -739,7 +771,11 @@ impl SortedWeights {
         let c = (n - k) as f64;
         let sum = self.s1[k] + t * c;
         let sq = self.s2[k] + t * t * c;
-        (sum / n as f64, if sq > 0.0 { sum * sum / sq } else { 0.0 }, n - k)
+        (
+            sum / n as f64,
+            if sq > 0.0 { sum * sum / sq } else { 0.0 },
+            n - k,
+        )
     }
     fn row(&self, quantile: Option<f64>, t: f64) -> ClipLevel {
         let (m, ess, clipped) = self.clipped(t);
@@ -799,13 +835,19 @@ pub fn clip_tradeoff(w: &[f64], quantiles: Option<&[f64]>) -> Result<ClipTradeof
         return Err(Error::param("quantiles", "give at least one clip level"));
     }
     if let Some(q) = qs.iter().find(|q| !(**q > 0.0 && **q <= 1.0)) {
-        return Err(Error::param("quantiles", format!("clip levels are quantiles in (0, 1]; got {q}")));
+        return Err(Error::param(
+            "quantiles",
+            format!("clip levels are quantiles in (0, 1]; got {q}"),
+        ));
     }
     let mut qs = qs.to_vec();
     qs.sort_unstable_by(f64::total_cmp);
     qs.dedup();
     let sw = SortedWeights::new(w);
-    let levels = qs.iter().map(|&q| sw.row(Some(q), sw.quantile(q).max(f64::MIN_POSITIVE))).collect();
+    let levels = qs
+        .iter()
+        .map(|&q| sw.row(Some(q), sw.quantile(q).max(f64::MIN_POSITIVE)))
+        .collect();
     Ok(ClipTradeoff { n: w.len(), levels })
 }
 
@@ -817,7 +859,10 @@ pub fn clip_tradeoff(w: &[f64], quantiles: Option<&[f64]>) -> Result<ClipTradeof
 pub fn clip_for_ess(w: &[f64], target: f64) -> Result<ClipLevel> {
     validate_weights(w, w.len(), "weights")?;
     if !(target > 0.0 && target <= 1.0) {
-        return Err(Error::param("ess_fraction", format!("must be in (0, 1], got {target}")));
+        return Err(Error::param(
+            "ess_fraction",
+            format!("must be in (0, 1], got {target}"),
+        ));
     }
     let sw = SortedWeights::new(w);
     let n = sw.n();
@@ -905,10 +950,16 @@ pub const SUPPORT_CAUTION: &str = "No weighting fixes missing support: where the
 
 fn check_params(limit: f64, tolerance: f64) -> Result<()> {
     if !(limit.is_finite() && limit > 1.0) {
-        return Err(Error::param("limit", format!("must be a finite ratio above 1, got {limit}")));
+        return Err(Error::param(
+            "limit",
+            format!("must be a finite ratio above 1, got {limit}"),
+        ));
     }
     if !(0.0..1.0).contains(&tolerance) {
-        return Err(Error::param("tolerance", format!("must be in [0, 1), got {tolerance}")));
+        return Err(Error::param(
+            "tolerance",
+            format!("must be in [0, 1), got {tolerance}"),
+        ));
     }
     Ok(())
 }
@@ -919,10 +970,19 @@ fn check_params(limit: f64, tolerance: f64) -> Result<()> {
 pub fn check_overlap(target_ratios: &[f64], limit: f64, tolerance: f64) -> Result<OverlapReport> {
     check_params(limit, tolerance)?;
     if target_ratios.is_empty() {
-        return Err(Error::TooFewRows { argument: "target_ratios".into(), found: 0, required: 1 });
+        return Err(Error::TooFewRows {
+            argument: "target_ratios".into(),
+            found: 0,
+            required: 1,
+        });
     }
     validate_weights(target_ratios, target_ratios.len(), "target_ratios")?;
-    Ok(overlap_report(target_ratios.to_vec(), limit, tolerance, "ratios"))
+    Ok(overlap_report(
+        target_ratios.to_vec(),
+        limit,
+        tolerance,
+        "ratios",
+    ))
 }
 
 /// Support-overlap check from classifier probabilities p(target | x) at the target rows (for
@@ -938,19 +998,38 @@ pub fn check_overlap_probabilities(
 ) -> Result<OverlapReport> {
     check_params(limit, tolerance)?;
     if p_target.is_empty() {
-        return Err(Error::TooFewRows { argument: "probabilities".into(), found: 0, required: 1 });
+        return Err(Error::TooFewRows {
+            argument: "probabilities".into(),
+            found: 0,
+            required: 1,
+        });
     }
     if n_source == 0 || n_target == 0 {
-        return Err(Error::param("n_source", "n_source and n_target must both be positive"));
+        return Err(Error::param(
+            "n_source",
+            "n_source and n_target must both be positive",
+        ));
     }
     if let Some(i) = p_target.iter().position(|p| !(0.0..=1.0).contains(p)) {
         return Err(Error::param(
             "probabilities",
-            format!("entry {i} is {} (probabilities must be in [0, 1])", p_target[i]),
+            format!(
+                "entry {i} is {} (probabilities must be in [0, 1])",
+                p_target[i]
+            ),
         ));
     }
     let prior = n_source as f64 / n_target as f64;
-    let ratios = p_target.iter().map(|&p| if p >= 1.0 { f64::INFINITY } else { p / (1.0 - p) * prior }).collect();
+    let ratios = p_target
+        .iter()
+        .map(|&p| {
+            if p >= 1.0 {
+                f64::INFINITY
+            } else {
+                p / (1.0 - p) * prior
+            }
+        })
+        .collect();
     Ok(overlap_report(ratios, limit, tolerance, "probabilities"))
 }
 
@@ -960,7 +1039,11 @@ fn overlap_report(mut r: Vec<f64>, limit: f64, tolerance: f64, source: &str) -> 
     let max_ratio = r.iter().copied().fold(0.0, f64::max);
     let (lo, hi, f) = quantile_ranks(n, 0.5);
     multi_select(&mut r, &[lo, hi], 0);
-    let median = if f > 0.0 { r[lo] + f * (r[hi] - r[lo]) } else { r[lo] };
+    let median = if f > 0.0 {
+        r[lo] + f * (r[hi] - r[lo])
+    } else {
+        r[lo]
+    };
     let share = poor as f64 / n as f64;
     let flagged = share > tolerance;
     let mut warnings = Vec::new();
@@ -986,7 +1069,10 @@ fn overlap_report(mut r: Vec<f64>, limit: f64, tolerance: f64, source: &str) -> 
         max_ratio: if max_ratio.is_finite() {
             max_ratio
         } else {
-            r.iter().copied().filter(|v| v.is_finite()).fold(0.0, f64::max)
+            r.iter()
+                .copied()
+                .filter(|v| v.is_finite())
+                .fold(0.0, f64::max)
         },
         median_ratio: if median.is_finite() { median } else { f64::MAX },
         flagged,
@@ -1007,7 +1093,9 @@ mod tests {
     /// Draws from a GPD(shape xi, scale 1) by inversion: x = ((1 - U)^(-xi) - 1) / xi.
     fn gpd_draws(xi: f64, n: usize, seed: u64) -> Vec<f64> {
         let mut r = rng(seed ^ TAG);
-        (0..n).map(|_| ((1.0 - r.random::<f64>()).powf(-xi) - 1.0) / xi).collect()
+        (0..n)
+            .map(|_| ((1.0 - r.random::<f64>()).powf(-xi) - 1.0) / xi)
+            .collect()
     }
 
     #[test]
@@ -1019,7 +1107,9 @@ mod tests {
         w[3] = 7.0;
         assert!((effective_sample_size(&w).unwrap() - 1.0).abs() < 1e-15);
         // By hand: (1+2+3+4)^2 / (1+4+9+16) = 100/30 (Kish 1965 formula).
-        assert!((effective_sample_size(&[1.0, 2.0, 3.0, 4.0]).unwrap() - 100.0 / 30.0).abs() < 1e-14);
+        assert!(
+            (effective_sample_size(&[1.0, 2.0, 3.0, 4.0]).unwrap() - 100.0 / 30.0).abs() < 1e-14
+        );
         assert!((ess_fraction(&[1.0, 2.0, 3.0, 4.0]).unwrap() - 100.0 / 120.0).abs() < 1e-14);
         // Huge weights do not overflow the squares.
         assert!((effective_sample_size(&[1e300, 1e300]).unwrap() - 2.0).abs() < 1e-12);
@@ -1034,12 +1124,30 @@ mod tests {
             }
             other => panic!("unexpected {other:?}"),
         }
-        assert!(matches!(diagnose(&[0.0, 0.0], None), Err(Error::InvalidWeights { .. })));
-        assert!(matches!(pareto_k(&[1.0, f64::NAN]), Err(Error::InvalidWeights { .. })));
+        assert!(matches!(
+            diagnose(&[0.0, 0.0], None),
+            Err(Error::InvalidWeights { .. })
+        ));
+        assert!(matches!(
+            pareto_k(&[1.0, f64::NAN]),
+            Err(Error::InvalidWeights { .. })
+        ));
         let names = vec!["a".to_string()];
-        let r = diagnose(&[1.0, 2.0], Some(Groups { codes: &[0, 1], names: &names }));
+        let r = diagnose(
+            &[1.0, 2.0],
+            Some(Groups {
+                codes: &[0, 1],
+                names: &names,
+            }),
+        );
         assert!(matches!(r, Err(Error::InvalidParameter { ref name, .. }) if name == "groups"));
-        let r = diagnose(&[1.0, 2.0], Some(Groups { codes: &[0], names: &names }));
+        let r = diagnose(
+            &[1.0, 2.0],
+            Some(Groups {
+                codes: &[0],
+                names: &names,
+            }),
+        );
         assert!(matches!(r, Err(Error::LengthMismatch { .. })));
     }
 
@@ -1116,7 +1224,10 @@ mod tests {
                 let lo = h.floor() as usize;
                 let hi = (lo + 1).min(n - 1);
                 let want = s[lo] + (h - lo as f64) * (s[hi] - s[lo]);
-                assert!((q - want).abs() <= 1e-12 * want.abs().max(1.0), "n {n} level {l}");
+                assert!(
+                    (q - want).abs() <= 1e-12 * want.abs().max(1.0),
+                    "n {n} level {l}"
+                );
             }
             let t = diag.top1_rows;
             let top: f64 = s[n - t..].iter().sum();
@@ -1130,7 +1241,11 @@ mod tests {
                     break;
                 }
             }
-            assert!(diag.rows_for_half.abs_diff(k) <= 1, "n {n}: {} vs {k}", diag.rows_for_half);
+            assert!(
+                diag.rows_for_half.abs_diff(k) <= 1,
+                "n {n}: {} vs {k}",
+                diag.rows_for_half
+            );
             assert_eq!(diag.n_zero, usize::from(n > 10));
             assert!((diag.ess - effective_sample_size(&w).unwrap()).abs() < 1e-9 * diag.ess);
         }
@@ -1138,10 +1253,19 @@ mod tests {
 
     #[test]
     fn group_ess_finds_a_starved_group() {
-        let w: Vec<f64> = (0..200).map(|i| if i < 100 { 1.0 } else { 0.001 }).collect();
+        let w: Vec<f64> = (0..200)
+            .map(|i| if i < 100 { 1.0 } else { 0.001 })
+            .collect();
         let codes: Vec<usize> = (0..200).map(|i| usize::from(i >= 100)).collect();
         let names = vec!["kept".to_string(), "starved".to_string()];
-        let d = diagnose(&w, Some(Groups { codes: &codes, names: &names })).unwrap();
+        let d = diagnose(
+            &w,
+            Some(Groups {
+                codes: &codes,
+                names: &names,
+            }),
+        )
+        .unwrap();
         assert_eq!(d.groups.len(), 2);
         // Within each group the weights are equal: ESS = group size (common practice).
         assert!((d.groups[0].ess - 100.0).abs() < 1e-9);
@@ -1169,9 +1293,16 @@ mod tests {
         let pick = clip_for_ess(&w, 0.8).unwrap();
         assert!(pick.ess_fraction >= 0.8 - 1e-12 && pick.ess_fraction < 0.8 + 1e-6);
         // The picked bound, given to stabilize, gives the same weights' ESS.
-        let s = crate::weights::stabilize(&w, &crate::weights::StabilizeOptions::new().upper(pick.upper)).unwrap();
+        let s = crate::weights::stabilize(
+            &w,
+            &crate::weights::StabilizeOptions::new().upper(pick.upper),
+        )
+        .unwrap();
         assert!((ess_fraction(&s.weights).unwrap() - pick.ess_fraction).abs() < 1e-9);
-        assert!(matches!(clip_for_ess(&w, 1.5), Err(Error::InvalidParameter { .. })));
+        assert!(matches!(
+            clip_for_ess(&w, 1.5),
+            Err(Error::InvalidParameter { .. })
+        ));
         let mut z = w.clone();
         z[0] = 0.0;
         assert!(clip_for_ess(&z, 1.0).is_err());
@@ -1185,7 +1316,10 @@ mod tests {
         assert!(r.flagged);
         assert_eq!(r.max_ratio, 100.0);
         assert!((r.median_ratio - 26.0).abs() < 1e-12);
-        assert!(r.warnings.iter().any(|w| w.contains("No weighting fixes missing support")));
+        assert!(r
+            .warnings
+            .iter()
+            .any(|w| w.contains("No weighting fixes missing support")));
         // p = 0.96 with equal sizes: odds 24 > 20 (Bickel et al. 2009 prior correction).
         let r = check_overlap_probabilities(&[0.5, 0.96, 1.0], 100, 100, 20.0, 0.5).unwrap();
         assert_eq!(r.n_poorly_covered, 2);

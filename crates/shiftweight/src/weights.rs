@@ -63,7 +63,15 @@ pub struct StabilizeOptions {
 
 impl Default for StabilizeOptions {
     fn default() -> Self {
-        Self { lower: None, upper: None, upper_quantile: None, truncate: false, power: 1.0, smooth: false, normalize: true }
+        Self {
+            lower: None,
+            upper: None,
+            upper_quantile: None,
+            truncate: false,
+            power: 1.0,
+            smooth: false,
+            normalize: true,
+        }
     }
 }
 
@@ -112,7 +120,10 @@ impl StabilizeOptions {
     pub fn check(&self) -> Result<()> {
         if let Some(l) = self.lower {
             if !(l.is_finite() && l >= 0.0) {
-                return Err(Error::param("lower", format!("must be finite and >= 0, got {l}")));
+                return Err(Error::param(
+                    "lower",
+                    format!("must be finite and >= 0, got {l}"),
+                ));
             }
             if self.normalize && l > 1.0 {
                 return Err(Error::param(
@@ -123,7 +134,10 @@ impl StabilizeOptions {
         }
         if let Some(u) = self.upper {
             if !(u.is_finite() && u > 0.0) {
-                return Err(Error::param("upper", format!("must be finite and > 0, got {u}")));
+                return Err(Error::param(
+                    "upper",
+                    format!("must be finite and > 0, got {u}"),
+                ));
             }
             if self.normalize && u < 1.0 {
                 return Err(Error::param(
@@ -139,11 +153,17 @@ impl StabilizeOptions {
         }
         if let Some(q) = self.upper_quantile {
             if !(q > 0.0 && q <= 1.0) {
-                return Err(Error::param("upper_quantile", format!("must be in (0, 1], got {q}")));
+                return Err(Error::param(
+                    "upper_quantile",
+                    format!("must be in (0, 1], got {q}"),
+                ));
             }
         }
         if !(self.power.is_finite() && (0.0..=1.0).contains(&self.power)) {
-            return Err(Error::param("power", format!("must be in [0, 1], got {}", self.power)));
+            return Err(Error::param(
+                "power",
+                format!("must be in [0, 1], got {}", self.power),
+            ));
         }
         Ok(())
     }
@@ -228,7 +248,12 @@ pub fn stabilize(w: &[f64], options: &StabilizeOptions) -> Result<Stabilized> {
             (None, Some(why)) => format!("left unchanged: {why}"),
             (None, None) => "left unchanged".into(),
         };
-        steps.push(StepRecord { step: "smooth".into(), rows_changed: changed, value: tail.k, note });
+        steps.push(StepRecord {
+            step: "smooth".into(),
+            rows_changed: changed,
+            value: tail.k,
+            note,
+        });
         smoothing_tail = Some(tail);
     }
 
@@ -263,7 +288,14 @@ pub fn stabilize(w: &[f64], options: &StabilizeOptions) -> Result<Stabilized> {
 
     Ok(Stabilized {
         weights: v,
-        report: StabilizeReport { n, options: options.clone(), steps, lower_used, upper_used, smoothing_tail },
+        report: StabilizeReport {
+            n,
+            options: options.clone(),
+            steps,
+            lower_used,
+            upper_used,
+            smoothing_tail,
+        },
     })
 }
 
@@ -304,7 +336,10 @@ fn record_bounds(
     }
     if upper.is_finite() {
         let (step, what) = if upper_is_truncation {
-            ("truncate", "truncated at sqrt(n) times the mean weight (Ionides 2008)")
+            (
+                "truncate",
+                "truncated at sqrt(n) times the mean weight (Ionides 2008)",
+            )
         } else {
             ("upper", "clipped at the upper bound")
         };
@@ -318,7 +353,11 @@ fn record_bounds(
 }
 
 /// Step 4 without normalisation: bounds on the input scale.
-fn bound_only(v: &mut [f64], o: &StabilizeOptions, steps: &mut Vec<StepRecord>) -> (Option<f64>, Option<f64>) {
+fn bound_only(
+    v: &mut [f64],
+    o: &StabilizeOptions,
+    steps: &mut Vec<StepRecord>,
+) -> (Option<f64>, Option<f64>) {
     let n = v.len();
     let lower = o.lower.unwrap_or(0.0);
     let upper = o.upper.unwrap_or(f64::INFINITY);
@@ -339,7 +378,15 @@ fn bound_only(v: &mut [f64], o: &StabilizeOptions, steps: &mut Vec<StepRecord>) 
             lowered += 1;
         }
     }
-    record_bounds(steps, raised, lowered, lower, u, trunc < upper, " (scale of the weights given)");
+    record_bounds(
+        steps,
+        raised,
+        lowered,
+        lower,
+        u,
+        trunc < upper,
+        " (scale of the weights given)",
+    );
     ((lower > 0.0).then_some(lower), u.is_finite().then_some(u))
 }
 
@@ -357,7 +404,10 @@ fn bound_and_normalize(
     let u = upper.min(trunc);
     let total: f64 = v.iter().sum();
     if !(total > 0.0) {
-        return Err(Error::InvalidWeights { argument: "weights".into(), reason: "all weights are zero".into() });
+        return Err(Error::InvalidWeights {
+            argument: "weights".into(),
+            reason: "all weights are zero".into(),
+        });
     }
     if lower == 0.0 && u.is_infinite() {
         let s = nf / total;
@@ -379,11 +429,23 @@ fn bound_and_normalize(
         // Only possible with lower = upper = 1: every weight is 1.
         let changed = v.iter().filter(|x| **x != lower).count();
         v.iter_mut().for_each(|x| *x = lower);
-        record_bounds(steps, changed, 0, lower, u, trunc < upper, " (all weights set to 1)");
+        record_bounds(
+            steps,
+            changed,
+            0,
+            lower,
+            u,
+            trunc < upper,
+            " (all weights set to 1)",
+        );
         return Ok((Some(lower), Some(u)));
     }
     let n_pos = v.iter().filter(|x| **x > 0.0).count();
-    let sup = if u.is_finite() { (u * n_pos as f64 + lower * (n - n_pos) as f64) / nf } else { f64::INFINITY };
+    let sup = if u.is_finite() {
+        (u * n_pos as f64 + lower * (n - n_pos) as f64) / nf
+    } else {
+        f64::INFINITY
+    };
     if sup < 1.0 {
         let name = if trunc < upper { "truncate" } else { "upper" };
         return Err(Error::param(
@@ -461,7 +523,15 @@ fn bound_and_normalize(
             *x = y;
         }
     }
-    record_bounds(steps, raised, lowered, lower, u, trunc < upper, " (on the mean-1 scale of the output)");
+    record_bounds(
+        steps,
+        raised,
+        lowered,
+        lower,
+        u,
+        trunc < upper,
+        " (on the mean-1 scale of the output)",
+    );
     steps.push(StepRecord {
         step: "normalize".into(),
         rows_changed: n - raised - lowered,
@@ -517,7 +587,8 @@ pub(crate) fn pareto_smooth(v: &mut [f64]) -> (usize, TailFit) {
             end += 1;
         }
         if end - start > 1 {
-            let mean = (new[start..end].iter().sum::<f64>() / (end - start) as f64).clamp(new[start], new[end - 1]);
+            let mean = (new[start..end].iter().sum::<f64>() / (end - start) as f64)
+                .clamp(new[start], new[end - 1]);
             out[start..end].iter_mut().for_each(|x| *x = mean);
         }
         start = end;
@@ -543,7 +614,9 @@ mod tests {
 
     fn heavy(n: usize, xi: f64, seed: u64) -> Vec<f64> {
         let mut r = rng(seed ^ TAG);
-        (0..n).map(|_| ((1.0 - r.random::<f64>()).powf(-xi) - 1.0) / xi).collect()
+        (0..n)
+            .map(|_| ((1.0 - r.random::<f64>()).powf(-xi) - 1.0) / xi)
+            .collect()
     }
 
     fn mean(v: &[f64]) -> f64 {
@@ -559,7 +632,11 @@ mod tests {
         assert_eq!(s.report.steps[0].step, "normalize");
         // Proportional to the input.
         let c = s.weights[0] / w[0];
-        assert!(s.weights.iter().zip(&w).all(|(a, b)| (a - c * b).abs() <= 1e-12 * a.max(1.0)));
+        assert!(s
+            .weights
+            .iter()
+            .zip(&w)
+            .all(|(a, b)| (a - c * b).abs() <= 1e-12 * a.max(1.0)));
     }
 
     #[test]
@@ -579,7 +656,11 @@ mod tests {
         let lim = (2000f64).sqrt();
         assert!((mean(&s.weights) - 1.0).abs() < 1e-12);
         assert!(s.weights.iter().all(|x| *x <= lim));
-        assert!(s.report.steps.iter().any(|r| r.step == "truncate" && r.rows_changed > 0));
+        assert!(s
+            .report
+            .steps
+            .iter()
+            .any(|r| r.step == "truncate" && r.rows_changed > 0));
         // Without normalisation: min(w, sqrt(n) * mean(w)) exactly as Ionides (2008).
         let s = stabilize(&w, &StabilizeOptions::new().truncate(true).normalize(false)).unwrap();
         let level = lim * mean(&w);
@@ -595,8 +676,11 @@ mod tests {
         let s = stabilize(&w, &StabilizeOptions::new().power(0.0)).unwrap();
         assert_eq!(s.weights, vec![0.0, 4.0 / 3.0, 4.0 / 3.0, 4.0 / 3.0]);
         // Median of [1, 2, 3, 4, 100] is 3 (numpy.quantile linear): clip, no normalisation.
-        let s = stabilize(&[1.0, 2.0, 3.0, 4.0, 100.0], &StabilizeOptions::new().upper_quantile(0.5).normalize(false))
-            .unwrap();
+        let s = stabilize(
+            &[1.0, 2.0, 3.0, 4.0, 100.0],
+            &StabilizeOptions::new().upper_quantile(0.5).normalize(false),
+        )
+        .unwrap();
         assert_eq!(s.weights, vec![1.0, 2.0, 3.0, 3.0, 3.0]);
         assert_eq!(s.report.steps[0].rows_changed, 2);
     }
@@ -608,9 +692,18 @@ mod tests {
             (StabilizeOptions::new().power(1.5), "power"),
             (StabilizeOptions::new().upper(0.5), "upper"),
             (StabilizeOptions::new().lower(2.0), "lower"),
-            (StabilizeOptions::new().upper_quantile(0.0), "upper_quantile"),
+            (
+                StabilizeOptions::new().upper_quantile(0.0),
+                "upper_quantile",
+            ),
             (StabilizeOptions::new().lower(f64::NAN), "lower"),
-            (StabilizeOptions::new().normalize(false).lower(3.0).upper(2.0), "lower"),
+            (
+                StabilizeOptions::new()
+                    .normalize(false)
+                    .lower(3.0)
+                    .upper(2.0),
+                "lower",
+            ),
         ] {
             match stabilize(&w, &o) {
                 Err(Error::InvalidParameter { name: got, .. }) => assert_eq!(got, name),
@@ -649,7 +742,11 @@ mod tests {
         assert!(s.weights.iter().all(|x| *x <= wmax));
         // A short tail (fewer than 5 rows) is left alone.
         let small = [3.0, 1.0, 2.0, 50.0, 4.0, 0.5, 7.0, 1.5, 2.5, 9.0];
-        let s = stabilize(&small, &StabilizeOptions::new().smooth(true).normalize(false)).unwrap();
+        let s = stabilize(
+            &small,
+            &StabilizeOptions::new().smooth(true).normalize(false),
+        )
+        .unwrap();
         assert_eq!(s.weights, small.to_vec());
         assert_eq!(s.report.steps[0].rows_changed, 0);
     }
@@ -677,7 +774,13 @@ mod props {
     }
 
     fn options() -> impl Strategy<Value = StabilizeOptions> {
-        (any::<bool>(), any::<bool>(), 0.0..=1.0f64, any::<bool>(), prop::option::of(0.05..=1.0f64))
+        (
+            any::<bool>(),
+            any::<bool>(),
+            0.0..=1.0f64,
+            any::<bool>(),
+            prop::option::of(0.05..=1.0f64),
+        )
             .prop_map(|(smooth, truncate, power, normalize, q)| StabilizeOptions {
                 lower: None,
                 upper: None,
