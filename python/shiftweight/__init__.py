@@ -44,6 +44,19 @@ from ._evaluate import (
 from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
 from ._demo import demo_data
 from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
+from ._weights import (
+    ClipTradeoff,
+    OverlapReport,
+    StabilizeReport,
+    WeightDiagnosis,
+    check_overlap,
+    clip_for_ess,
+    clip_tradeoff,
+    diagnose,
+    effective_sample_size,
+    pareto_k,
+    stabilize,
+)
 
 __all__ = [
     "LeastSquaresRatio",
@@ -71,6 +84,17 @@ __all__ = [
     "ShiftTestResult",
     "FeatureShiftTable",
     "demo_data",
+    "stabilize",
+    "StabilizeReport",
+    "effective_sample_size",
+    "pareto_k",
+    "diagnose",
+    "WeightDiagnosis",
+    "clip_tradeoff",
+    "ClipTradeoff",
+    "clip_for_ess",
+    "check_overlap",
+    "OverlapReport",
     "set_threads",
     "get_threads",
     "ShiftweightError",

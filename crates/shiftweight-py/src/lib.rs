@@ -14,9 +14,11 @@ mod conformal;
 mod data;
 mod demo;
 mod detect;
+mod diagnostics;
 mod learn;
 mod metrics;
 mod ratio;
+mod weights;
 
 create_exception!(
     _native,
@@ -186,5 +188,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     metrics::register(m)?;
     conformal::register(m)?;
     detect::register(m)?;
+    weights::register(m)?;
+    diagnostics::register(m)?;
     Ok(())
 }

@@ -11,6 +11,9 @@
 //!   memory and saves to a versioned JSON file ([`model`]).
 //! - [`detect`]: is there a shift, and where? Classifier and MMD two-sample tests with valid
 //!   p-values, and per-feature tests, effect sizes and importances.
+//! - [`weights`]: stabilising weights (flattening, PSIS smoothing, clipping, truncation, mean 1);
+//!   [`diagnostics`]: Kish ESS, Pareto k and its verdict, concentration, the clipping trade-off,
+//!   support overlap.
 //! - [`learn`]: importance-weighted logistic and ridge regression.
 //! - [`metrics`]: weighted losses, IWCV aggregation, the weighted-versus-unweighted comparison and
 //!   weighted metrics with confidence intervals.
@@ -41,6 +44,7 @@ pub mod conformal;
 pub mod data;
 pub mod demo;
 pub mod detect;
+pub mod diagnostics;
 pub mod error;
 pub mod kernel;
 pub mod learn;
@@ -48,6 +52,7 @@ pub mod metrics;
 pub mod model;
 pub mod par;
 pub mod ratio;
+pub mod weights;
 
 pub use data::{Matrix, MatrixView, Standardizer};
 pub use detect::{ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult};
@@ -57,6 +62,9 @@ pub use ratio::{
     KernelMeanMatching, KliepCv, LeastSquaresRatio,
     RatioEstimator,
 };
+pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
+pub use diagnostics::{diagnose, effective_sample_size, pareto_k, Diagnosis, Verdict};
+pub use weights::{stabilize, StabilizeOptions, Stabilized};
 
 /// Sets the number of threads of the global pool used by the crate (call once, before any work).
 /// Returns an error if the pool was already built.
