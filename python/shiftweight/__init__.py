@@ -30,8 +30,6 @@ from ._ratio import (
     from_json,
     ratio_from_probabilities,
 )
-from ._learn import WeightedLogistic, WeightedRidge
-from ._ratio import LeastSquaresRatio, from_json
 from ._learn import WeightedLogistic, WeightedRidge, linear_model_from_json
 from ._evaluate import (
     CrossValidatedRisk,

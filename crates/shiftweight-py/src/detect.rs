@@ -78,12 +78,18 @@ fn feature_shift(
         .repeats(repeats)
         .max_importance_rows(max_importance_rows)
         .seed(seed);
-    detached(py, move || fs.run(s, t, feature_names.as_deref())?.to_json())
+    detached(py, move || {
+        fs.run(s, t, feature_names.as_deref())?.to_json()
+    })
 }
 
 /// AUC of `pos` against `neg` scores with its DeLong interval: (auc, u, std_error, ci_low, ci_high).
 #[pyfunction]
-fn auc_summary(py: Python<'_>, pos: PyReadonlyArray1<'_, f64>, neg: PyReadonlyArray1<'_, f64>) -> PyResult<(f64, f64, f64, f64, f64)> {
+fn auc_summary(
+    py: Python<'_>,
+    pos: PyReadonlyArray1<'_, f64>,
+    neg: PyReadonlyArray1<'_, f64>,
+) -> PyResult<(f64, f64, f64, f64, f64)> {
     let (p, n) = (vector(&pos, "pos")?, vector(&neg, "neg")?);
     let s = detached(py, move || detect::auc_summary(p, n))?;
     Ok((s.auc, s.u, s.std_error, s.ci_low, s.ci_high))
@@ -91,14 +97,23 @@ fn auc_summary(py: Python<'_>, pos: PyReadonlyArray1<'_, f64>, neg: PyReadonlyAr
 
 /// One-sided Mann-Whitney test (pos greater): (U, p) by the normal approximation.
 #[pyfunction]
-fn mann_whitney_greater(py: Python<'_>, pos: PyReadonlyArray1<'_, f64>, neg: PyReadonlyArray1<'_, f64>) -> PyResult<(f64, f64)> {
+fn mann_whitney_greater(
+    py: Python<'_>,
+    pos: PyReadonlyArray1<'_, f64>,
+    neg: PyReadonlyArray1<'_, f64>,
+) -> PyResult<(f64, f64)> {
     let (p, n) = (vector(&pos, "pos")?, vector(&neg, "neg")?);
     detached(py, move || detect::mann_whitney_greater(p, n))
 }
 
 /// Two-sample KS test: (D, p, mode) with mode "auto", "exact" or "asymptotic".
 #[pyfunction]
-fn ks_two_sample(py: Python<'_>, a: PyReadonlyArray1<'_, f64>, b: PyReadonlyArray1<'_, f64>, mode: &str) -> PyResult<(f64, f64, String)> {
+fn ks_two_sample(
+    py: Python<'_>,
+    a: PyReadonlyArray1<'_, f64>,
+    b: PyReadonlyArray1<'_, f64>,
+    mode: &str,
+) -> PyResult<(f64, f64, String)> {
     let (x, y) = (vector(&a, "a")?, vector(&b, "b")?);
     let mode = match mode {
         "auto" => None,
@@ -124,8 +139,15 @@ fn ks_two_sample(py: Python<'_>, a: PyReadonlyArray1<'_, f64>, b: PyReadonlyArra
 
 /// Chi-square test of a 2 x k table given by its two rows: (statistic, p, dof).
 #[pyfunction]
-fn chi_square_two_rows(py: Python<'_>, source_counts: PyReadonlyArray1<'_, f64>, target_counts: PyReadonlyArray1<'_, f64>) -> PyResult<(f64, f64, usize)> {
-    let (a, b) = (vector(&source_counts, "source_counts")?, vector(&target_counts, "target_counts")?);
+fn chi_square_two_rows(
+    py: Python<'_>,
+    source_counts: PyReadonlyArray1<'_, f64>,
+    target_counts: PyReadonlyArray1<'_, f64>,
+) -> PyResult<(f64, f64, usize)> {
+    let (a, b) = (
+        vector(&source_counts, "source_counts")?,
+        vector(&target_counts, "target_counts")?,
+    );
     let r = detached(py, move || detect::chi_square_two_rows(a, b))?;
     Ok((r.statistic, r.p_value, r.dof))
 }

@@ -6,7 +6,9 @@ use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use shiftweight::ratio::auto::UniformRatio;
 use shiftweight::ratio::{FittedRatio, RatioEstimator};
-use shiftweight::{AutoRatio, ClassifierRatio, KLRatio, KernelMeanMatching, KliepCv, LeastSquaresRatio};
+use shiftweight::{
+    AutoRatio, ClassifierRatio, KLRatio, KernelMeanMatching, KliepCv, LeastSquaresRatio,
+};
 use std::sync::Arc;
 
 /// A fitted density-ratio model (immutable; safe to share between threads).
@@ -211,7 +213,12 @@ fn fit_kmm(
     feature_names: Option<Vec<String>>,
 ) -> PyResult<RatioModel> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
-    let est = KernelMeanMatching::new().sigma(sigma).bound(bound).eps(eps).block_rows(block_rows).seed(seed);
+    let est = KernelMeanMatching::new()
+        .sigma(sigma)
+        .bound(bound)
+        .eps(eps)
+        .block_rows(block_rows)
+        .seed(seed);
     detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
 }
 
@@ -268,13 +275,21 @@ fn fit_classifier(
 }
 
 /// Reads a required entry of a candidate's parameter dict.
-fn arg<'py, T: FromPyObjectOwned<'py>>(p: &Bound<'py, PyDict>, kind: &str, key: &str) -> PyResult<T> {
+fn arg<'py, T: FromPyObjectOwned<'py>>(
+    p: &Bound<'py, PyDict>,
+    kind: &str,
+    key: &str,
+) -> PyResult<T> {
     match p.get_item(key)? {
         Some(v) => v.extract::<T>().map_err(|e| {
             let e: PyErr = e.into();
-            ShiftweightError::new_err(format!("candidate of kind {kind:?}: parameter `{key}` has the wrong type ({e})"))
+            ShiftweightError::new_err(format!(
+                "candidate of kind {kind:?}: parameter `{key}` has the wrong type ({e})"
+            ))
         }),
-        None => Err(ShiftweightError::new_err(format!("candidate of kind {kind:?} lacks parameter `{key}`"))),
+        None => Err(ShiftweightError::new_err(format!(
+            "candidate of kind {kind:?} lacks parameter `{key}`"
+        ))),
     }
 }
 
@@ -337,7 +352,10 @@ fn fit_auto(
     feature_names: Option<Vec<String>>,
 ) -> PyResult<RatioModel> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
-    let mut est = AutoRatio::new().folds(folds).seed(seed).se_margin(se_margin);
+    let mut est = AutoRatio::new()
+        .folds(folds)
+        .seed(seed)
+        .se_margin(se_margin);
     if let Some(list) = candidates {
         est = est.without_defaults();
         for (name, kind, p) in &list {
@@ -357,7 +375,9 @@ fn weights_from_probabilities<'py>(
     clip: f64,
 ) -> PyResult<(Bound<'py, PyArray1<f64>>, usize)> {
     let p = vector(&p_target, "p_target")?;
-    let r = detached(py, move || shiftweight::ratio_from_probabilities(p, n_source, n_target, clip))?;
+    let r = detached(py, move || {
+        shiftweight::ratio_from_probabilities(p, n_source, n_target, clip)
+    })?;
     Ok((r.weights.into_pyarray(py), r.n_clipped))
 }
 

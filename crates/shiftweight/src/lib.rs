@@ -55,15 +55,15 @@ pub mod ratio;
 pub mod weights;
 
 pub use data::{Matrix, MatrixView, Standardizer};
-pub use detect::{ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult};
+pub use detect::{
+    ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult,
+};
+pub use diagnostics::{diagnose, effective_sample_size, pareto_k, Diagnosis, Verdict};
 pub use error::{Error, Result};
 pub use ratio::{
     ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, KLRatio,
-    KernelMeanMatching, KliepCv, LeastSquaresRatio,
-    RatioEstimator,
+    KernelMeanMatching, KliepCv, LeastSquaresRatio, RatioEstimator,
 };
-pub use ratio::{EstimatorKind, FittedRatio, LeastSquaresRatio, RatioEstimator};
-pub use diagnostics::{diagnose, effective_sample_size, pareto_k, Diagnosis, Verdict};
 pub use weights::{stabilize, StabilizeOptions, Stabilized};
 
 /// Sets the number of threads of the global pool used by the crate (call once, before any work).

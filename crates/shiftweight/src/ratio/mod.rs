@@ -6,10 +6,10 @@
 //! `FittedRatio` scores any number of rows in fixed-size chunks in parallel, records what was chosen
 //! and the scores that chose it, and serialises to the versioned model file of [`crate::model`].
 
-pub mod kliep;
-pub mod kmm;
 pub mod auto;
 pub mod classifier;
+pub mod kliep;
+pub mod kmm;
 pub mod lsif;
 
 use crate::data::{Matrix, MatrixView, Standardizer};
@@ -19,10 +19,10 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
-pub use kliep::{KLRatio, KliepCv};
-pub use kmm::KernelMeanMatching;
 pub use auto::{AutoRatio, UniformRatio};
 pub use classifier::{ratio_from_probabilities, ClassifierRatio, FeatureMap, Features};
+pub use kliep::{KLRatio, KliepCv};
+pub use kmm::KernelMeanMatching;
 pub use lsif::LeastSquaresRatio;
 
 /// Fits a density-ratio model from a source sample and a target sample.
@@ -353,7 +353,12 @@ impl FittedRatio {
                     return Err(Error::ModelFile("non-finite centre or coefficient".into()));
                 }
             }
-            RatioForm::LogLinear { map, coef, intercept, log_prior_ratio } => {
+            RatioForm::LogLinear {
+                map,
+                coef,
+                intercept,
+                log_prior_ratio,
+            } => {
                 map.check(d)?;
                 if coef.len() != map.dim(d) {
                     return Err(Error::ModelFile(format!(
@@ -363,15 +368,23 @@ impl FittedRatio {
                         map.name()
                     )));
                 }
-                if coef.iter().chain([intercept, log_prior_ratio]).any(|v| !v.is_finite()) {
-                    return Err(Error::ModelFile("non-finite classifier coefficient, intercept or prior".into()));
+                if coef
+                    .iter()
+                    .chain([intercept, log_prior_ratio])
+                    .any(|v| !v.is_finite())
+                {
+                    return Err(Error::ModelFile(
+                        "non-finite classifier coefficient, intercept or prior".into(),
+                    ));
                 }
             }
             RatioForm::SourceOnly | RatioForm::Uniform => {}
         }
         if let (Some(c), false) = (&self.selection.candidate, self.selection.labels.is_empty()) {
             if !self.selection.labels.contains(c) {
-                return Err(Error::ModelFile(format!("chosen candidate {c:?} is not in the score table")));
+                return Err(Error::ModelFile(format!(
+                    "chosen candidate {c:?} is not in the score table"
+                )));
             }
         }
         Ok(())
