@@ -703,7 +703,9 @@ mod tests {
                 let logit = crate::learn::WeightedLogistic::new()
                     .fit(
                         s.view(),
-                        &(0..s.rows()).map(|i| (i % 3 == 0) as u8 as f64).collect::<Vec<_>>(),
+                        &(0..s.rows())
+                            .map(|i| (i % 3 == 0) as u8 as f64)
+                            .collect::<Vec<_>>(),
                         Some(&m.source_weights),
                     )
                     .unwrap();
@@ -714,9 +716,18 @@ mod tests {
         for threads in [2, 3] {
             let other = run(threads);
             assert!(one.0 == other.0, "model differs with {threads} threads");
-            assert!(one.1 == other.1, "scores of rows differ with {threads} threads");
-            assert!(one.2 == other.2, "LOOCV table differs with {threads} threads");
-            assert!(one.3 == other.3, "logistic coefficients differ with {threads} threads");
+            assert!(
+                one.1 == other.1,
+                "scores of rows differ with {threads} threads"
+            );
+            assert!(
+                one.2 == other.2,
+                "LOOCV table differs with {threads} threads"
+            );
+            assert!(
+                one.3 == other.3,
+                "logistic coefficients differ with {threads} threads"
+            );
         }
     }
 
