@@ -6,7 +6,7 @@ PY := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
 export PATH := $(abspath $(VENV))/bin:$(PATH)
 
-.PHONY: test test-rust test-python develop venv lint fmt bench demo clean
+.PHONY: test test-rust test-python develop develop-release venv lint fmt bench compare compare-quick demo clean
 
 test: test-rust test-python
 
@@ -36,6 +36,17 @@ fmt:
 
 bench:
 	cargo bench -p shiftweight
+
+# Side-by-side timings against numpy / scipy / scikit-learn (not part of the test suite; see
+# benches/README.md). Builds the extension in release mode first: dev-build timings mean nothing.
+develop-release: $(PY)
+	$(VENV)/bin/maturin develop --release --quiet --extras test
+
+compare: develop-release
+	$(PY) benches/compare.py $(ARGS)
+
+compare-quick: develop-release
+	$(PY) benches/compare.py --quick $(ARGS)
 
 demo:
 	cargo run --release -p shiftweight-cli -- demo

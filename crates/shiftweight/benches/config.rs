@@ -23,3 +23,11 @@ pub fn slow_config() -> Criterion {
         .warm_up_time(Duration::from_secs(1))
         .measurement_time(Duration::from_secs(20))
 }
+
+/// Sub-millisecond to tens of milliseconds per step: more samples, short runs.
+pub fn fast_config() -> Criterion {
+    Criterion::default()
+        .sample_size(30)
+        .warm_up_time(Duration::from_secs(1))
+        .measurement_time(Duration::from_secs(5))
+}

@@ -313,17 +313,31 @@ pub(crate) fn fit_logistic(
                     }
                     row[d] = sw;
                 }
+                // Symmetric rank-m update: only the lower triangle (half the flops of a full
+                // product); the upper triangle is mirrored once after the reduction.
                 let zm = MatRef::from_row_major_slice(&zt, m, p);
                 let mut h = Mat::<f64>::zeros(p, p);
-                faer::linalg::matmul::matmul(
+                faer::linalg::matmul::triangular::matmul(
                     h.as_mut(),
+                    faer::linalg::matmul::triangular::BlockStructure::TriangularLower,
                     faer::Accum::Replace,
                     zm.transpose(),
+                    faer::linalg::matmul::triangular::BlockStructure::Rectangular,
                     zm,
+                    faer::linalg::matmul::triangular::BlockStructure::Rectangular,
                     1.0,
                     Par::Seq,
                 );
-                let hv: Vec<f64> = (0..p * p).map(|k| h[(k / p, k % p)]).collect();
+                let hv: Vec<f64> = (0..p * p)
+                    .map(|k| {
+                        let (i, j) = (k / p, k % p);
+                        if j <= i {
+                            h[(i, j)]
+                        } else {
+                            0.0
+                        }
+                    })
+                    .collect();
                 (g, hv)
             },
             |acc, part| {
@@ -339,7 +353,7 @@ pub(crate) fn fit_logistic(
         if gmax <= tol * wsum.max(1.0) {
             return Ok(unscale(&theta, &mean, &scale, it - 1));
         }
-        let mut h = Mat::<f64>::from_fn(p, p, |i, j| hess[i * p + j]);
+        let mut h = Mat::<f64>::from_fn(p, p, |i, j| hess[i.max(j) * p + i.min(j)]);
         for j in 0..d {
             h[(j, j)] += pen[j];
         }

@@ -13,21 +13,41 @@ pub const BATCH_CHUNKS: usize = 8;
 
 /// Maps every chunk `start..end` of `0..n_rows` with `map` (in parallel) and folds the partials
 /// into `acc` with `fold`, in chunk order.
-pub fn reduce_chunks<T, A, M, F>(n_rows: usize, mut acc: A, map: M, mut fold: F) -> A
+pub fn reduce_chunks<T, A, M, F>(n_rows: usize, acc: A, map: M, fold: F) -> A
 where
     T: Send,
     M: Fn(usize, usize) -> T + Sync,
     F: FnMut(&mut A, T),
 {
-    let n_chunks = n_rows.div_ceil(CHUNK_ROWS);
+    reduce_chunks_sized(n_rows, CHUNK_ROWS, acc, map, fold)
+}
+
+/// As [`reduce_chunks`] with chunks of `chunk_rows` rows (a constant chosen by the caller, never
+/// derived from the thread count, so results stay bitwise identical for any number of threads).
+/// Useful when each row is expensive (e.g. one held-out pair of a cross-validation) and the
+/// default chunk would leave too few chunks to keep every thread busy.
+pub fn reduce_chunks_sized<T, A, M, F>(
+    n_rows: usize,
+    chunk_rows: usize,
+    mut acc: A,
+    map: M,
+    mut fold: F,
+) -> A
+where
+    T: Send,
+    M: Fn(usize, usize) -> T + Sync,
+    F: FnMut(&mut A, T),
+{
+    let chunk_rows = chunk_rows.max(1);
+    let n_chunks = n_rows.div_ceil(chunk_rows);
     let mut first = 0;
     while first < n_chunks {
         let last = (first + BATCH_CHUNKS).min(n_chunks);
         let partials: Vec<T> = (first..last)
             .into_par_iter()
             .map(|k| {
-                let start = k * CHUNK_ROWS;
-                map(start, (start + CHUNK_ROWS).min(n_rows))
+                let start = k * chunk_rows;
+                map(start, (start + chunk_rows).min(n_rows))
             })
             .collect();
         for p in partials {

@@ -38,6 +38,7 @@ use faer::linalg::matmul::matmul;
 use faer::prelude::*;
 use faer::{Accum, Mat, Side};
 use rand::seq::index::sample;
+use rayon::prelude::*;
 
 /// uLSIF / RuLSIF configuration. Build with [`LeastSquaresRatio::new`] and the setters.
 #[derive(Debug, Clone, PartialEq)]
@@ -182,6 +183,10 @@ pub(crate) struct KernelSums {
 /// Accumulates, for every width, sum_i k(x_i) k(x_i)' (when `gram`) and sum_i k(x_i) over the rows
 /// of `z`, chunk by chunk through [`crate::par::reduce_chunks`] (bitwise reproducible for any
 /// thread count). Memory: O(BATCH_CHUNKS * n_sigma * b^2); no n x b matrix is held.
+///
+/// Squared distances are computed once per chunk (one product) and shared by every width. The
+/// Gram update is a symmetric rank-k update: only the lower triangle is formed (half the flops of
+/// a full product) and folded; the upper triangle is mirrored once at the end.
 pub(crate) fn kernel_sums(
     z: MatrixView,
     centres: MatrixView,
@@ -197,7 +202,7 @@ pub(crate) fn kernel_sums(
             .collect(),
         sum: sigmas.iter().map(|_| vec![0.0; b]).collect(),
     };
-    par::reduce_chunks(
+    let mut sums = par::reduce_chunks(
         z.rows(),
         init,
         |start, end| {
@@ -207,12 +212,11 @@ pub(crate) fn kernel_sums(
             kernel::sq_distances_into(rows, centres, &c_sq, &mut dist);
             let mut kb = vec![0.0; m * b];
             let mut part = KernelSums {
-                gram: Vec::new(),
-                sum: Vec::new(),
+                gram: Vec::with_capacity(sigmas.len()),
+                sum: Vec::with_capacity(sigmas.len()),
             };
             for &s in sigmas {
-                kb.copy_from_slice(&dist);
-                kernel::gaussian_in_place(&mut kb, s);
+                kernel::gaussian_from(&dist, s, &mut kb);
                 let mut sum = vec![0.0; b];
                 for row in kb.chunks_exact(b) {
                     par::add_into(&mut sum, row);
@@ -221,14 +225,7 @@ pub(crate) fn kernel_sums(
                 part.gram.push(gram.then(|| {
                     let km = MatRef::from_row_major_slice(&kb, m, b);
                     let mut g = Mat::<f64>::zeros(b, b);
-                    matmul(
-                        g.as_mut(),
-                        Accum::Replace,
-                        km.transpose(),
-                        km,
-                        1.0,
-                        Par::Seq,
-                    );
+                    kernel::gram_lower(g.as_mut(), km, Accum::Replace);
                     g
                 }));
             }
@@ -240,15 +237,27 @@ pub(crate) fn kernel_sums(
             }
             for (g, pg) in acc.gram.iter_mut().zip(p.gram) {
                 if let (Some(g), Some(pg)) = (g.as_mut(), pg) {
-                    *g += pg;
+                    kernel::add_lower(g, &pg);
                 }
             }
         },
-    )
+    );
+    for g in sums.gram.iter_mut().flatten() {
+        kernel::mirror_lower(g);
+    }
+    sums
 }
+
+/// Held-out pairs per parallel block of the LOOCV (a constant, so results do not depend on the
+/// thread count).
+const LOO_BLOCK: usize = 256;
 
 /// Held-out LOO scores of every lambda for one width. `ks`, `kt`: kernel values at the held-out
 /// source and target rows, row-major m x b. `base` = (1-alpha)/(n_s-1) S_s + alpha/(n_t-1) S_t.
+///
+/// The held-out pairs are processed in fixed blocks of [`LOO_BLOCK`] in parallel; each block
+/// returns its partial sum of the criterion for every lambda, folded in block order (bitwise
+/// reproducible for any thread count).
 #[allow(clippy::too_many_arguments)]
 fn loo_scores(
     base: &Mat<f64>,
@@ -270,97 +279,143 @@ fn loo_scores(
         })?;
     let u = eig.U();
     let s: Vec<f64> = (0..b).map(|j| eig.S()[j].max(0.0)).collect();
-    let ksm = MatRef::from_row_major_slice(ks, m, b).transpose(); // b x m
-    let ktm = MatRef::from_row_major_slice(kt, m, b).transpose();
-    let mut g = Mat::<f64>::zeros(b, m);
-    let mut f = Mat::<f64>::zeros(b, m);
-    matmul(
-        g.as_mut(),
-        Accum::Replace,
-        u.transpose(),
-        ksm,
-        1.0,
-        Par::Seq,
-    );
-    matmul(
-        f.as_mut(),
-        Accum::Replace,
-        u.transpose(),
-        ktm,
-        1.0,
-        Par::Seq,
-    );
     let st = ColRef::from_slice(sum_t);
     let gt: Col<f64> = u.transpose() * st;
     let a = 1.0 - alpha;
     let p = a / (n_s as f64 - 1.0);
     let q = alpha / (n_t as f64 - 1.0);
     let nt1 = n_t as f64 - 1.0;
-    let mut scores = Vec::with_capacity(lambdas.len());
-    for &lam in lambdas {
-        let dinv: Vec<f64> = s.iter().map(|sj| 1.0 / (sj + lam)).collect();
-        // theta~ in eigen-coordinates for every held-out pair (columns).
-        let mut tt = Mat::<f64>::zeros(b, m);
-        let mut bad = false;
-        for i in 0..m {
-            let (mut uu, mut uv, mut vv, mut uy, mut vy) = (0.0, 0.0, 0.0, 0.0, 0.0);
-            for j in 0..b {
-                let (uj, vj, dj) = (g[(j, i)], f[(j, i)], dinv[j]);
-                let yj = dj * (gt[j] - vj) / nt1;
-                uu += uj * dj * uj;
-                uv += uj * dj * vj;
-                vv += vj * dj * vj;
-                uy += uj * yj;
-                vy += vj * yj;
-            }
-            let (z0, z1) = if alpha == 0.0 {
-                let den = 1.0 / p - uu;
-                if den.abs() < 1e-12 * (1.0 / p) {
-                    bad = true;
-                    break;
+    let n_l = lambdas.len();
+    let dinv: Vec<Vec<f64>> = lambdas
+        .iter()
+        .map(|lam| s.iter().map(|sj| 1.0 / (sj + lam)).collect())
+        .collect();
+    // (partial criterion sum, any singular held-out system) for every lambda.
+    let init = (vec![0.0; n_l], vec![false; n_l]);
+    let (totals, bad) = par::reduce_chunks_sized(
+        m,
+        LOO_BLOCK,
+        init,
+        |start, end| {
+            let mb = end - start;
+            let ksb = &ks[start * b..end * b];
+            let ktb = &kt[start * b..end * b];
+            let ksm = MatRef::from_row_major_slice(ksb, mb, b).transpose(); // b x mb
+            let ktm = MatRef::from_row_major_slice(ktb, mb, b).transpose();
+            let mut g = Mat::<f64>::zeros(b, mb);
+            let mut f = Mat::<f64>::zeros(b, mb);
+            matmul(
+                g.as_mut(),
+                Accum::Replace,
+                u.transpose(),
+                ksm,
+                1.0,
+                Par::Seq,
+            );
+            matmul(
+                f.as_mut(),
+                Accum::Replace,
+                u.transpose(),
+                ktm,
+                1.0,
+                Par::Seq,
+            );
+            let mut tot = vec![0.0; n_l];
+            let mut bad = vec![false; n_l];
+            let mut tt = Mat::<f64>::zeros(b, mb);
+            let mut theta = Mat::<f64>::zeros(b, mb);
+            for (li, dinv) in dinv.iter().enumerate() {
+                // theta~ in eigen-coordinates for every held-out pair (columns).
+                for i in 0..mb {
+                    let gi = g
+                        .col(i)
+                        .try_as_col_major()
+                        .expect("column-major")
+                        .as_slice();
+                    let fi = f
+                        .col(i)
+                        .try_as_col_major()
+                        .expect("column-major")
+                        .as_slice();
+                    let (mut uu, mut uv, mut vv, mut uy, mut vy) = (0.0, 0.0, 0.0, 0.0, 0.0);
+                    for j in 0..b {
+                        let (uj, vj, dj) = (gi[j], fi[j], dinv[j]);
+                        let yj = dj * (gt[j] - vj) / nt1;
+                        uu += uj * dj * uj;
+                        uv += uj * dj * vj;
+                        vv += vj * dj * vj;
+                        uy += uj * yj;
+                        vy += vj * yj;
+                    }
+                    let (z0, z1) = if alpha == 0.0 {
+                        let den = 1.0 / p - uu;
+                        if den.abs() < 1e-12 * (1.0 / p) {
+                            bad[li] = true;
+                            break;
+                        }
+                        (uy / den, 0.0)
+                    } else {
+                        let (m00, m01, m11) = (1.0 / p - uu, -uv, 1.0 / q - vv);
+                        let det = m00 * m11 - m01 * m01;
+                        if det.abs() < 1e-12 * (m00.abs() * m11.abs()).max(1e-300) {
+                            bad[li] = true;
+                            break;
+                        }
+                        ((m11 * uy - m01 * vy) / det, (m00 * vy - m01 * uy) / det)
+                    };
+                    let ti = tt
+                        .col_mut(i)
+                        .try_as_col_major_mut()
+                        .expect("column-major")
+                        .as_slice_mut();
+                    for j in 0..b {
+                        let dj = dinv[j];
+                        ti[j] = dj * (gt[j] - fi[j]) / nt1 + dj * gi[j] * z0 + dj * fi[j] * z1;
+                    }
                 }
-                (uy / den, 0.0)
-            } else {
-                let (m00, m01, m11) = (1.0 / p - uu, -uv, 1.0 / q - vv);
-                let det = m00 * m11 - m01 * m01;
-                if det.abs() < 1e-12 * (m00.abs() * m11.abs()).max(1e-300) {
-                    bad = true;
-                    break;
+                if bad[li] {
+                    continue;
                 }
-                ((m11 * uy - m01 * vy) / det, (m00 * vy - m01 * uy) / det)
-            };
-            for j in 0..b {
-                let dj = dinv[j];
-                tt[(j, i)] =
-                    dj * (gt[j] - f[(j, i)]) / nt1 + dj * g[(j, i)] * z0 + dj * f[(j, i)] * z1;
+                matmul(
+                    theta.as_mut(),
+                    Accum::Replace,
+                    u,
+                    tt.as_ref(),
+                    1.0,
+                    Par::Seq,
+                );
+                let mut total = 0.0;
+                for i in 0..mb {
+                    let th = theta
+                        .col(i)
+                        .try_as_col_major()
+                        .expect("column-major")
+                        .as_slice();
+                    let (ksi, kti) = (&ksb[i * b..(i + 1) * b], &ktb[i * b..(i + 1) * b]);
+                    let (mut rs, mut rt) = (0.0, 0.0);
+                    for j in 0..b {
+                        let th = th[j].max(0.0);
+                        rs += ksi[j] * th;
+                        rt += kti[j] * th;
+                    }
+                    total += a * rs * rs / 2.0 + alpha * rt * rt / 2.0 - rt;
+                }
+                tot[li] = total;
             }
-        }
-        if bad {
-            scores.push(f64::INFINITY);
-            continue;
-        }
-        let mut theta = Mat::<f64>::zeros(b, m);
-        matmul(
-            theta.as_mut(),
-            Accum::Replace,
-            u,
-            tt.as_ref(),
-            1.0,
-            Par::Seq,
-        );
-        let mut total = 0.0;
-        for i in 0..m {
-            let (mut rs, mut rt) = (0.0, 0.0);
-            for j in 0..b {
-                let th = theta[(j, i)].max(0.0);
-                rs += ks[i * b + j] * th;
-                rt += kt[i * b + j] * th;
+            (tot, bad)
+        },
+        |acc, part| {
+            par::add_into(&mut acc.0, &part.0);
+            for (x, y) in acc.1.iter_mut().zip(part.1) {
+                *x |= y;
             }
-            total += a * rs * rs / 2.0 + alpha * rt * rt / 2.0 - rt;
-        }
-        scores.push(total / m as f64);
-    }
-    Ok(scores)
+        },
+    );
+    Ok(totals
+        .iter()
+        .zip(&bad)
+        .map(|(t, bad)| if *bad { f64::INFINITY } else { t / m as f64 })
+        .collect())
 }
 
 /// Solves (H + lambda I) theta = h and rounds negative coefficients up to zero.
@@ -412,18 +467,33 @@ impl RatioEstimator for LeastSquaresRatio {
             let cvs = zs.view().select_rows(&is);
             let cvt = zt.view().select_rows(&it);
             let mut best = f64::INFINITY;
-            for (si, &sigma) in sigmas.iter().enumerate() {
-                let mut base = ss.gram[si].as_ref().expect("gram").clone()
-                    * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
-                if alpha > 0.0 {
-                    base += stt.gram[si].as_ref().expect("gram").clone()
-                        * Scale(alpha / (n_t as f64 - 1.0));
-                }
-                let ks = kernel::kernel_block(cvs.view(), centres.view(), sigma);
-                let kt = kernel::kernel_block(cvt.view(), centres.view(), sigma);
-                let scores =
-                    loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)?;
-                for (li, &sc) in scores.iter().enumerate() {
+            // Squared distances of the held-out rows, shared by every width.
+            let c_sq = kernel::row_sq_norms(centres.view());
+            let mut ds = vec![0.0; m * b];
+            let mut dt = vec![0.0; m * b];
+            kernel::sq_distances_into(cvs.view(), centres.view(), &c_sq, &mut ds);
+            kernel::sq_distances_into(cvt.view(), centres.view(), &c_sq, &mut dt);
+            // Widths are independent: scored in parallel, collected in grid order.
+            let per_width: Vec<Result<Vec<f64>>> = sigmas
+                .par_iter()
+                .enumerate()
+                .map(|(si, &sigma)| {
+                    let mut base = ss.gram[si].as_ref().expect("gram").clone()
+                        * Scale((1.0 - alpha) / (n_s as f64 - 1.0));
+                    if alpha > 0.0 {
+                        base += stt.gram[si].as_ref().expect("gram").clone()
+                            * Scale(alpha / (n_t as f64 - 1.0));
+                    }
+                    let mut ks = vec![0.0; m * b];
+                    let mut kt = vec![0.0; m * b];
+                    kernel::gaussian_from(&ds, sigma, &mut ks);
+                    kernel::gaussian_from(&dt, sigma, &mut kt);
+                    loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)
+                })
+                .collect();
+            for (si, scores) in per_width.into_iter().enumerate() {
+                let sigma = sigmas[si];
+                for (li, &sc) in scores?.iter().enumerate() {
                     table.push(ScoreRow {
                         params: params([("sigma", sigma), ("lam", lambdas[li])]),
                         score: sc,
@@ -611,6 +681,54 @@ mod tests {
                     }
                 }
             }
+        }
+    }
+
+    // Property (no outside reference): the fixed-chunk reductions make every result bitwise
+    // identical whatever the number of threads. Sizes span several row chunks and LOOCV blocks.
+    #[test]
+    fn fit_and_scores_are_bitwise_identical_for_any_thread_count() {
+        let s = gaussian_rows(5000, 3, 0.0, 11);
+        let t = gaussian_rows(3000, 3, 0.5, 12);
+        let x = gaussian_rows(7000, 3, 0.2, 13);
+        let run = |threads: usize| {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            pool.install(|| {
+                let est = LeastSquaresRatio::new().n_basis(60).max_cv_rows(1500);
+                let m = est.fit(s.view(), t.view()).unwrap();
+                let w = m.ratio(x.view()).unwrap();
+                let scores: Vec<f64> = m.selection.table.iter().map(|r| r.score).collect();
+                let logit = crate::learn::WeightedLogistic::new()
+                    .fit(
+                        s.view(),
+                        &(0..s.rows())
+                            .map(|i| (i % 3 == 0) as u8 as f64)
+                            .collect::<Vec<_>>(),
+                        Some(&m.source_weights),
+                    )
+                    .unwrap();
+                (m.to_json().unwrap(), w, scores, logit.coef)
+            })
+        };
+        let one = run(1);
+        for threads in [2, 3] {
+            let other = run(threads);
+            assert!(one.0 == other.0, "model differs with {threads} threads");
+            assert!(
+                one.1 == other.1,
+                "scores of rows differ with {threads} threads"
+            );
+            assert!(
+                one.2 == other.2,
+                "LOOCV table differs with {threads} threads"
+            );
+            assert!(
+                one.3 == other.3,
+                "logistic coefficients differ with {threads} threads"
+            );
         }
     }
 

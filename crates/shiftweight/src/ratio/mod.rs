@@ -31,6 +31,9 @@ pub trait RatioEstimator {
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio>;
 }
 
+/// Rows per cache-sized block when scoring (kernel values of one block stay in L2).
+const SCORE_BLOCK: usize = 256;
+
 /// Which published method produced a fitted model.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -202,26 +205,30 @@ impl FittedRatio {
                 coef,
             } => {
                 let c_sq = kernel::row_sq_norms(centres.view());
-                let d = x.cols();
+                let (b, d) = (centres.rows(), x.cols());
                 out.par_chunks_mut(CHUNK_ROWS)
                     .enumerate()
                     .for_each(|(k, out_chunk)| {
                         let start = k * CHUNK_ROWS;
-                        let m = out_chunk.len();
-                        let rows = x.slice_rows(start, start + m);
-                        let z = self.standardizer.transform(&rows);
-                        let b = centres.rows();
-                        let mut kb = vec![0.0; m * b];
-                        kernel::kernel_block_into(z.view(), centres.view(), &c_sq, *sigma, &mut kb);
-                        for (i, o) in out_chunk.iter_mut().enumerate() {
-                            let r: f64 = kb[i * b..(i + 1) * b]
-                                .iter()
-                                .zip(coef)
-                                .map(|(k, c)| k * c)
-                                .sum();
-                            *o = r.max(0.0);
+                        // Sub-blocks small enough that the kernel values stay in cache between
+                        // the distance product, the exponentials and the weighted sum.
+                        let mut z = vec![0.0; SCORE_BLOCK * d];
+                        let mut kb = vec![0.0; SCORE_BLOCK * b];
+                        for (s, out_block) in out_chunk.chunks_mut(SCORE_BLOCK).enumerate() {
+                            let m = out_block.len();
+                            let first = start + s * SCORE_BLOCK;
+                            for i in 0..m {
+                                self.standardizer
+                                    .transform_row(x.row(first + i), &mut z[i * d..(i + 1) * d]);
+                            }
+                            let zv = MatrixView::new(&z[..m * d], m, d).expect("block shape");
+                            let kb = &mut kb[..m * b];
+                            kernel::kernel_block_into(zv, centres.view(), &c_sq, *sigma, kb);
+                            for (o, row) in out_block.iter_mut().zip(kb.chunks_exact(b)) {
+                                let r: f64 = row.iter().zip(coef).map(|(k, c)| k * c).sum();
+                                *o = r.max(0.0);
+                            }
                         }
-                        let _ = d;
                     });
                 Ok(())
             }
@@ -267,17 +274,14 @@ impl FittedRatio {
                 };
                 self.standardizer.transform_row(row, zs);
                 let g = -0.5 / (sigma * sigma);
+                let d = zs.len();
                 let mut acc = 0.0;
-                for (l, c) in coef.iter().enumerate() {
+                for (c, centre) in coef.iter().zip(centres.as_slice().chunks_exact(d)) {
                     if *c == 0.0 {
                         continue;
                     }
-                    let sq: f64 = zs
-                        .iter()
-                        .zip(centres.row(l))
-                        .map(|(a, b)| (a - b) * (a - b))
-                        .sum();
-                    acc += c * (sq * g).exp();
+                    let sq: f64 = zs.iter().zip(centre).map(|(a, b)| (a - b) * (a - b)).sum();
+                    acc += c * kernel::exp_nonpositive(sq * g);
                 }
                 Ok(acc.max(0.0))
             }
