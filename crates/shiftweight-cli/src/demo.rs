@@ -13,8 +13,7 @@ use std::path::PathBuf;
 
 /// The estimator the demo uses.
 ///
-/// MERGE: switch to `EstimatorName::Auto` once the automatic choice is in this build.
-const DEMO_ESTIMATOR: EstimatorName = EstimatorName::Lsif;
+const DEMO_ESTIMATOR: EstimatorName = EstimatorName::Auto;
 
 #[derive(Args)]
 #[command(after_help = "Examples:
@@ -124,7 +123,14 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         estimator.fit(s, t)?
     };
     model.meta.feature_names = Some(data.feature_names.clone());
-    let outcome = finish_weights(&model, &StabiliseArgs::default())?;
+    // Truncation at sqrt(n) x mean (Ionides 2008) and normalisation to mean 1.
+    let outcome = finish_weights(
+        &model,
+        &StabiliseArgs {
+            truncate: true,
+            ..StabiliseArgs::default()
+        },
+    )?;
     let w = &outcome.weights;
     let ess = outcome.part.effective_sample_size;
     let est = estimator_part(&model, DEMO_ESTIMATOR.label());

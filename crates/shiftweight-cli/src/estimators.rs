@@ -2,7 +2,9 @@
 
 use crate::{exit, Failure};
 use clap::{Args, ValueEnum};
-use shiftweight::{LeastSquaresRatio, RatioEstimator};
+use shiftweight::{
+    AutoRatio, ClassifierRatio, KLRatio, KernelMeanMatching, LeastSquaresRatio, RatioEstimator,
+};
 
 /// Estimator names accepted by `--estimator`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -58,22 +60,11 @@ pub struct EstimatorArgs {
 /// A boxed estimator that can be fitted from any thread.
 pub type BoxedEstimator = Box<dyn RatioEstimator + Send + Sync>;
 
-fn not_in_build(name: EstimatorName) -> Failure {
-    Failure {
-        code: exit::BAD_INPUT,
-        message: format!(
-            "estimator `{}` ({}) is not available in this build; use --estimator lsif or --estimator rulsif",
-            name.to_possible_value().map(|v| v.get_name().to_string()).unwrap_or_default(),
-            name.label()
-        ),
-    }
-}
-
 /// Maps the `--estimator` choice and its options to an estimator. Options are checked here, so a
 /// bad value fails before any file is read further.
-///
-/// MERGE: this is the single place where KLIEP, KMM, the classifier and the automatic choice are
-/// wired in; each arm below that returns `not_in_build` becomes a constructor call.
+/// `auto` chooses among uniform weights, uLSIF, RuLSIF and the classifier (linear, quadratic and
+/// Fourier features, data-chosen penalty) by the held-out least-squares criterion; the classifier
+/// here chooses its penalty by out-of-fold log-loss.
 pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator, Failure> {
     let least_squares = |alpha: f64| -> Result<BoxedEstimator, Failure> {
         let e = LeastSquaresRatio::new()
@@ -107,9 +98,20 @@ pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator
             }
             least_squares(alpha)
         }
-        EstimatorName::Auto
-        | EstimatorName::Kliep
-        | EstimatorName::Kmm
-        | EstimatorName::Classifier => Err(not_in_build(args.estimator)),
+        EstimatorName::Auto => Ok(Box::new(AutoRatio::new().seed(seed))),
+        EstimatorName::Kliep => {
+            let e = KLRatio::new()
+                .sigma(args.sigma)
+                .n_basis(args.n_basis)
+                .seed(seed);
+            e.check()?;
+            Ok(Box::new(e))
+        }
+        EstimatorName::Kmm => {
+            let e = KernelMeanMatching::new().sigma(args.sigma).seed(seed);
+            e.check()?;
+            Ok(Box::new(e))
+        }
+        EstimatorName::Classifier => Ok(Box::new(ClassifierRatio::new().l2(None).seed(seed))),
     }
 }

@@ -70,8 +70,6 @@ pub struct InputFacts {
 }
 
 /// Shift-test result (from the detection module).
-// MERGE: built by the detection and clipping hooks of `crate::steps` once they exist.
-#[allow(dead_code)]
 #[derive(Debug, Clone, Serialize)]
 pub struct ShiftPart {
     /// Test method (`classifier` or `mmd`).
@@ -126,8 +124,6 @@ pub struct WeightsPart {
 }
 
 /// One row of the clipping trade-off.
-// MERGE: built by the detection and clipping hooks of `crate::steps` once they exist.
-#[allow(dead_code)]
 #[derive(Debug, Clone, Serialize)]
 pub struct ClipRow {
     /// Cap applied to the weights.
@@ -141,8 +137,6 @@ pub struct ClipRow {
 }
 
 /// Per-feature shift.
-// MERGE: built by the detection and clipping hooks of `crate::steps` once they exist.
-#[allow(dead_code)]
 #[derive(Debug, Clone, Serialize)]
 pub struct FeatureRow {
     /// Feature name.
@@ -584,8 +578,8 @@ footer{padding:1rem 2rem;color:#5c6b78;font-size:.85rem}svg.chart{max-width:100%
 
 /// Descriptive statistics of weights for the report.
 ///
-/// MERGE: the Kish effective sample size and the diagnostics map are to come from
-/// `shiftweight::diagnostics` once that module exists; only plain descriptive statistics are here.
+/// The effective sample size here is Kish's formula; `steps::finish_weights` replaces it and fills
+/// the diagnostics map from `shiftweight::diagnostics`.
 pub fn describe_weights(w: &[f64], stabilisation: &str) -> WeightsPart {
     let n = w.len();
     let mut sorted = w.to_vec();

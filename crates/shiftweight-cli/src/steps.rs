@@ -5,13 +5,69 @@ use crate::io::Table;
 use crate::report::{self, ClipRow, FeatureRow, Part, ShiftPart, WeightsPart};
 use crate::{exit, Failure};
 use clap::{Args, ValueEnum};
-use shiftweight::FittedRatio;
+use shiftweight::diagnostics::{clip_tradeoff, diagnose};
+use shiftweight::weights::{stabilize, StabilizeOptions};
+use shiftweight::{ClassifierShiftTest, FeatureShift, FittedRatio, MmdShiftTest};
 
-/// Options of the weight stabilisation step.
-///
-/// MERGE: the stabilisation flags of issue 8 (e.g. a cap or a quantile to clip at) go here.
+/// Options of the weight stabilisation step (`shiftweight::weights::stabilize`). Steps apply in
+/// the library's documented order: flatten (--power), Pareto smoothing (--smooth), clip at a
+/// quantile (--clip-quantile), then bounds, truncation and normalisation to mean 1.
 #[derive(Debug, Clone, Default, Args)]
-pub struct StabiliseArgs {}
+pub struct StabiliseArgs {
+    /// Clip weights above this quantile of the weights (e.g. 0.99).
+    #[arg(long, value_name = "Q")]
+    pub clip_quantile: Option<f64>,
+    /// Upper bound on the (normalised) weights.
+    #[arg(long, value_name = "U")]
+    pub upper: Option<f64>,
+    /// Lower bound on the (normalised) weights.
+    #[arg(long, value_name = "L")]
+    pub lower: Option<f64>,
+    /// Truncate at sqrt(n) times the mean weight (Ionides 2008).
+    #[arg(long)]
+    pub truncate: bool,
+    /// Flatten: w^POWER with POWER in [0, 1] (Shimodaira 2000).
+    #[arg(long, value_name = "POWER")]
+    pub power: Option<f64>,
+    /// Pareto-smooth the largest weights (PSIS, Vehtari et al. 2024).
+    #[arg(long)]
+    pub smooth: bool,
+    /// Keep the raw scale instead of normalising to mean 1 over the source rows.
+    #[arg(long)]
+    pub no_normalize: bool,
+}
+
+impl StabiliseArgs {
+    fn options(&self) -> Option<StabilizeOptions> {
+        let any = self.clip_quantile.is_some()
+            || self.upper.is_some()
+            || self.lower.is_some()
+            || self.truncate
+            || self.power.is_some()
+            || self.smooth
+            || self.no_normalize;
+        if !any {
+            return None;
+        }
+        let mut o = StabilizeOptions::new()
+            .truncate(self.truncate)
+            .smooth(self.smooth)
+            .normalize(!self.no_normalize);
+        if let Some(q) = self.clip_quantile {
+            o = o.upper_quantile(q);
+        }
+        if let Some(u) = self.upper {
+            o = o.upper(u);
+        }
+        if let Some(l) = self.lower {
+            o = o.lower(l);
+        }
+        if let Some(p) = self.power {
+            o = o.power(p);
+        }
+        Some(o)
+    }
+}
 
 /// The weights to write, with their report sections.
 pub struct WeightsOutcome {
@@ -23,21 +79,79 @@ pub struct WeightsOutcome {
     pub clipping: Part<Vec<ClipRow>>,
 }
 
-/// HOOK: stabilisation and diagnostics of the fitted source weights.
-///
-/// MERGE: apply `shiftweight::weights` stabilisation per `opts` here, fill `part.diagnostics`
-/// from `shiftweight::diagnostics` (Pareto k, verdict, Kish ESS), and the clipping trade-off.
+/// Stabilisation (when any option is given) and diagnostics of the fitted source weights.
 pub fn finish_weights(
     model: &FittedRatio,
     opts: &StabiliseArgs,
 ) -> Result<WeightsOutcome, Failure> {
-    let _ = opts;
-    let weights = model.source_weights.clone();
-    let part = report::describe_weights(&weights, "none (raw estimates)");
+    let (weights, described) = match opts.options() {
+        None => (
+            model.source_weights.clone(),
+            "none (raw estimates)".to_string(),
+        ),
+        Some(o) => {
+            let st = stabilize(&model.source_weights, &o)?;
+            let steps: Vec<String> = st
+                .report
+                .steps
+                .iter()
+                .map(|r| format!("{} ({} rows changed)", r.step, r.rows_changed))
+                .collect();
+            (
+                st.weights,
+                if steps.is_empty() {
+                    "none needed".into()
+                } else {
+                    steps.join("; ")
+                },
+            )
+        }
+    };
+    let mut part = report::describe_weights(&weights, &described);
+    let clipping = match diagnose(&weights, None) {
+        Ok(d) => {
+            part.effective_sample_size = d.ess;
+            let dm = &mut part.diagnostics;
+            dm.insert("verdict".into(), d.verdict.as_str().into());
+            dm.insert(
+                "Pareto k".into(),
+                d.pareto_k
+                    .map_or("not estimable".into(), |k| format!("{k:.3}")),
+            );
+            dm.insert("ESS fraction".into(), format!("{:.3}", d.ess_fraction));
+            dm.insert(
+                "share of weight in the top 1% of rows".into(),
+                format!("{:.3}", d.top1_share),
+            );
+            dm.insert(
+                "rows carrying half the weight".into(),
+                d.rows_for_half.to_string(),
+            );
+            dm.insert("zero weights".into(), d.n_zero.to_string());
+            for (i, w) in d.warnings.iter().enumerate() {
+                dm.insert(format!("warning {}", i + 1), w.clone());
+            }
+            match clip_tradeoff(&weights, None) {
+                Ok(t) => Part::Available(
+                    t.levels
+                        .iter()
+                        .map(|l| ClipRow {
+                            cap: l.upper,
+                            share_capped: l.rows_clipped as f64 / t.n.max(1) as f64,
+                            effective_sample_size: l.ess,
+                            shift_of_mean: Some(l.mean_shift),
+                        })
+                        .collect(),
+                ),
+                Err(e) => Part::missing(e.to_string()),
+            }
+        }
+        Err(e) => Part::missing(format!("diagnostics failed: {e}")),
+    };
     Ok(WeightsOutcome {
         weights,
         part,
-        clipping: Part::missing("the clipping trade-off is not available in this build"),
+        clipping,
     })
 }
 
@@ -65,8 +179,6 @@ pub struct DetectArgs {
 }
 
 /// What the shift test found.
-// MERGE: built by `run_detection` once `shiftweight::detect` exists.
-#[allow(dead_code)]
 pub struct DetectOutcome {
     /// The test result.
     pub shift: ShiftPart,
@@ -74,26 +186,59 @@ pub struct DetectOutcome {
     pub features: Part<Vec<FeatureRow>>,
 }
 
-/// HOOK: the shift test and per-feature shift.
-///
-/// MERGE: call `shiftweight::detect` (the two-sample test with `opts.method`,
-/// `opts.permutations`, `seed`, and the per-feature table with `source.names`) here.
+/// The shift test (classifier two-sample test or MMD) and the per-feature table.
 pub fn run_detection(
     source: &Table,
     target: &Table,
     opts: &DetectArgs,
     seed: u64,
 ) -> Result<DetectOutcome, Failure> {
-    let _ = (source, target, seed);
     if !(opts.level > 0.0 && opts.level < 1.0) {
         return Err(Failure {
             code: exit::BAD_INPUT,
             message: format!("--level must be in (0, 1), got {}", opts.level),
         });
     }
-    Err(Failure {
-        code: exit::BAD_INPUT,
-        message: "shift detection is not available in this build".into(),
+    let (s, t) = (source.view("source")?, target.view("target")?);
+    let result = match opts.method {
+        TestMethod::Classifier => ClassifierShiftTest::new()
+            .permutations(opts.permutations)
+            .seed(seed)
+            .run(s, t)?,
+        TestMethod::Mmd => MmdShiftTest::new()
+            .permutations(opts.permutations)
+            .seed(seed)
+            .run(s, t)?,
+    };
+    let features = match FeatureShift::new()
+        .seed(seed)
+        .run(s, t, Some(&source.names))
+    {
+        Ok(table) => Part::Available(
+            table
+                .rows
+                .iter()
+                .map(|r| FeatureRow {
+                    feature: r.feature.clone(),
+                    score: r
+                        .wasserstein_sd
+                        .or(r.smd.map(f64::abs))
+                        .unwrap_or(r.auc_drop),
+                    p_value: Some(r.p_adjusted),
+                })
+                .collect(),
+        ),
+        Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
+    };
+    Ok(DetectOutcome {
+        shift: ShiftPart {
+            method: result.method.clone(),
+            statistic: result.statistic,
+            p_value: result.p_value,
+            level: opts.level,
+            significant: result.p_value < opts.level,
+        },
+        features,
     })
 }
 

@@ -429,9 +429,10 @@ fn a_failed_run_leaves_the_earlier_output_unchanged() {
 }
 
 #[test]
-fn unavailable_pieces_and_bad_files_have_clear_errors_and_codes() {
+fn every_estimator_and_the_shift_test_run_with_clear_codes() {
     let d = data();
     let f = setup(&d);
+    // KLIEP through the CLI equals the library on the same rows.
     let o = run(
         &[
             "weigh",
@@ -443,19 +444,62 @@ fn unavailable_pieces_and_bad_files_have_clear_errors_and_codes() {
             "kwh,id",
             "--estimator",
             "kliep",
+            "--n-basis",
+            "50",
             "--out",
             "w.csv",
         ],
         &f.dir,
     );
-    assert_eq!(o.status.code(), Some(2));
-    assert!(
-        stderr(&o).contains("not available in this build"),
-        "{}",
-        stderr(&o)
-    );
-    assert!(!f.dir.join("w.csv").exists());
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let (_, w) = read_weights(&f.dir.join("w.csv"));
+    let lib = shiftweight::KLRatio::new()
+        .n_basis(50)
+        .seed(0)
+        .fit(
+            MatrixView::new(&d.source, d.n_s, d.names.len()).unwrap(),
+            MatrixView::new(&d.target, d.n_t, d.names.len()).unwrap(),
+        )
+        .unwrap();
+    assert_eq!(w, lib.source_weights);
 
+    // KMM is transductive: its model file cannot score new rows, and says why.
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--estimator",
+            "kmm",
+            "--out",
+            "k.csv",
+            "--model",
+            "kmm.json",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "kmm.json",
+            "--input",
+            "target.csv",
+            "--out",
+            "a.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("transductive"), "{}", stderr(&o));
+    assert!(!f.dir.join("a.csv").exists());
+
+    // The two towns differ: --fail-on-shift stops the pipeline with the distinct code 10.
     let o = run(
         &[
             "detect",
@@ -465,16 +509,35 @@ fn unavailable_pieces_and_bad_files_have_clear_errors_and_codes() {
             "target.csv",
             "--exclude",
             "kwh,id",
+            "--permutations",
+            "49",
+            "--fail-on-shift",
+            "--json",
+            "shift.json",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(10), "{}", stderr(&o));
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(f.dir.join("shift.json")).unwrap()).unwrap();
+    assert!(report.to_string().contains("p_value"));
+    // A sample against itself (no shift): exit 0 even with --fail-on-shift.
+    let o = run(
+        &[
+            "detect",
+            "--source",
+            "target.csv",
+            "--target",
+            "target.csv",
+            "--method",
+            "mmd",
+            "--permutations",
+            "49",
             "--fail-on-shift",
         ],
         &f.dir,
     );
-    assert_eq!(o.status.code(), Some(2));
-    assert!(
-        stderr(&o).contains("not available in this build"),
-        "{}",
-        stderr(&o)
-    );
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
 
     let o = run(
         &[
