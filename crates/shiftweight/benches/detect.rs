@@ -34,7 +34,7 @@ fn mmd_permutation(c: &mut Criterion) {
     let s = rows(n, d, 0.0, 1);
     let t = rows(n, d, 0.1, 2);
     let test = MmdShiftTest::new().permutations(1_000);
-    c.bench_function("mmd_permutation_2000x2000_d5_b1000", |b| {
+    c.bench_function("mmd_permutation_2000x0200_0d5b_1000", |b| {
         b.iter(|| {
             black_box(
                 test.run(
@@ -52,7 +52,7 @@ fn classifier_large(c: &mut Criterion) {
     let s = rows(n, d, 0.0, 3);
     let t = rows(n, d, 0.02, 4);
     let test = ClassifierShiftTest::new();
-    c.bench_function("classifier_500000x500000_d20", |b| {
+    c.bench_function("classifier_500000x0005_0000_0d20", |b| {
         b.iter(|| {
             black_box(
                 test.run(
@@ -70,7 +70,7 @@ fn feature_shift_large(c: &mut Criterion) {
     let s = rows(n, d, 0.0, 5);
     let t = rows(n, d, 0.05, 6);
     let fs = FeatureShift::new();
-    c.bench_function("feature_shift_500000x500000_d50", |b| {
+    c.bench_function("feature_shift_500000x0005_0000_0d50", |b| {
         b.iter(|| {
             black_box(
                 fs.run(

@@ -40,6 +40,10 @@
 //! Validate on labelled target data before relying on it, and defer to the regulations and review
 //! processes of the domain when the weights feed decisions about people.
 
+// `!(x > 0.0)` is used deliberately throughout: unlike `x <= 0.0` it is also true for NaN.
+#![allow(clippy::neg_cmp_op_on_partial_ord)]
+#![allow(clippy::type_complexity)]
+
 pub mod conformal;
 pub mod data;
 pub mod demo;

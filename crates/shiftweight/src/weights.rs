@@ -646,7 +646,7 @@ mod tests {
         let s = stabilize(&w, &o).unwrap();
         assert!((mean(&s.weights) - 1.0).abs() < 1e-12);
         assert!(s.weights.iter().all(|x| (0.2..=5.0).contains(x)));
-        assert!(s.weights.iter().any(|x| *x == 5.0) && s.weights.iter().any(|x| *x == 0.2));
+        assert!(s.weights.contains(&5.0) && s.weights.contains(&0.2));
         let names: Vec<&str> = s.report.steps.iter().map(|r| r.step.as_str()).collect();
         assert_eq!(names, ["lower", "upper", "normalize"]);
         assert_eq!(s.report.upper_used, Some(5.0));

@@ -263,8 +263,8 @@ impl AutoRatio {
         };
         let all: Vec<&Candidate> = defaults.iter().chain(&self.candidates).collect();
         let k = self.folds;
-        let fold_s = kfold_assignment(source.rows(), k, self.seed ^ 0x6175_746f_73)?;
-        let fold_t = kfold_assignment(target.rows(), k, self.seed ^ 0x6175_746f_74)?;
+        let fold_s = kfold_assignment(source.rows(), k, self.seed ^ 0x0061_7574_6f73)?;
+        let fold_t = kfold_assignment(target.rows(), k, self.seed ^ 0x0061_7574_6f74)?;
         let split = |x: MatrixView, fold: &[usize], j: usize| -> (Matrix, Matrix) {
             let (inside, held): (Vec<usize>, Vec<usize>) =
                 (0..x.rows()).partition(|i| fold[*i] != j);
