@@ -133,6 +133,21 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     )?;
     let w = &outcome.weights;
     let ess = outcome.part.effective_sample_size;
+    let diag = |k: &str| {
+        outcome
+            .part
+            .diagnostics
+            .get(k)
+            .cloned()
+            .unwrap_or_else(|| "n/a".into())
+    };
+    let verdict_line = format!(
+        "  weight diagnostics: verdict {} (Pareto k {}; {} rows carry half the weight); stabilised by {}",
+        diag("verdict"),
+        diag("Pareto k"),
+        diag("rows carrying half the weight"),
+        outcome.part.stabilisation
+    );
     let est = estimator_part(&model, DEMO_ESTIMATOR.label());
     let plain = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, None)?;
     let weighted = WeightedRidge::new()
@@ -199,6 +214,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             w.len(),
             100.0 * ess / w.len() as f64
         );
+        println!("{verdict_line}");
         println!("  linear model of daily kWh, error on the target town (labels known only in this demo):");
         println!("    unweighted fit: mean squared error {e_plain:.2}");
         println!("    weighted fit:   mean squared error {e_weighted:.2}");
