@@ -204,6 +204,12 @@ for name, m in [("weighted", weighted), ("unweighted", plain)]:
 print("IWCV estimate of the weighted model's target error:", round(risk.estimate, 3))"""
     ),
     new_markdown_cell(
+        """Compare the IWCV estimate with the error measured on the target labels. In this scenario the
+overlap check of the first notebook flags a large share of target rows as barely covered by the
+source: errors there are invisible to any estimate built from source rows, so expect IWCV to be
+optimistic. This is exactly why labelled target data must have the last word."""
+    ),
+    new_markdown_cell(
         """## 4. Prediction intervals for target rows
 
 Weighted split conformal prediction: calibrate the residuals on source rows the model did not
@@ -220,6 +226,10 @@ intervals = sw.conformal_intervals(
 )
 print(intervals)
 print("share of target outcomes covered (demo labels):", round(float(intervals.covers(y_target).mean()), 3))"""
+    ),
+    new_markdown_cell(
+        """The measured coverage can fall short of 90% for the same reason: the guarantee assumes the
+weights are right, and weights are extrapolations where the source barely covers the target."""
     ),
 ]
 
