@@ -236,6 +236,8 @@ weights are right, and weights are extrapolations where the source barely covers
 
 def write(cells, name):
     nb = new_notebook(cells=cells)
+    for i, cell in enumerate(nb.cells):
+        cell.id = f"cell-{i:02d}"  # stable ids: regenerating does not churn the files
     nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
     nb.metadata["language_info"] = {"name": "python"}
     nbformat.validate(nb)
