@@ -59,6 +59,12 @@ def weights(w: Any, ax: Any = None, bins: int = 50) -> Any:
     Zero weights cannot sit on a log axis; their count is written instead. The Pareto k
     (Vehtari et al. 2024) reads: below 0.5 good, 0.5 to 0.7 usable, above 0.7 unreliable.
     Returns the Axes.
+
+    >>> import matplotlib; matplotlib.use("Agg")
+    >>> import shiftweight as sw
+    >>> ax = sw.plot.weights([0.5, 1.0, 1.0, 2.0])
+    >>> ax.get_xscale(), ax.texts[0].get_text().splitlines()[0]   # Kish: 4.5^2 / 6.25 = 3.24
+    ('log', 'ESS 3.2 of 4 (81.0%)')
     """
     arr = as_vector(w, "w")
     ax = _axes(ax)
