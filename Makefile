@@ -24,7 +24,9 @@ develop: $(PY)
 test-rust:
 	cargo test --workspace --exclude shiftweight-py
 
+# The stub of the compiled module must match it and cover every name it exports; fails otherwise.
 test-python: develop
+	$(PY) -m mypy.stubtest shiftweight._native --allowlist stubtest-allowlist.txt
 	$(PY) -m pytest
 
 lint:

@@ -102,4 +102,14 @@ __all__ = [
     "InternalError",
     "NotFittedError",
     "__version__",
+    "plot",
 ]
+
+
+def __getattr__(name: str):
+    # `sw.plot` is imported on first use, so importing shiftweight never imports matplotlib.
+    if name == "plot":
+        import importlib
+
+        return importlib.import_module(".plot", __name__)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

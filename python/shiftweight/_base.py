@@ -7,11 +7,30 @@ constructor signature, so ``sklearn.base.clone`` works without scikit-learn bein
 from __future__ import annotations
 
 import inspect
-from typing import Any, Dict
+from typing import Any, Dict, Optional
 
 
 class ParamsMixin:
     """get_params / set_params / repr from the constructor signature."""
+
+    # "classifier" or "regressor" for supervised models; None for the two-sample ratio estimators.
+    _sklearn_kind: Optional[str] = None
+
+    def __sklearn_tags__(self) -> Any:
+        """Estimator tags for scikit-learn >= 1.6 (``check_is_fitted``, ``is_regressor``, ...).
+
+        scikit-learn is imported here only: it stays an optional dependency.
+        """
+        from sklearn.utils import ClassifierTags, InputTags, RegressorTags, Tags, TargetTags
+
+        kind = self._sklearn_kind
+        return Tags(
+            estimator_type=kind,
+            target_tags=TargetTags(required=kind is not None),
+            classifier_tags=ClassifierTags() if kind == "classifier" else None,
+            regressor_tags=RegressorTags() if kind == "regressor" else None,
+            input_tags=InputTags(),
+        )
 
     @classmethod
     def _param_names(cls) -> list:

@@ -72,6 +72,8 @@ class WeightedLogistic(_LinearBase):
 
     _estimator_type = "classifier"
 
+    _sklearn_kind = "classifier"
+
     def __init__(self, l2: float = 1.0, max_iter: int = 100):
         self.l2 = l2
         self.max_iter = max_iter
@@ -110,7 +112,8 @@ class WeightedLogistic(_LinearBase):
         return np.column_stack([1.0 - p1, p1])
 
     def predict(self, X: Any) -> np.ndarray:
-        return self.classes_[(self.decision_function(X) > 0).astype(int)]
+        positive = self.decision_function(X) > 0  # raises NotFittedError before fit
+        return self.classes_[positive.astype(int)]
 
     def score(self, X: Any, y: Any, sample_weight: Any = None) -> float:
         """(Weighted) accuracy."""
@@ -131,6 +134,8 @@ class WeightedRidge(_LinearBase):
     """
 
     _estimator_type = "regressor"
+
+    _sklearn_kind = "regressor"
 
     def __init__(self, l2: float = 1.0):
         self.l2 = l2
