@@ -69,6 +69,18 @@ pub struct InputFacts {
     pub rows_dropped: usize,
 }
 
+impl InputFacts {
+    /// Facts of one input table read from `path`.
+    pub fn of(role: &str, path: &std::path::Path, table: &crate::io::Table) -> Self {
+        InputFacts {
+            role: role.into(),
+            path: path.display().to_string(),
+            rows: table.rows,
+            rows_dropped: table.rows_dropped,
+        }
+    }
+}
+
 /// Shift-test result (from the detection module).
 #[derive(Debug, Clone, Serialize)]
 pub struct ShiftPart {

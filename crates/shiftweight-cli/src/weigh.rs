@@ -78,18 +78,8 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
 
     let mut report = Report::new("weigh", g.seed);
     report.inputs = vec![
-        InputFacts {
-            role: "source".into(),
-            path: args.source.display().to_string(),
-            rows: source.rows,
-            rows_dropped: source.rows_dropped,
-        },
-        InputFacts {
-            role: "target".into(),
-            path: args.target.display().to_string(),
-            rows: target.rows,
-            rows_dropped: target.rows_dropped,
-        },
+        InputFacts::of("source", &args.source, &source),
+        InputFacts::of("target", &args.target, &target),
     ];
     report.features_used = source.names.clone();
     report.shift = Part::missing("`weigh` does not test for a shift; run `shiftweight detect`");
