@@ -18,7 +18,7 @@ import json
 from typing import Any, Dict, List, Optional, Sequence
 
 from . import _native
-from ._validation import as_matrix, check_same_columns
+from ._validation import as_count, as_matrix, as_seed, check_same_columns
 
 __all__ = ["shift_test", "feature_shift", "ShiftTestResult", "FeatureShiftTable"]
 
@@ -198,17 +198,23 @@ def shift_test(
     s, t, _ = _pair(source, target)
     if method == "classifier":
         text = _native.shift_test_classifier(
-            s, t, int(permutations), int(seed), int(folds), float(l2), int(max_permutation_rows)
+            s,
+            t,
+            as_count(permutations, "permutations"),
+            as_seed(seed),
+            as_count(folds, "folds"),
+            float(l2),
+            as_count(max_permutation_rows, "max_permutation_rows"),
         )
     elif method == "mmd":
         text = _native.shift_test_mmd(
             s,
             t,
-            int(permutations),
-            int(seed),
+            as_count(permutations, "permutations"),
+            as_seed(seed),
             None if sigma is None else float(sigma),
-            int(max_kernel_rows),
-            None if block_size is None else int(block_size),
+            as_count(max_kernel_rows, "max_kernel_rows"),
+            None if block_size is None else as_count(block_size, "block_size"),
         )
     else:
         raise _native.ShiftweightError(f"`method` must be \"classifier\" or \"mmd\", got {method!r}")
@@ -360,6 +366,14 @@ def feature_shift(
                 f"`feature_names` has {len(names)} names but the data have {s.shape[1]} columns"
             )
     text = _native.feature_shift(
-        s, t, names, int(max_categories), int(folds), float(l2), int(repeats), int(max_importance_rows), int(seed)
+        s,
+        t,
+        names,
+        as_count(max_categories, "max_categories"),
+        as_count(folds, "folds"),
+        float(l2),
+        as_count(repeats, "repeats"),
+        as_count(max_importance_rows, "max_importance_rows"),
+        as_seed(seed),
     )
     return FeatureShiftTable(json.loads(text))

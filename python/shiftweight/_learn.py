@@ -14,7 +14,7 @@ import numpy as np
 
 from . import _native
 from ._base import ParamsMixin
-from ._validation import NotFittedError, as_matrix, as_vector
+from ._validation import NotFittedError, as_count, as_matrix, as_vector
 
 __all__ = ["WeightedLogistic", "WeightedRidge", "linear_model_from_json"]
 
@@ -90,7 +90,7 @@ class WeightedLogistic(_LinearBase):
             )
         y01 = np.ascontiguousarray(y_arr == classes[1], dtype=np.float64)
         w = self._weights(sample_weight, x.shape[0])
-        self.model_ = _native.fit_weighted_logistic(x, y01, w, float(self.l2), int(self.max_iter))
+        self.model_ = _native.fit_weighted_logistic(x, y01, w, float(self.l2), as_count(self.max_iter, "max_iter"))
         self.classes_ = classes
         self.n_features_in_ = x.shape[1]
         if names is not None:

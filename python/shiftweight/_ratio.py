@@ -16,7 +16,7 @@ import numpy as np
 
 from . import _native
 from ._base import ParamsMixin
-from ._validation import NotFittedError, as_matrix, as_vector, check_same_columns
+from ._validation import NotFittedError, as_count, as_matrix, as_seed, as_vector, check_same_columns
 
 __all__ = [
     "RatioEstimatorBase",
@@ -115,7 +115,7 @@ class RatioEstimatorBase(ParamsMixin):
         text = state.pop("__model_json__", None)
         self.__dict__.update(state)
         if text is not None:
-            self._set_fitted(_native.RatioModel.from_json(text))
+            _restore(self, _native.RatioModel.from_json(text))
 
 
 @register_kind("least_squares")
@@ -190,12 +190,12 @@ class LeastSquaresRatio(RatioEstimatorBase):
         return dict(
             sigma=None if self.sigma is None else float(self.sigma),
             lam=None if self.lam is None else float(self.lam),
-            n_basis=int(self.n_basis),
+            n_basis=as_count(self.n_basis, "n_basis"),
             alpha=float(self.alpha),
-            seed=int(self.seed),
+            seed=as_seed(self.seed),
             sigma_multiples=[float(v) for v in self.sigma_multiples],
             lambda_grid=[float(v) for v in self.lambda_grid],
-            max_cv_rows=int(self.max_cv_rows),
+            max_cv_rows=as_count(self.max_cv_rows, "max_cv_rows"),
         )
 
     def _fit_native(self, source, target, names):
@@ -292,13 +292,13 @@ class KLRatio(RatioEstimatorBase):
     def _native_params(self) -> Dict[str, Any]:
         return dict(
             sigma=None if self.sigma is None else float(self.sigma),
-            n_basis=int(self.n_basis),
-            folds=int(self.folds),
-            seed=int(self.seed),
+            n_basis=as_count(self.n_basis, "n_basis"),
+            folds=as_count(self.folds, "folds"),
+            seed=as_seed(self.seed),
             cv=str(self.cv),
             sigma_multiples=[float(v) for v in self.sigma_multiples],
             tol=float(self.tol),
-            max_iter=int(self.max_iter),
+            max_iter=as_count(self.max_iter, "max_iter"),
         )
 
     def _fit_native(self, source, target, names):
@@ -385,8 +385,8 @@ class KernelMeanMatching(RatioEstimatorBase):
             None if self.sigma is None else float(self.sigma),
             float(self.bound),
             None if self.eps is None else float(self.eps),
-            int(self.block_rows),
-            int(self.seed),
+            as_count(self.block_rows, "block_rows"),
+            as_seed(self.seed),
             names,
         )
 
@@ -486,10 +486,10 @@ class ClassifierRatio(RatioEstimatorBase):
         return dict(
             l2=None if self.l2 is None else float(self.l2),
             features=str(self.features),
-            n_fourier=int(self.n_fourier),
+            n_fourier=as_count(self.n_fourier, "n_fourier"),
             fourier_sigma=None if self.fourier_sigma is None else float(self.fourier_sigma),
-            folds=int(self.folds),
-            seed=int(self.seed),
+            folds=as_count(self.folds, "folds"),
+            seed=as_seed(self.seed),
             l2_grid=[float(v) for v in self.l2_grid],
         )
 
@@ -580,8 +580,8 @@ class AutoRatio(RatioEstimatorBase):
             source,
             target,
             self._candidate_specs(),
-            int(self.folds),
-            int(self.seed),
+            as_count(self.folds, "folds"),
+            as_seed(self.seed),
             float(self.se_margin),
             feature_names=names,
         )
@@ -654,6 +654,16 @@ def from_json(text: str) -> RatioEstimatorBase:
         cls = _KIND_TO_CLASS.get(model.kind)
     if cls is None:
         raise _native.ModelFileError(f"no Python class for estimator kind {model.kind!r}")
-    est = cls()
-    est._set_fitted(model)
+    return _restore(cls(), model)
+
+
+def _restore(est: RatioEstimatorBase, model: Any) -> RatioEstimatorBase:
+    """Sets the learned attributes from a loaded model; a document whose selection record lacks
+    what its estimator kind records (a hand-edited file) gives ``ModelFileError``."""
+    try:
+        est._set_fitted(model)
+    except (KeyError, TypeError, ValueError, IndexError) as e:
+        raise _native.ModelFileError(
+            f"model file rejected: the {model.kind} model's selection record is incomplete or malformed ({e!r})"
+        ) from None
     return est

@@ -15,7 +15,7 @@ import numpy as np
 
 from ._native import ShiftweightError
 
-__all__ = ["as_matrix", "as_vector", "check_same_columns", "NotFittedError"]
+__all__ = ["as_matrix", "as_vector", "as_count", "as_seed", "check_same_columns", "NotFittedError"]
 
 
 class NotFittedError(ShiftweightError, AttributeError):
@@ -106,3 +106,31 @@ def check_same_columns(names_a: Optional[list], names_b: Optional[list], a: str,
     missing = [c for c in names_a if c not in names_b]
     extra = [c for c in names_b if c not in names_a]
     raise ShiftweightError(f"`{b}` columns differ from `{a}`: missing {missing}, unexpected {extra}")
+
+
+_U64_MAX = 2**64 - 1
+
+
+def as_count(value: Any, name: str) -> int:
+    """A non-negative whole number for an integer option (row counts, folds, iterations).
+
+    The core checks each option's own range (e.g. folds >= 2) and names it; this only makes sure
+    the value is a whole number that fits an unsigned 64-bit integer, so a negative, fractional,
+    boolean or non-numeric value gets a ``ShiftweightError`` naming the option instead of a
+    conversion error from the binding.
+    """
+    if isinstance(value, (bool, np.bool_)):
+        raise ShiftweightError(f"`{name}` must be a whole number, got {value!r}")
+    if isinstance(value, (float, np.floating)) and float(value).is_integer():
+        value = int(value)
+    if not isinstance(value, (int, np.integer)):
+        raise ShiftweightError(f"`{name}` must be a whole number, got {value!r}")
+    value = int(value)
+    if not 0 <= value <= _U64_MAX:
+        raise ShiftweightError(f"`{name}` must be a whole number >= 0, got {value}")
+    return value
+
+
+def as_seed(value: Any, name: str = "seed") -> int:
+    """A seed: a whole number in [0, 2**64)."""
+    return as_count(value, name)

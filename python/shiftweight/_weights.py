@@ -29,7 +29,7 @@ import numpy as np
 
 from . import _native
 from ._native import ShiftweightError
-from ._validation import as_vector
+from ._validation import as_count, as_vector
 
 __all__ = [
     "stabilize",
@@ -510,5 +510,7 @@ def check_overlap(
         raise ShiftweightError("`probabilities` need `n_source` and `n_target` (the class sizes of the classifier)")
     p = as_vector(probabilities, "probabilities")
     return OverlapReport(
-        _native.check_overlap_probabilities(p, int(n_source), int(n_target), float(limit), float(tolerance))
+        _native.check_overlap_probabilities(
+            p, as_count(n_source, "n_source"), as_count(n_target, "n_target"), float(limit), float(tolerance)
+        )
     )

@@ -146,6 +146,17 @@ pub fn regression_intervals(
             found: pred_cal.len(),
         });
     }
+    // Name the input a user can fix, before the scores built from it are checked.
+    for (values, argument) in [(y_cal, "y_cal"), (pred_cal, "calibration predictions")] {
+        if let Some(i) = values.iter().position(|v| !v.is_finite()) {
+            return Err(Error::NonFinite {
+                argument: argument.into(),
+                row: i,
+                column: 0,
+                value: values[i],
+            });
+        }
+    }
     if cal_weights.is_some() != weights.is_some() {
         return Err(Error::param(
             "weights",

@@ -180,9 +180,12 @@ impl Matrix {
     pub fn into_vec(self) -> Vec<f64> {
         self.data
     }
-    /// Checks the declared shape against the buffer (used after deserialisation).
+    /// Checks the declared shape against the buffer (used after deserialisation, so a mismatch
+    /// is a model-file error: the document declares a shape its data does not have).
     pub(crate) fn check_shape(&self, argument: &str) -> Result<()> {
-        MatrixView::named(&self.data, self.rows, self.cols, argument).map(|_| ())
+        MatrixView::named(&self.data, self.rows, self.cols, argument)
+            .map(|_| ())
+            .map_err(|e| Error::ModelFile(e.to_string()))
     }
 }
 
@@ -261,14 +264,37 @@ pub struct Standardizer {
 impl Standardizer {
     /// Fits on the union of the given matrices (all must have the same width).
     /// Uses a two-pass algorithm for accuracy. O(n d).
+    ///
+    /// Columns of extreme magnitude (largest |value| above 2^500 or below 2^-500, e.g. 1e300 or
+    /// 1e-300) are first divided by a power of two, which is exact, so that sums and squares
+    /// neither overflow nor underflow; ordinary columns are computed without any rescaling.
     pub fn fit(parts: &[MatrixView]) -> Self {
         let d = parts.first().map_or(0, |p| p.cols());
         let n: usize = parts.iter().map(|p| p.rows()).sum();
+        let mut max_abs = vec![0.0f64; d];
+        for p in parts {
+            for i in 0..p.rows() {
+                for (a, v) in max_abs.iter_mut().zip(p.row(i)) {
+                    *a = a.max(v.abs());
+                }
+            }
+        }
+        // Power-of-two divisor per column (1 for ordinary magnitudes).
+        let unit: Vec<f64> = max_abs
+            .iter()
+            .map(|&a| {
+                if a.is_finite() && a > 0.0 && !(2f64.powi(-500)..=2f64.powi(500)).contains(&a) {
+                    2f64.powi(a.log2().floor() as i32)
+                } else {
+                    1.0
+                }
+            })
+            .collect();
         let mut mean = vec![0.0; d];
         for p in parts {
             for i in 0..p.rows() {
-                for (m, v) in mean.iter_mut().zip(p.row(i)) {
-                    *m += v;
+                for ((m, v), u) in mean.iter_mut().zip(p.row(i)).zip(&unit) {
+                    *m += v / u;
                 }
             }
         }
@@ -278,8 +304,8 @@ impl Standardizer {
         let mut var = vec![0.0; d];
         for p in parts {
             for i in 0..p.rows() {
-                for ((s, v), m) in var.iter_mut().zip(p.row(i)).zip(&mean) {
-                    let c = v - m;
+                for (((s, v), m), u) in var.iter_mut().zip(p.row(i)).zip(&mean).zip(&unit) {
+                    let c = v / u - m;
                     *s += c * c;
                 }
             }
@@ -288,18 +314,20 @@ impl Standardizer {
         let scale = var
             .iter()
             .zip(&mean)
+            .zip(&unit)
             .enumerate()
-            .map(|(j, (s, m))| {
+            .map(|(j, ((s, m), u))| {
                 let sd = (s / (n.max(2) - 1) as f64).sqrt();
                 // A column is constant when its spread is negligible relative to its magnitude.
-                if !sd.is_finite() || sd <= 1e-12 * m.abs().max(1e-300) {
+                if !sd.is_finite() || sd <= 1e-12 * m.abs().max(1e-300) || !(sd * u).is_finite() {
                     constant_columns.push(j);
                     1.0
                 } else {
-                    sd
+                    sd * u
                 }
             })
             .collect();
+        let mean = mean.iter().zip(&unit).map(|(m, u)| m * u).collect();
         Self {
             mean,
             scale,
@@ -380,6 +408,24 @@ mod tests {
     #[test]
     fn shape_mismatch_is_error() {
         assert!(MatrixView::new(&[1.0, 2.0, 3.0], 2, 2).is_err());
+    }
+
+    #[test]
+    fn standardizer_handles_extreme_magnitudes() {
+        // Scaling a column by a power of two scales its mean and sd by the same factor exactly
+        // (IEEE 754 multiplication by 2^k is exact away from overflow and subnormals).
+        let base = [1.0, 2.0, 3.0, 4.0];
+        for k in [-1000, -600, 600, 1000] {
+            let f = 2f64.powi(k);
+            let x: Vec<f64> = base.iter().map(|v| v * f).collect();
+            let s = Standardizer::fit(&[MatrixView::new(&x, 4, 1).unwrap()]);
+            assert!(s.constant_columns.is_empty(), "2^{k}");
+            assert_eq!(s.mean[0], 2.5 * f, "2^{k}");
+            assert!(
+                (s.scale[0] / f - (5.0f64 / 3.0).sqrt()).abs() < 1e-15,
+                "2^{k}"
+            );
+        }
     }
 
     #[test]

@@ -528,6 +528,18 @@ impl WeightedRidge {
                 par::add_into(&mut acc.1, &part.1);
             },
         );
+        // Squares of values near 1e155 and beyond overflow: that is the input's scale, not a
+        // numerical failure of the solver, so it is reported as such.
+        if let Some(k) = gram.iter().chain(&xty).position(|v| !v.is_finite()) {
+            let j = if k < d * d { k / d } else { k - d * d };
+            return Err(Error::param(
+                "X",
+                format!(
+                    "column {j} (or `y`) is so large in magnitude that weighted sums of squares \
+                     overflow; rescale it (e.g. to other units) before fitting"
+                ),
+            ));
+        }
         let mut h = Mat::<f64>::from_fn(d, d, |i, j| gram[i * d + j]);
         for j in 0..d {
             h[(j, j)] += self.l2;

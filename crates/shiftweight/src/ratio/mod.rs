@@ -292,6 +292,21 @@ impl FittedRatio {
     /// Checks internal consistency after loading from a file.
     pub(crate) fn check(&self) -> Result<()> {
         self.standardizer.check()?;
+        let form_fits_kind = matches!(
+            (self.kind, &self.form),
+            (
+                EstimatorKind::LeastSquares | EstimatorKind::Kliep,
+                RatioForm::KernelExpansion { .. }
+            ) | (EstimatorKind::KernelMeanMatching, RatioForm::SourceOnly)
+                | (EstimatorKind::Classifier, RatioForm::LogLinear { .. })
+                | (EstimatorKind::Uniform, RatioForm::Uniform)
+        );
+        if !form_fits_kind {
+            return Err(Error::ModelFile(format!(
+                "estimator kind {} does not match the model's form",
+                self.kind.name()
+            )));
+        }
         let d = self.n_features();
         if d == 0 {
             return Err(Error::ModelFile("model has no features".into()));
