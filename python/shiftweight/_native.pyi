@@ -70,6 +70,7 @@ def fit_kliep(
     sigma_multiples: List[float],
     tol: float,
     max_iter: int,
+    se_margin: float,
     feature_names: Optional[List[str]] = None,
 ) -> RatioModel: ...
 def fit_kmm(

@@ -168,7 +168,7 @@ fn fit_least_squares(
 
 /// Fits KLIEP. See `shiftweight.KLRatio` for the parameters.
 #[pyfunction]
-#[pyo3(signature = (source, target, sigma, n_basis, folds, seed, cv, sigma_multiples, tol, max_iter, feature_names=None))]
+#[pyo3(signature = (source, target, sigma, n_basis, folds, seed, cv, sigma_multiples, tol, max_iter, se_margin, feature_names=None))]
 #[allow(clippy::too_many_arguments)]
 fn fit_kliep(
     py: Python<'_>,
@@ -182,6 +182,7 @@ fn fit_kliep(
     sigma_multiples: Vec<f64>,
     tol: f64,
     max_iter: usize,
+    se_margin: f64,
     feature_names: Option<Vec<String>>,
 ) -> PyResult<RatioModel> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
@@ -193,7 +194,8 @@ fn fit_kliep(
         .cv(KliepCv::from_name(&cv).map_err(to_py)?)
         .sigma_multiples(sigma_multiples)
         .tol(tol)
-        .max_iter(max_iter);
+        .max_iter(max_iter)
+        .se_margin(se_margin);
     detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
 }
 
@@ -326,7 +328,8 @@ fn candidate(kind: &str, p: &Bound<'_, PyDict>) -> PyResult<Box<dyn RatioEstimat
                 .cv(KliepCv::from_name(&arg::<String>(p, kind, "cv")?).map_err(to_py)?)
                 .sigma_multiples(arg(p, kind, "sigma_multiples")?)
                 .tol(arg(p, kind, "tol")?)
-                .max_iter(arg(p, kind, "max_iter")?),
+                .max_iter(arg(p, kind, "max_iter")?)
+                .se_margin(arg(p, kind, "se_margin")?),
         ),
         "uniform" => Box::new(UniformRatio),
         other => {

@@ -34,6 +34,19 @@
 //!   can favour narrow widths whose weights are large on unseen source rows; on real-data cases
 //!   the source-and-target variant was measured far more accurate, hence the default.
 //!
+//! Choice among the widths: the one-standard-error rule (Breiman, Friedman, Olshen, Stone 1984,
+//! section 3.4.3; Hastie, Tibshirani, Friedman 2009, section 7.10). The score of a width is the
+//! mean over folds and its standard error is the fold-to-fold sd / sqrt(folds); the widest width
+//! whose mean is within `se_margin` (default 1) standard errors of the best mean is chosen. Why:
+//! the held-out log-likelihood is biased towards narrow widths. A narrow kernel puts large
+//! coefficients on centres with little source mass near them, so the ratio has spikes where the
+//! source is sparse; the held-out normaliser log mean_s r(x_s) usually misses those spikes (the
+//! log of a mean of heavy-tailed values is biased low, Jensen's inequality), and the spikes
+//! dominate the squared error under the source. Measured on the 1-D Gaussian pair of the tests
+//! (n = 1,000 per side): the best-mean width (median/8) had NMSE 2,598, the width chosen by the rule (median/2) 0.12;
+//! at n = 100 both rules still pick median/8 (too few rows to tell the widths apart).
+//! `se_margin = 0` restores the plain best-mean choice.
+//!
 //! In both variants, the centres used in fold k are the centres whose target row is not held out
 //! in fold k (a held-out row that is itself a centre would score k(x, x) = 1 and favour narrow
 //! widths). The table records, per width, minus the mean held-out log-likelihood (lower is better).
@@ -106,6 +119,9 @@ pub struct KLRatio {
     pub tol: f64,
     /// Most ascent steps per fit (default 10,000, at least 1).
     pub max_iter: usize,
+    /// One-standard-error rule: the widest width whose mean CV score is within this many
+    /// standard errors of the best is chosen (default 1.0; 0 picks the best mean).
+    pub se_margin: f64,
 }
 
 impl Default for KLRatio {
@@ -119,6 +135,7 @@ impl Default for KLRatio {
             sigma_multiples: vec![0.125, 0.25, 0.5, 1.0, 2.0, 4.0, 8.0],
             tol: 1e-6,
             max_iter: 10_000,
+            se_margin: 1.0,
         }
     }
 }
@@ -169,6 +186,12 @@ impl KLRatio {
         self
     }
 
+    /// Margin of the one-standard-error width rule, in standard errors (finite, >= 0).
+    pub fn se_margin(mut self, m: f64) -> Self {
+        self.se_margin = m;
+        self
+    }
+
     /// Rejects out-of-range settings with an error naming the parameter.
     pub fn check(&self) -> Result<()> {
         if let Some(s) = self.sigma {
@@ -202,6 +225,12 @@ impl KLRatio {
         }
         if self.max_iter == 0 {
             return Err(Error::param("max_iter", "must be at least 1"));
+        }
+        if !(self.se_margin.is_finite() && self.se_margin >= 0.0) {
+            return Err(Error::param(
+                "se_margin",
+                format!("must be finite and >= 0, got {}", self.se_margin),
+            ));
         }
         Ok(())
     }
@@ -361,8 +390,8 @@ fn evaluate(a: &[f64], b: usize, rows: &[usize], cols: &[usize], alpha: &[f64]) 
         .collect()
 }
 
-/// Minus the mean held-out log-likelihood of one width over the folds (lower is better);
-/// infinity when some fold has a target row with no kernel mass.
+/// Minus the held-out log-likelihood of one width in each fold (lower is better); `None` when
+/// some fold has a target row with no kernel mass or a held-out normaliser that is not finite.
 #[allow(clippy::too_many_arguments)]
 fn cv_score(
     kt: &[f64],
@@ -373,16 +402,16 @@ fn cv_score(
     fold_s: &[usize],
     k: usize,
     cfg: &KLRatio,
-) -> f64 {
+) -> Option<Vec<f64>> {
     let n_t = fold_t.len();
     let n_s = fold_s.len();
-    let mut total = 0.0;
+    let mut per_fold = Vec::with_capacity(k);
     for f in 0..k {
         let train_t: Vec<usize> = (0..n_t).filter(|&i| fold_t[i] != f).collect();
         let test_t: Vec<usize> = (0..n_t).filter(|&i| fold_t[i] == f).collect();
         let cols: Vec<usize> = (0..b).filter(|&l| fold_t[centre_rows[l]] != f).collect();
         if cols.is_empty() {
-            return f64::INFINITY;
+            return None;
         }
         let (train_s, test_s): (Vec<usize>, Vec<usize>) = match cfg.cv {
             KliepCv::SourceAndTarget => (
@@ -394,24 +423,58 @@ fn cv_score(
         let a = submatrix(kt, b, &train_t, &cols);
         let h = column_means(ks, b, &train_s, &cols);
         let Some(sol) = solve_kliep(&a, &h, cfg.tol, cfg.max_iter) else {
-            return f64::INFINITY;
+            return None;
         };
         let rt = evaluate(kt, b, &test_t, &cols, &sol.alpha);
         if rt.iter().any(|v| !(*v > 0.0)) {
-            return f64::INFINITY;
+            return None;
         }
         let mut score = rt.iter().map(|v| v.ln()).sum::<f64>() / rt.len() as f64;
         if cfg.cv == KliepCv::SourceAndTarget {
             let rs = evaluate(ks, b, &test_s, &cols, &sol.alpha);
             let mean_s = rs.iter().sum::<f64>() / rs.len() as f64;
             if !(mean_s > 0.0 && mean_s.is_finite()) {
-                return f64::INFINITY;
+                return None;
             }
             score -= mean_s.ln();
         }
-        total += score;
+        per_fold.push(-score);
     }
-    -total / k as f64
+    Some(per_fold)
+}
+
+/// Mean and standard error (sample sd / sqrt(k)) of per-fold scores.
+fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
+    let k = v.len() as f64;
+    let mean = v.iter().sum::<f64>() / k;
+    let var = if v.len() > 1 {
+        v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (k - 1.0)
+    } else {
+        0.0
+    };
+    (mean, (var / k).sqrt())
+}
+
+/// The width chosen from per-width (mean, standard error) CV scores: the widest width whose mean
+/// is within `se_margin` standard errors of the best mean (the one-standard-error rule; Breiman,
+/// Friedman, Olshen, Stone 1984, section 3.4.3; Hastie, Tibshirani, Friedman 2009, section 7.10).
+/// `None` when no width has a finite score.
+fn choose_width(sigmas: &[f64], stats: &[Option<(f64, f64)>], se_margin: f64) -> Option<usize> {
+    let (best, (best_mean, best_se)) = stats
+        .iter()
+        .enumerate()
+        .filter_map(|(i, s)| s.filter(|(m, _)| m.is_finite()).map(|s| (i, s)))
+        .min_by(|a, b| a.1 .0.total_cmp(&b.1 .0))?;
+    let limit = best_mean + se_margin * best_se;
+    let mut chosen = best;
+    for (i, s) in stats.iter().enumerate() {
+        if let Some((m, _)) = s {
+            if *m <= limit && sigmas[i] > sigmas[chosen] {
+                chosen = i;
+            }
+        }
+    }
+    Some(chosen)
 }
 
 impl RatioEstimator for KLRatio {
@@ -441,11 +504,12 @@ impl RatioEstimator for KLRatio {
         if sigmas.len() > 1 {
             let fold_t = kfold_assignment(n_t, self.folds, self.seed ^ TARGET_FOLD_TAG)?;
             let fold_s = kfold_assignment(n_s, self.folds, self.seed ^ SOURCE_FOLD_TAG)?;
-            let mut best_score = f64::INFINITY;
-            for (i, &sigma) in sigmas.iter().enumerate() {
+            // Per width: mean and standard error (sd / sqrt(folds)) of the per-fold scores.
+            let mut stats: Vec<Option<(f64, f64)>> = Vec::with_capacity(sigmas.len());
+            for &sigma in &sigmas {
                 let kt = kernel_matrix(zt.view(), centres.view(), sigma);
                 let ks = kernel_matrix(zs.view(), centres.view(), sigma);
-                let sc = cv_score(
+                let per_fold = cv_score(
                     &kt,
                     &ks,
                     b,
@@ -455,21 +519,18 @@ impl RatioEstimator for KLRatio {
                     self.folds,
                     self,
                 );
+                let st = per_fold.map(|v| mean_and_std_error(&v));
+                let (score, se) = st.unwrap_or((f64::INFINITY, f64::NAN));
                 table.push(ScoreRow {
-                    params: params([("sigma", sigma)]),
-                    score: sc,
+                    params: params([("sigma", sigma), ("std_error", se)]),
+                    score,
                 });
-                if sc < best_score {
-                    best_score = sc;
-                    best = i;
-                }
+                stats.push(st);
             }
-            if !best_score.is_finite() {
-                return Err(Error::Numerical {
-                    context: "KLIEP likelihood cross-validation".into(),
-                    reason: "no candidate width gave a finite held-out score; try larger sigma_multiples".into(),
-                });
-            }
+            best = choose_width(&sigmas, &stats, self.se_margin).ok_or_else(|| Error::Numerical {
+                context: "KLIEP likelihood cross-validation".into(),
+                reason: "no candidate width gave a finite held-out score; try larger sigma_multiples".into(),
+            })?;
         }
         let sigma = sigmas[best];
         let kt = kernel_matrix(zt.view(), centres.view(), sigma);
@@ -517,6 +578,7 @@ impl RatioEstimator for KLRatio {
                     ("gap_bound", sol.gap),
                     ("iterations", sol.iterations as f64),
                     ("cv_holds_out_source", if self.cv == KliepCv::SourceAndTarget { 1.0 } else { 0.0 }),
+                    ("se_margin", self.se_margin),
                 ]),
                 table,
                 ..Default::default()
