@@ -323,6 +323,8 @@ fn pomeranz_cdf(n: u64, x: f64) -> f64 {
         inv_fact[c] = inv_fact[c - 1] / c as f64;
     }
     let mut next = vec![0.0f64; nu + 1];
+    // Counts below the previous point's lower bound have weight 0: start the sums there.
+    let mut prev_lo = 0usize;
     for w in points.windows(2) {
         let (prev, cur) = (w[0], w[1]);
         let delta = cur - prev;
@@ -351,13 +353,12 @@ fn pomeranz_cdf(n: u64, x: f64) -> f64 {
                 break;
             }
             let mut s = 0.0;
-            for (from, &vf) in v.iter().enumerate().take(c + 1) {
-                if vf != 0.0 {
-                    s += vf * pows[c - from] * inv_fact[c - from];
-                }
+            for (from, &vf) in v.iter().enumerate().take(c + 1).skip(prev_lo) {
+                s += vf * pows[c - from] * inv_fact[c - from];
             }
             next[c] = s;
         }
+        prev_lo = lo;
         std::mem::swap(&mut v, &mut next);
         let big = v.iter().fold(0.0f64, |acc, x| acc.max(x.abs()));
         if !(big > 0.0) {
