@@ -25,11 +25,13 @@
 //! p_j = x + j/n, evaluated in log space with the saddle-point form of Loader (2000, "Fast and
 //! accurate computation of binomial probabilities"), so no factorial overflows and small tails
 //! keep their relative accuracy. Miller's approximation 2 P(D_n^+ >= x) is too large by
-//! P(D_n^+ >= x, D_n^- >= x), which is below 2e-6 relative where it is used (n x^2 >= 2.2).
+//! P(D_n^+ >= x, D_n^- >= x), about e^(-6 n x^2) relative by the leading terms of Kolmogorov's
+//! series, i.e. below 2e-6 where it is used (n x^2 >= 2.2).
 //! Durbin's matrix power is computed by repeated squaring with a separate power-of-two exponent;
 //! Pomeranz's recursion is rescaled as it runs. The largest matrix is 2k - 1 = 115 rows
 //! (k = ceil(n x) <= 1.4^(2/3) n^(1/3) at n = 100,000); above that size only the O(1) series and
-//! the O(n) positive sum are used, so no branch costs more than O(n).
+//! the O(n) positive sum are used, so no branch costs more than O(n log n) (measured in release
+//! builds through Python: about 0.1 s at n = 10^6 in the O(n) tail, microseconds elsewhere).
 //!
 //! These are the regions and thresholds of scipy.stats.kstwo, which the tests check against.
 
