@@ -51,7 +51,7 @@ class ShiftTestResult:
     method : ``"classifier"`` or ``"mmd"``.
     statistic : the AUC (classifier) or MMD^2 (mmd).
     p_value : the p-value; ``p_value_method`` says how it was obtained (``permutation``,
-        ``held_out_normal`` or ``block_normal``) and ``permutations`` how many were used.
+        ``held_out_normal`` or ``block_permutation``) and ``permutations`` how many were used.
     n_source, n_target, n_features, seed, notes : facts of the run.
     details : dict of method-specific facts. Classifier: ``auc``, ``auc_std_error``,
         ``auc_ci_low``, ``auc_ci_high``, ``classifier``, ``l2``, ``folds``, ``n_scored``. MMD:
@@ -180,7 +180,8 @@ def shift_test(
         the normal approximation of the Mann-Whitney U.
     sigma, max_kernel_rows, block_size : MMD options. Up to ``max_kernel_rows`` pooled rows the
         full kernel matrix is used with a permutation p-value; above it the block estimator
-        (blocks of about sqrt(n) rows) with a Student-t p-value.
+        (blocks of about sqrt(n) rows, at most 250; Zaremba et al. 2013) whose p-value comes from
+        relabelling the rows within every block ``permutations`` times (exact level).
 
     Returns
     -------

@@ -137,6 +137,12 @@ fn ks_two_sample(
     Ok((r.statistic, r.p_value, name.to_string()))
 }
 
+/// P(D_n >= x) of the one-sample two-sided Kolmogorov-Smirnov statistic with n observations.
+#[pyfunction]
+fn kolmogorov_sf(n: u64, x: f64) -> f64 {
+    detect::kolmogorov_sf(n, x)
+}
+
 /// Chi-square test of a 2 x k table given by its two rows: (statistic, p, dof).
 #[pyfunction]
 fn chi_square_two_rows(
@@ -166,6 +172,7 @@ pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(auc_summary, m)?)?;
     m.add_function(wrap_pyfunction!(mann_whitney_greater, m)?)?;
     m.add_function(wrap_pyfunction!(ks_two_sample, m)?)?;
+    m.add_function(wrap_pyfunction!(kolmogorov_sf, m)?)?;
     m.add_function(wrap_pyfunction!(chi_square_two_rows, m)?)?;
     m.add_function(wrap_pyfunction!(benjamini_hochberg, m)?)?;
     Ok(())

@@ -1,7 +1,8 @@
 //! Speed of shift detection at the sizes named in the detection issue:
 //! the MMD permutation test at 2,000 + 2,000 rows with 1,000 permutations, the classifier test at
 //! 500,000 + 500,000 rows with 20 features (held-out route), and feature_shift on 1,000,000 pooled
-//! rows with 50 features. Seeded data; run with `cargo bench -p shiftweight --bench detect`.
+//! rows with 50 features. Seeded data; run with `cargo bench -p shiftweight --bench detect` (one
+//! bench: add its name as a filter; shorter runs: `-- --measurement-time 5 --warm-up-time 1`).
 
 use criterion::{criterion_group, criterion_main, Criterion};
 use rand_distr::{Distribution, StandardNormal};
@@ -34,7 +35,7 @@ fn mmd_permutation(c: &mut Criterion) {
     let s = rows(n, d, 0.0, 1);
     let t = rows(n, d, 0.1, 2);
     let test = MmdShiftTest::new().permutations(1_000);
-    c.bench_function("mmd_permutation_2000x0200_0d5b_1000", |b| {
+    c.bench_function("mmd_permutation_2000+2000_d5_perm1000", |b| {
         b.iter(|| {
             black_box(
                 test.run(
@@ -52,7 +53,7 @@ fn classifier_large(c: &mut Criterion) {
     let s = rows(n, d, 0.0, 3);
     let t = rows(n, d, 0.02, 4);
     let test = ClassifierShiftTest::new();
-    c.bench_function("classifier_500000x0005_0000_0d20", |b| {
+    c.bench_function("classifier_500000+500000_d20", |b| {
         b.iter(|| {
             black_box(
                 test.run(
@@ -70,7 +71,7 @@ fn feature_shift_large(c: &mut Criterion) {
     let s = rows(n, d, 0.0, 5);
     let t = rows(n, d, 0.05, 6);
     let fs = FeatureShift::new();
-    c.bench_function("feature_shift_500000x0005_0000_0d50", |b| {
+    c.bench_function("feature_shift_500000+500000_d50", |b| {
         b.iter(|| {
             black_box(
                 fs.run(

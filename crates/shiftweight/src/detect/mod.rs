@@ -8,14 +8,15 @@
 //!   samples) or from a held-out split with the normal distribution of U (large samples).
 //! - [`MmdShiftTest`]: the kernel two-sample test of Gretton et al. (2012) with the unbiased MMD^2
 //!   statistic and a permutation p-value (small and medium samples), or the block estimator with a
-//!   normal-theory p-value (large samples).
+//!   p-value from relabelling the rows within every block (large samples).
 //! - [`FeatureShift`]: one two-sample test per feature (Kolmogorov-Smirnov or chi-square), effect
 //!   sizes in standard units, Benjamini-Hochberg (1995) adjusted p-values, and the drop in the
 //!   classifier's AUC when the feature is permuted.
 //!
 //! What the p-values mean: under the null hypothesis that source and target rows are independent
 //! draws from one distribution, P(p <= alpha) <= alpha for every alpha (exactly for the
-//! permutation p-values with the +1 correction, asymptotically for the normal-theory ones). A small
+//! permutation p-values with the +1 correction, including the block MMD test, and asymptotically
+//! for the held-out normal approximation of the classifier test). A small
 //! p-value says the samples differ by more than sampling noise; it does not say the difference
 //! matters. Read the effect sizes (AUC, MMD^2, standardised differences) for that.
 //!
@@ -23,11 +24,13 @@
 
 mod classifier;
 mod features;
+mod kolmogorov;
 mod mmd;
 mod stats;
 
 pub use classifier::ClassifierShiftTest;
 pub use features::{FeatureKind, FeatureShift, FeatureShiftRow, FeatureShiftTable};
+pub use kolmogorov::kolmogorov_sf;
 pub use mmd::MmdShiftTest;
 pub use stats::{
     auc_summary, benjamini_hochberg, chi_square_two_rows, ks_two_sample, ks_two_sample_with,
@@ -54,9 +57,10 @@ pub enum PValueMethod {
     /// Held-out split: classifier fitted on one half, U statistic of the other half referred to its
     /// normal approximation with tie and continuity corrections. Valid conditionally on the fit.
     HeldOutNormal,
-    /// Block MMD^2 estimates averaged over independent blocks; Student t with (blocks - 1) degrees
-    /// of freedom for the standardised mean. Asymptotically valid as the number of blocks grows.
-    BlockNormal,
+    /// Block MMD^2 estimates averaged over disjoint blocks; the rows of every block are relabelled
+    /// at random (independently across blocks) and the mean recomputed, p = (1 + #{permuted >=
+    /// observed}) / (1 + permutations). Exact level under the null, like [`Self::Permutation`].
+    BlockPermutation,
 }
 
 impl PValueMethod {
@@ -65,7 +69,7 @@ impl PValueMethod {
         match self {
             PValueMethod::Permutation => "permutation",
             PValueMethod::HeldOutNormal => "held_out_normal",
-            PValueMethod::BlockNormal => "block_normal",
+            PValueMethod::BlockPermutation => "block_permutation",
         }
     }
 }
