@@ -57,7 +57,7 @@ def test_disjoint_supports_give_finite_weights_judged_unreliable(name, dim):
         est = ESTIMATORS[name]().fit(source, target)
     w = est.source_weights_
     assert w.shape == (source.shape[0],)
-    if not (np.all(np.isfinite(w)) and np.all(w >= 0)):  # never excused by the xfail above
+    if not (np.all(np.isfinite(w)) and np.all(w >= 0)):  # a hard failure, not an assertion
         pytest.fail(f"non-finite or negative weights: {w}", pytrace=False)
     bad, verdict, flagged = judged_untrustworthy(est, source, target)
     assert bad, f"{name}: verdict {verdict}, overlap flagged {flagged}"
