@@ -148,6 +148,60 @@ def test_diagnosis_serialises_and_displays():
         sw.WeightDiagnosis.from_json('{"format": "other", "version": 1, "model": {}}')
 
 
+# ---------------------------------------------------------------- mean weight
+
+
+def test_mean_check_against_numpy_and_scipy():
+    w = stats.lognorm.rvs(s=0.8, scale=0.3, size=500, random_state=12)
+    d = sw.diagnose(w)
+    se = w.std(ddof=1) / math.sqrt(w.size)  # reference: numpy.std with ddof=1
+    assert d.mean == pytest.approx(w.mean(), rel=1e-12)
+    assert d.mean_std_error == pytest.approx(se, rel=1e-10)
+    # reference: scipy.stats.norm.ppf, the one-sided 99.9% normal bound
+    assert d.mean_upper_bound == pytest.approx(w.mean() + stats.norm.ppf(0.999) * se, rel=1e-9)
+    assert d.mean_too_low == (d.mean_upper_bound < 0.5)
+
+
+def test_weights_missing_part_of_the_target_are_unreliable():
+    # Analytic: target = q * source distribution + (1 - q) * mass where the source has none. The
+    # ratio is q on the whole source support, so E_source[w] = q, the covered share of the target
+    # (Sugiyama, Suzuki & Kanamori 2012). Here the source is N(0, 1) and the target 25% N(0, 1),
+    # 75% N(12, 1); the ratio on the source rows is 0.25 up to the N(12, 1) density, which is
+    # below 1e-20 for x < 3 (reference: scipy.stats.norm.pdf).
+    rng = np.random.default_rng(13)
+    xs = rng.normal(0.0, 1.0, 300)
+    w = 0.25 + 0.75 * stats.norm.pdf(xs, 12.0) / stats.norm.pdf(xs)
+    assert w.mean() == pytest.approx(0.25, abs=1e-6)
+    d = sw.diagnose(w)
+    assert d.mean_too_low and d.verdict == "unreliable"
+    assert any("far below 1" in m for m in d.warnings)
+    # Pareto k alone would call these weights fine (a flat tail).
+    assert d.pareto_k is None or d.pareto_k < 0.5
+    # Rescaled to mean 1 (as stabilize does), the same weights pass the mean check.
+    d1 = sw.diagnose(sw.stabilize(w))
+    assert not d1.mean_too_low and d1.mean == pytest.approx(1.0, abs=1e-12)
+    assert "too low" in repr(d) and "too low" in d._repr_html_()
+    assert json.loads(d.to_json())["model"]["mean_too_low"] is True
+
+
+def test_correct_weights_are_not_flagged_by_the_mean():
+    # Analytic Gaussian pair N(0, 1) -> N(mu, 1): w(x) = exp(mu x - mu^2 / 2), E_source[w] = 1
+    # (reference: ratio of two normal densities). Small samples, a few seeds.
+    for mu, n in [(0.5, 60), (1.0, 300)]:
+        for seed in range(4):
+            x = np.random.default_rng(seed).normal(0.0, 1.0, n)
+            assert not sw.diagnose(np.exp(mu * x - mu * mu / 2)).mean_too_low, (mu, n, seed)
+
+
+def test_diagnosis_documents_without_the_mean_check_still_load():
+    d = sw.diagnose(stats.lognorm.rvs(s=0.5, size=300, random_state=14))
+    doc = json.loads(d.to_json())
+    for key in ("mean_std_error", "mean_upper_bound", "mean_too_low"):
+        del doc["model"][key]
+    old = sw.WeightDiagnosis.from_json(json.dumps(doc))
+    assert old.mean_upper_bound is None and old.mean_too_low is False and old.verdict == d.verdict
+
+
 # ---------------------------------------------------------------- clipping trade-off
 
 

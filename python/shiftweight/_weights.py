@@ -248,8 +248,12 @@ def pareto_k(w: Any) -> float:
 class WeightDiagnosis(_Document):
     """What :func:`diagnose` found. Attributes:
 
-    ``n``, ``mean``, ``ess`` and ``ess_fraction`` (Kish 1965), ``pareto_k`` (None when it cannot be
-    estimated), ``verdict`` (``"good"``, ``"usable"`` or ``"unreliable"``), ``k_threshold`` (the
+    ``n``, ``mean`` (the raw mean weight), ``mean_std_error`` and ``mean_upper_bound`` (its standard
+    error and one-sided 99.9% upper bound; None below two weights), ``mean_too_low`` (True when that
+    bound is below 1/2: true importance weights average 1 over the source rows, and their average
+    is the share of the target the source covers), ``ess`` and ``ess_fraction`` (Kish 1965),
+    ``pareto_k`` (None when it cannot be estimated), ``verdict`` (``"good"``, ``"usable"`` or
+    ``"unreliable"``; unreliable also when ``mean_too_low``), ``k_threshold`` (the
     sample-size-dependent bound min(0.7, 1 - 1/log10 n)), ``tail_size``, ``top1_share`` (share of
     the total weight in the largest 1% of rows), ``rows_for_half`` (fewest rows carrying half the
     weight), ``max_over_mean``, ``quantiles`` (dict level -> value), ``n_zero``, ``warnings``
@@ -264,6 +268,9 @@ class WeightDiagnosis(_Document):
         b = self._body
         self.n: int = b["n"]
         self.mean: float = b["mean"]
+        self.mean_std_error: Optional[float] = b.get("mean_std_error")
+        self.mean_upper_bound: Optional[float] = b.get("mean_upper_bound")
+        self.mean_too_low: bool = bool(b.get("mean_too_low", False))
         self.ess: float = b["ess"]
         self.ess_fraction: float = b["ess_fraction"]
         self.pareto_k: Optional[float] = b["pareto_k"]
@@ -286,6 +293,7 @@ class WeightDiagnosis(_Document):
     def _rows(self) -> List[Tuple[str, str]]:
         rows = [
             ("rows", str(self.n)),
+            ("mean weight (should be about 1)", self._mean_text()),
             ("effective sample size (Kish)", f"{self.ess:.1f} ({100 * self.ess_fraction:.1f}% of rows)"),
             ("Pareto k", f"{_fmt(self.pareto_k, 2)} -> {self.verdict} (unreliable above {self.k_threshold:.2f})"),
             ("weight in top 1% of rows", f"{100 * self.top1_share:.1f}% ({self.top1_rows} rows)"),
@@ -304,6 +312,14 @@ class WeightDiagnosis(_Document):
                 )
             )
         return rows
+
+    def _mean_text(self) -> str:
+        text = _fmt(self.mean)
+        if self.mean_upper_bound is not None:
+            text += f" (99.9% upper bound {_fmt(self.mean_upper_bound)})"
+        if self.mean_too_low:
+            text += " -> too low: the weights miss much of the target"
+        return text
 
     def __repr__(self) -> str:
         lines = [f"WeightDiagnosis: verdict {self.verdict}"]
@@ -326,7 +342,12 @@ def diagnose(w: Any, groups: Any = None) -> WeightDiagnosis:
 
     The verdict follows the Pareto k thresholds of Vehtari et al. (2024): ``good`` (k < 0.5),
     ``usable`` (0.5 <= k <= 0.7), ``unreliable`` (k > 0.7, or above 1 - 1/log10(n) for small n, or
-    a tail that could not be checked). Runs in O(n) with selection, no full sort.
+    a tail that could not be checked). The verdict is also ``unreliable`` when the mean weight is far
+    below 1 (its one-sided 99.9% upper bound below 1/2): the source mean of the true ratio is the
+    share of the target that the source covers (Sugiyama, Suzuki & Kanamori 2012), so such weights
+    miss much of the target or do not normalise. Pass raw estimates (e.g. ``source_weights_``) or
+    weights rescaled to mean 1, not weights rescaled to sum 1. Runs in O(n) with selection, no full
+    sort.
 
     >>> import shiftweight as sw
     >>> sw.diagnose([1.0] * 1000).verdict

@@ -5,7 +5,7 @@ use crate::io::Table;
 use crate::report::{self, ClipRow, FeatureRow, Part, ShiftPart, WeightsPart};
 use crate::{exit, Failure};
 use clap::{Args, ValueEnum};
-use shiftweight::diagnostics::{clip_tradeoff, diagnose};
+use shiftweight::diagnostics::{clip_tradeoff, diagnose, mean_check, mean_warning, Verdict};
 use shiftweight::weights::{stabilize, StabilizeOptions};
 use shiftweight::{ClassifierShiftTest, FeatureShift, FittedRatio, MmdShiftTest};
 
@@ -108,9 +108,32 @@ pub fn finish_weights(
         }
     };
     let mut part = report::describe_weights(&weights, &described);
+    // The mean check needs the raw estimates: stabilised weights have mean 1 by construction.
+    let raw_mean = mean_check(&model.source_weights).ok();
     let clipping = match diagnose(&weights, None) {
-        Ok(d) => {
+        Ok(mut d) => {
             part.effective_sample_size = d.ess;
+            if let Some(mc) = raw_mean {
+                if mc.too_low && !d.mean_too_low {
+                    d.verdict = Verdict::Unreliable;
+                    d.warnings.splice(0..0, mean_warning(&mc));
+                }
+                let bound = mc
+                    .upper_bound
+                    .map_or(String::new(), |u| format!(" (99.9% upper bound {u:.3})"));
+                part.diagnostics.insert(
+                    "mean of the raw weights (should be about 1)".into(),
+                    format!(
+                        "{:.3}{bound}{}",
+                        mc.mean,
+                        if mc.too_low {
+                            ": too low, the weights miss much of the target"
+                        } else {
+                            ""
+                        }
+                    ),
+                );
+            }
             let dm = &mut part.diagnostics;
             dm.insert("verdict".into(), d.verdict.as_str().into());
             dm.insert(

@@ -898,3 +898,50 @@ fn check_html(path: &Path) {
         "carries the cautions"
     );
 }
+
+#[test]
+fn disjoint_supports_are_reported_unreliable_with_and_without_stabilisation() {
+    // Source on [-2, 2], target on [8, 12]: no shared support, so the true ratio is 0 on every
+    // source row and the source mean of any ratio (RuLSIF's relative one included: on disjoint
+    // supports it is 0 on the source and 1/alpha on the target, Yamada et al. 2013) is far
+    // below the 1 that E_source[w] = 1 needs (Sugiyama, Suzuki & Kanamori 2012).
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let names = vec!["x".to_string()];
+    let src: Vec<f64> = (0..60).map(|i| -2.0 + 4.0 * i as f64 / 59.0).collect();
+    let tgt: Vec<f64> = (0..50).map(|i| 8.0 + 4.0 * i as f64 / 49.0).collect();
+    write_csv(&dir.join("s.csv"), &names, &src, None, None);
+    write_csv(&dir.join("t.csv"), &names, &tgt, None, None);
+    for extra in [&[][..], &["--clip-quantile", "0.99"][..]] {
+        let mut args = vec![
+            "weigh",
+            "--source",
+            "s.csv",
+            "--target",
+            "t.csv",
+            "--estimator",
+            "rulsif",
+            "--out",
+            "w.csv",
+            "--json",
+            "r.json",
+        ];
+        args.extend_from_slice(extra);
+        let o = run(&args, dir);
+        assert!(o.status.success(), "{}", stderr(&o));
+        let json: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(dir.join("r.json")).unwrap()).unwrap();
+        let diag = &json["weights"]["data"]["diagnostics"];
+        assert_eq!(diag["verdict"], "unreliable", "{extra:?}: {diag}");
+        let mean = diag["mean of the raw weights (should be about 1)"]
+            .as_str()
+            .unwrap();
+        assert!(mean.contains("too low"), "{extra:?}: {mean}");
+        assert!(
+            diag["warning 1"].as_str().unwrap().contains("far below 1"),
+            "{diag}"
+        );
+        let (_, w) = read_weights(&dir.join("w.csv"));
+        assert!(w.iter().all(|v| v.is_finite() && *v >= 0.0));
+    }
+}

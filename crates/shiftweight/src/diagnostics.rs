@@ -25,6 +25,31 @@
 //!   bias). One O(n log n) sort, then O(log n) per clip level.
 //! - **Support overlap** ([`check_overlap`]): the share of target rows where the source density is
 //!   below 1/limit of the target density. No weighting fixes missing support.
+//! - **Mean weight** ([`mean_check`], part of [`diagnose`]): the true ratio integrates to one under
+//!   the source, and more precisely `E_source[w] = integral over {p_s > 0} of p_t = P_target(p_s > 0)`,
+//!   the share of the target mass that the source covers (Sugiyama, Suzuki & Kanamori 2012,
+//!   *Density Ratio Estimation in Machine Learning*, Cambridge University Press: the ratio
+//!   integrates to one under the source). Weights whose mean is far below 1 therefore come from a
+//!   target that lies largely where the source has no rows, or from an estimate that does not
+//!   normalise; the tail checks above cannot see either when the weights are uniformly small. The
+//!   check is one-sided and statistical: the mean is flagged when its one-sided upper bound
+//!   `mean + z s / sqrt(n)` (s the sample standard deviation, z = [`MEAN_Z`] the standard normal
+//!   0.999 quantile, central limit theorem) lies below [`MEAN_FLOOR`] = 1/2. So sampling noise alone
+//!   flags a correct estimator with probability below 0.1% (asymptotically, for weights of finite
+//!   variance),
+//!   and a correct but regularised estimator whose mean is somewhat below 1 is not flagged however
+//!   large the sample: only a shortfall of more than half of the target mass is. A mean above 1
+//!   is not flagged: missing support can only lower the mean, and heavy-tailed weights, which
+//!   the Pareto k judges, give sample means far above their expectation now and then.
+//!   Weights rescaled to mean 1 (e.g. by [`crate::weights::stabilize`]) never trip it.
+//!   RuLSIF's relative ratio `r_a = p_t / (a p_t + (1 - a) p_s)` has `E_mix[r_a] = 1` under the
+//!   mixture, not under the source; its source mean is `(1 - a E_t[r_a]) / (1 - a) <= 1` (Jensen,
+//!   since r_a is concave in w), close to 1 under good overlap and near 0 only when `E_t[r_a]`
+//!   approaches its bound 1/a, i.e. when most target rows lie where `p_s << p_t`. The same check
+//!   therefore applies to RuLSIF's source weights with the same meaning: a source mean below 1/2
+//!   needs `E_t[r_a] > (1 + a) / (2a)`, the value of r_a at `w = (1 + a) / a` (11 for a = 0.1), so
+//!   a typical target row has a ratio above 11: poor overlap. RuLSIF's own normalisation (under
+//!   the mixture) holds even on disjoint supports, so its fit cannot be the one to flag this.
 //!
 //! Tail-size and prior details marked *from memory* below were recalled from Vehtari et al. (2024)
 //! and should be checked against the paper; the code states the formula used.
@@ -49,6 +74,14 @@ pub const K_GOOD: f64 = 0.5;
 pub const K_UNRELIABLE: f64 = 0.7;
 /// Fewest tail rows the GPD is fitted to; shorter tails are left alone (our choice).
 pub const MIN_TAIL: usize = 5;
+/// The standard normal 0.999 quantile: the one-sided level of the bound on the mean weight in
+/// [`mean_check`] (reference: statrs `Normal::inverse_cdf(0.999)`; the level is our choice).
+pub const MEAN_Z: f64 = 3.090_232_306_167_813;
+/// The mean weight is flagged when its one-sided upper bound is below this: the weights then miss
+/// more than half of the target mass (E_source[w] = P_target(p_s > 0), see the module doc). Our
+/// choice: low enough that a shrunken but sound estimate (regularised uLSIF, RuLSIF) passes, high
+/// enough that a source covering less than half of the target is caught.
+pub const MEAN_FLOOR: f64 = 0.5;
 /// Quantile levels reported by [`diagnose`].
 pub const QUANTILE_LEVELS: [f64; 9] = [0.0, 0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99, 1.0];
 /// Default clip levels of [`clip_tradeoff`], as quantiles of the weights.
@@ -110,6 +143,82 @@ fn kish(w: &[f64], max: f64) -> f64 {
         },
     );
     s1 * s1 / s2
+}
+
+/// Standard error of the mean weight, `s / sqrt(n)` with s the sample standard deviation (n - 1
+/// denominator), in two passes on `w / max` so that squares cannot overflow. None below two weights.
+fn mean_std_error(w: &[f64], mean: f64, max: f64) -> Option<f64> {
+    let n = w.len();
+    if n < 2 || max <= 0.0 {
+        return None;
+    }
+    // A subnormal maximum has no finite reciprocal; its squares underflow to 0 either way.
+    let scale = if (1.0 / max).is_finite() { max } else { 1.0 };
+    let inv = 1.0 / scale;
+    let m = mean * inv;
+    let ss = par::reduce_chunks(
+        n,
+        0.0,
+        |a, b| {
+            w[a..b]
+                .iter()
+                .map(|v| {
+                    let d = v * inv - m;
+                    d * d
+                })
+                .sum::<f64>()
+        },
+        |acc, p| *acc += p,
+    );
+    Some(scale * (ss / (n - 1) as f64).sqrt() / (n as f64).sqrt())
+}
+
+/// Is the mean weight consistent with 1? See the module doc ("Mean weight").
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct MeanCheck {
+    /// Mean of the weights as given (not rescaled).
+    pub mean: f64,
+    /// Standard error of the mean, s / sqrt(n) (None below two weights).
+    pub std_error: Option<f64>,
+    /// One-sided upper bound `mean + MEAN_Z * std_error` (None below two weights).
+    pub upper_bound: Option<f64>,
+    /// True when the upper bound is below [`MEAN_FLOOR`].
+    pub too_low: bool,
+}
+
+fn mean_check_known(w: &[f64], total: f64, max: f64) -> MeanCheck {
+    let mean = total / w.len() as f64;
+    let std_error = mean_std_error(w, mean, max);
+    let upper_bound = std_error.map(|se| mean + MEAN_Z * se);
+    MeanCheck {
+        mean,
+        std_error,
+        upper_bound,
+        too_low: upper_bound.is_some_and(|u| u < MEAN_FLOOR),
+    }
+}
+
+/// Checks that the mean of raw importance weights is consistent with 1 (module doc, "Mean
+/// weight"): flagged when `mean + 3.09 s / sqrt(n) < 1/2`. O(n), two parallel passes.
+pub fn mean_check(w: &[f64]) -> Result<MeanCheck> {
+    validate_weights(w, w.len(), "weights")?;
+    let (total, max, _) = sum_max_zeros(w);
+    Ok(mean_check_known(w, total, max))
+}
+
+/// The warning for a mean weight far below 1.
+pub fn mean_warning(c: &MeanCheck) -> Option<String> {
+    let u = c.upper_bound?;
+    c.too_low.then(|| {
+        format!(
+            "The mean weight is {:.3} (99.9% upper bound {:.3}), far below 1: importance weights of the \
+             source rows must average 1, and their average is the share of the target that the source \
+             covers. Most of the target lies where the source has few or no rows (no weighting fixes \
+             missing support), or the ratio estimate does not normalise. If the weights were rescaled \
+             on purpose (e.g. to sum to 1), rescale them to mean 1 before diagnosing.",
+            c.mean, u
+        )
+    })
 }
 
 /// Kish (1965) effective sample size `(sum w)^2 / sum w^2`. O(n).
@@ -383,7 +492,8 @@ pub enum Verdict {
     Good,
     /// 0.5 <= k <= threshold: usable, but estimates converge slowly and can be noisy.
     Usable,
-    /// k above min(0.7, 1 - 1/log10 n), or the tail could not be checked.
+    /// k above min(0.7, 1 - 1/log10 n), the tail could not be checked, or (in [`diagnose`]) the
+    /// mean weight is far below 1 (see [`mean_check`]).
     Unreliable,
 }
 
@@ -442,15 +552,25 @@ pub struct Groups<'a> {
 pub struct Diagnosis {
     /// Number of weights.
     pub n: usize,
-    /// Mean weight.
+    /// Mean weight, as given (not rescaled).
     pub mean: f64,
+    /// Standard error of the mean weight (None below two weights); see [`mean_check`].
+    #[serde(default)]
+    pub mean_std_error: Option<f64>,
+    /// One-sided 99.9% upper bound on the mean weight (None below two weights).
+    #[serde(default)]
+    pub mean_upper_bound: Option<f64>,
+    /// True when that bound is below [`MEAN_FLOOR`]: the weights miss much of the target mass or
+    /// do not normalise. Makes the verdict `unreliable`.
+    #[serde(default)]
+    pub mean_too_low: bool,
     /// Kish effective sample size.
     pub ess: f64,
     /// ESS / n.
     pub ess_fraction: f64,
     /// Pareto k of the upper tail (None when it cannot be estimated; see `tail.note`).
     pub pareto_k: Option<f64>,
-    /// `good`, `usable` or `unreliable`.
+    /// `good`, `usable` or `unreliable` (from the Pareto k, and unreliable when `mean_too_low`).
     pub verdict: Verdict,
     /// Details of the tail fit (tail size, threshold, sample-size-dependent bound).
     pub tail: TailFit,
@@ -527,7 +647,8 @@ pub fn diagnose(w: &[f64], groups: Option<Groups>) -> Result<Diagnosis> {
     }
     let (total, max, n_zero) = sum_max_zeros(w);
     let ess = kish(w, max);
-    let mean = total / n as f64;
+    let mc = mean_check_known(w, total, max);
+    let mean = mc.mean;
 
     // Order statistics needed: quantiles, the top-1% boundary, the tail start.
     let top1_rows = ((n as f64) * 0.01).ceil().max(1.0) as usize;
@@ -595,7 +716,11 @@ pub fn diagnose(w: &[f64], groups: Option<Groups>) -> Result<Diagnosis> {
         None => tail_fit_from_sorted(&[], n),
     };
     drop(a);
-    let verdict = Verdict::from_tail(&tail);
+    let verdict = if mc.too_low {
+        Verdict::Unreliable
+    } else {
+        Verdict::from_tail(&tail)
+    };
 
     let group_rows = match groups {
         Some(g) => group_ess(w, g, total),
@@ -605,6 +730,9 @@ pub fn diagnose(w: &[f64], groups: Option<Groups>) -> Result<Diagnosis> {
     let mut d = Diagnosis {
         n,
         mean,
+        mean_std_error: mc.std_error,
+        mean_upper_bound: mc.upper_bound,
+        mean_too_low: mc.too_low,
         ess,
         ess_fraction: ess / n as f64,
         pareto_k: tail.k,
@@ -668,7 +796,15 @@ fn group_ess(w: &[f64], g: Groups, total: f64) -> Vec<GroupEss> {
 /// (stated in the README); the k thresholds are those of Vehtari et al. (2024).
 fn warnings_for(d: &Diagnosis) -> Vec<String> {
     let mut out = Vec::new();
-    match (d.verdict, d.pareto_k) {
+    let mc = MeanCheck {
+        mean: d.mean,
+        std_error: d.mean_std_error,
+        upper_bound: d.mean_upper_bound,
+        too_low: d.mean_too_low,
+    };
+    out.extend(mean_warning(&mc));
+    let tail_verdict = Verdict::from_tail(&d.tail);
+    match (tail_verdict, d.pareto_k) {
         (Verdict::Unreliable, Some(k)) => out.push(format!(
             "Pareto k = {k:.2} is above {:.2} (the limit for {} weights): the largest weights dominate and \
              weighted estimates are unreliable. Check support overlap, then consider smoothing or truncating \
@@ -1330,6 +1466,75 @@ mod tests {
         assert_eq!(r.n_poorly_covered, 0);
         assert!(check_overlap_probabilities(&[1.2], 1, 1, 20.0, 0.01).is_err());
         assert!(check_overlap(&[1.0], 0.5, 0.01).is_err());
+    }
+
+    #[test]
+    fn mean_check_matches_statrs_and_the_coverage_identity() {
+        use statrs::distribution::{ContinuousCDF, Normal};
+        use statrs::statistics::Statistics;
+        // reference: statrs Normal::inverse_cdf (the one-sided 99.9% level)
+        let z = Normal::standard().inverse_cdf(0.999);
+        assert!((MEAN_Z - z).abs() < 1e-9, "{z}");
+        // Standard error against statrs' sample standard deviation (n - 1 denominator).
+        let mut r = rng(10 ^ TAG);
+        let d = LogNormal::new(-0.5, 1.0).unwrap();
+        let w: Vec<f64> = (0..777).map(|_| d.sample(&mut r)).collect();
+        let c = mean_check(&w).unwrap();
+        let sd = (&w).std_dev(); // reference: statrs Statistics::std_dev
+        let se = sd / (w.len() as f64).sqrt();
+        assert!((c.std_error.unwrap() - se).abs() < 1e-12 * se);
+        assert!((c.mean - (&w).mean()).abs() < 1e-12);
+        assert!((c.upper_bound.unwrap() - (c.mean + z * se)).abs() < 1e-9);
+        // The same at a scale where squares overflow.
+        let big: Vec<f64> = w.iter().map(|v| v * 1e300).collect();
+        let cb = mean_check(&big).unwrap();
+        assert!((cb.std_error.unwrap() / 1e300 - se).abs() < 1e-9 * se);
+        assert!(!cb.too_low);
+        // Analytic: a target that is a fraction q of the source distribution plus mass where the
+        // source has none has ratio exactly q on the source support, and E_source[w] = q
+        // (Sugiyama, Suzuki & Kanamori 2012: the ratio integrates to the covered target mass).
+        // Uniformly small weights have a bounded tail, so only the mean can flag them.
+        let d = diagnose(&[0.3; 400], None).unwrap();
+        assert!(d.tail.bounded);
+        assert!(d.mean_too_low);
+        assert_eq!(d.verdict, Verdict::Unreliable);
+        assert!(d.warnings[0].contains("far below 1"), "{:?}", d.warnings);
+        // Coverage 0.6 is above the floor 1/2: not flagged.
+        let d = diagnose(&[0.6; 400], None).unwrap();
+        assert!(!d.mean_too_low);
+        assert_eq!(d.verdict, Verdict::Good);
+        assert!(d.warnings.is_empty(), "{:?}", d.warnings);
+        // One weight: no standard error, nothing flagged by the mean.
+        let c = mean_check(&[0.01]).unwrap();
+        assert!(c.std_error.is_none() && !c.too_low);
+    }
+
+    #[test]
+    fn correct_weights_and_stabilised_weights_are_not_flagged_by_the_mean() {
+        // Analytic Gaussian pairs: source N(0, 1), target N(mu, 1), w(x) = exp(mu x - mu^2 / 2)
+        // (ratio of two normal densities), E_source[w] = 1. Small samples, several seeds.
+        for (mu, n) in [(0.3, 50), (0.5, 200), (1.0, 2000)] {
+            for seed in 0..5u64 {
+                let mut r = rng(seed ^ TAG ^ 0x6d65_616e);
+                let w: Vec<f64> = (0..n)
+                    .map(|_| {
+                        let x: f64 = rand_distr::StandardNormal.sample(&mut r);
+                        (mu * x - mu * mu / 2.0).exp()
+                    })
+                    .collect();
+                assert!(
+                    !mean_check(&w).unwrap().too_low,
+                    "mu {mu} n {n} seed {seed}"
+                );
+            }
+        }
+        // Weights rescaled to mean 1 never trip it, whatever their raw scale.
+        let raw: Vec<f64> = (1..=300).map(|i| 1e-6 * i as f64).collect();
+        assert!(mean_check(&raw).unwrap().too_low);
+        let opts = crate::weights::StabilizeOptions::new().upper_quantile(0.9);
+        let st = crate::weights::stabilize(&raw, &opts).unwrap();
+        let d = diagnose(&st.weights, None).unwrap();
+        assert!(!d.mean_too_low && (d.mean - 1.0).abs() < 1e-12);
     }
 
     #[test]

@@ -62,7 +62,9 @@ pub use data::{Matrix, MatrixView, Standardizer};
 pub use detect::{
     ClassifierShiftTest, FeatureShift, FeatureShiftTable, MmdShiftTest, ShiftTestResult,
 };
-pub use diagnostics::{diagnose, effective_sample_size, pareto_k, Diagnosis, Verdict};
+pub use diagnostics::{
+    diagnose, effective_sample_size, mean_check, pareto_k, Diagnosis, MeanCheck, Verdict,
+};
 pub use error::{Error, Result};
 pub use ratio::{
     ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, KLRatio,
