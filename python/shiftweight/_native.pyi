@@ -81,6 +81,10 @@ def fit_kmm(
     eps: Optional[float],
     block_rows: int,
     seed: int,
+    ridge: Optional[float],
+    sigma_multiples: List[float],
+    ridge_grid: List[float],
+    folds: int,
     feature_names: Optional[List[str]] = None,
 ) -> RatioModel: ...
 def fit_classifier(

@@ -201,7 +201,7 @@ fn fit_kliep(
 
 /// Fits KMM. See `shiftweight.KernelMeanMatching` for the parameters.
 #[pyfunction]
-#[pyo3(signature = (source, target, sigma, bound, eps, block_rows, seed, feature_names=None))]
+#[pyo3(signature = (source, target, sigma, bound, eps, block_rows, seed, ridge, sigma_multiples, ridge_grid, folds, feature_names=None))]
 #[allow(clippy::too_many_arguments)]
 fn fit_kmm(
     py: Python<'_>,
@@ -212,6 +212,10 @@ fn fit_kmm(
     eps: Option<f64>,
     block_rows: usize,
     seed: u64,
+    ridge: Option<f64>,
+    sigma_multiples: Vec<f64>,
+    ridge_grid: Vec<f64>,
+    folds: usize,
     feature_names: Option<Vec<String>>,
 ) -> PyResult<RatioModel> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
@@ -220,7 +224,11 @@ fn fit_kmm(
         .bound(bound)
         .eps(eps)
         .block_rows(block_rows)
-        .seed(seed);
+        .seed(seed)
+        .ridge(ridge)
+        .sigma_multiples(sigma_multiples)
+        .ridge_grid(ridge_grid)
+        .folds(folds);
     detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
 }
 
