@@ -233,6 +233,16 @@ pub fn gram_of_rows(k: &[f64], n: usize, b: usize) -> Mat<f64> {
 /// standardised). Above [`MEDIAN_SUBSAMPLE`] rows a seeded subsample is used. O(s^2 d) for s
 /// subsampled rows. Returns 1 when every distance is zero (e.g. all rows identical).
 pub fn median_distance(parts: &[MatrixView], seed: u64) -> f64 {
+    median_distance_of(parts, None, seed)
+}
+
+/// As [`median_distance`] for rows that `standardizer` (when given) standardises first: only the
+/// subsampled rows are transformed, so no standardised copy of the inputs is needed.
+pub fn median_distance_of(
+    parts: &[MatrixView],
+    standardizer: Option<&crate::data::Standardizer>,
+    seed: u64,
+) -> f64 {
     let total: usize = parts.iter().map(|p| p.rows()).sum();
     let d = parts.first().map_or(0, |p| p.cols());
     let pick: Vec<usize> = if total > MEDIAN_SUBSAMPLE {
@@ -248,7 +258,14 @@ pub fn median_distance(parts: &[MatrixView], seed: u64) -> f64 {
         let mut g = g;
         for p in parts {
             if g < p.rows() {
-                rows.extend_from_slice(p.row(g));
+                match standardizer {
+                    Some(st) => {
+                        let at = rows.len();
+                        rows.resize(at + d, 0.0);
+                        st.transform_row(p.row(g), &mut rows[at..]);
+                    }
+                    None => rows.extend_from_slice(p.row(g)),
+                }
                 break;
             }
             g -= p.rows();

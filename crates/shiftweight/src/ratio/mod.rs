@@ -435,15 +435,24 @@ pub(crate) fn standardise_pair(
     source: MatrixView,
     target: MatrixView,
 ) -> (Standardizer, Matrix, Matrix, Vec<String>) {
-    let st = Standardizer::fit(&[source, target]);
+    let (st, warnings) = fit_standardizer(source, target);
     let zs = st.transform(&source);
     let zt = st.transform(&target);
+    (st, zs, zt, warnings)
+}
+
+/// The pooled standardiser of a source and a target, with a warning per constant column.
+pub(crate) fn fit_standardizer(
+    source: MatrixView,
+    target: MatrixView,
+) -> (Standardizer, Vec<String>) {
+    let st = Standardizer::fit(&[source, target]);
     let warnings = st
         .constant_columns
         .iter()
         .map(|j| format!("column {j} is constant in source and target; it carries no information about the shift"))
         .collect();
-    (st, zs, zt, warnings)
+    (st, warnings)
 }
 
 /// Metadata for a fit.
