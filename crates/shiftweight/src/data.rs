@@ -263,7 +263,11 @@ pub struct Standardizer {
 
 impl Standardizer {
     /// Fits on the union of the given matrices (all must have the same width).
-    /// Uses a two-pass algorithm for accuracy. O(n d).
+    /// Each fixed row chunk (in parallel, [`crate::par::reduce_chunks`], so the result is the same
+    /// for any thread count) gets its mean and sum of squared deviations by two passes over the
+    /// chunk while it is in cache; the chunks are merged with the pairwise update of Chan, Golub
+    /// and LeVeque (1979). Two passes over the data in all (the first finds each column's largest
+    /// magnitude). O(n d).
     ///
     /// Columns of extreme magnitude (largest |value| above 2^500 or below 2^-500, e.g. 1e300 or
     /// 1e-300) are first divided by a power of two, which is exact, so that sums and squares
@@ -273,13 +277,27 @@ impl Standardizer {
         let n: usize = parts.iter().map(|p| p.rows()).sum();
         let mut max_abs = vec![0.0f64; d];
         for p in parts {
-            for i in 0..p.rows() {
-                for (a, v) in max_abs.iter_mut().zip(p.row(i)) {
-                    *a = a.max(v.abs());
-                }
-            }
+            max_abs = crate::par::reduce_chunks(
+                p.rows(),
+                max_abs,
+                |s, e| {
+                    let mut m = vec![0.0f64; d];
+                    for i in s..e {
+                        for (a, v) in m.iter_mut().zip(p.row(i)) {
+                            *a = a.max(v.abs());
+                        }
+                    }
+                    m
+                },
+                |acc, m| {
+                    for (a, v) in acc.iter_mut().zip(&m) {
+                        *a = a.max(*v);
+                    }
+                },
+            );
         }
-        // Power-of-two divisor per column (1 for ordinary magnitudes).
+        // Power-of-two divisor per column (1 for ordinary magnitudes); dividing by it and
+        // multiplying by its reciprocal (also a power of two) give the same, exact, result.
         let unit: Vec<f64> = max_abs
             .iter()
             .map(|&a| {
@@ -290,26 +308,47 @@ impl Standardizer {
                 }
             })
             .collect();
-        let mut mean = vec![0.0; d];
+        let inv_unit: Vec<f64> = unit.iter().map(|u| 1.0 / u).collect();
+        // (rows, mean, sum of squared deviations) of the scaled values, merged chunk by chunk.
+        let mut stats = (0usize, vec![0.0; d], vec![0.0; d]);
         for p in parts {
-            for i in 0..p.rows() {
-                for ((m, v), u) in mean.iter_mut().zip(p.row(i)).zip(&unit) {
-                    *m += v / u;
-                }
-            }
+            stats = crate::par::reduce_chunks(
+                p.rows(),
+                stats,
+                |s, e| {
+                    let mut mean = vec![0.0; d];
+                    for i in s..e {
+                        for ((m, v), u) in mean.iter_mut().zip(p.row(i)).zip(&inv_unit) {
+                            *m += v * u;
+                        }
+                    }
+                    let k = (e - s) as f64;
+                    mean.iter_mut().for_each(|m| *m /= k);
+                    let mut m2 = vec![0.0; d];
+                    for i in s..e {
+                        for (((q, v), m), u) in
+                            m2.iter_mut().zip(p.row(i)).zip(&mean).zip(&inv_unit)
+                        {
+                            let c = v * u - m;
+                            *q += c * c;
+                        }
+                    }
+                    (e - s, mean, m2)
+                },
+                |acc, (nb, mb, qb)| {
+                    let na = acc.0;
+                    let tot = (na + nb) as f64;
+                    let (fa, fb) = (na as f64, nb as f64);
+                    for j in 0..d {
+                        let delta = mb[j] - acc.1[j];
+                        acc.1[j] += delta * (fb / tot);
+                        acc.2[j] += qb[j] + delta * delta * (fa * fb / tot);
+                    }
+                    acc.0 = na + nb;
+                },
+            );
         }
-        for m in &mut mean {
-            *m /= n.max(1) as f64;
-        }
-        let mut var = vec![0.0; d];
-        for p in parts {
-            for i in 0..p.rows() {
-                for (((s, v), m), u) in var.iter_mut().zip(p.row(i)).zip(&mean).zip(&unit) {
-                    let c = v / u - m;
-                    *s += c * c;
-                }
-            }
-        }
+        let (mean, var) = (stats.1, stats.2);
         let mut constant_columns = Vec::new();
         let scale = var
             .iter()

@@ -34,7 +34,7 @@ use crate::error::{Error, Result};
 use crate::model;
 use crate::par;
 use faer::prelude::*;
-use faer::{Mat, Side};
+use faer::{Mat, MatMut, Side};
 use serde::{Deserialize, Serialize};
 
 /// Format tag of linear-model files.
@@ -242,9 +242,160 @@ fn check_labels(y: &[f64], n: usize) -> Result<()> {
     Ok(())
 }
 
+/// Rows per sub-block of a chunk in the Newton pass: the block of mapped rows (rows x (d + 1))
+/// stays in cache between the linear predictor, the gradient product and the rank-k update.
+const NEWTON_BLOCK: usize = 256;
+
+thread_local! {
+    /// Per-thread scratch of the Newton pass (rows of [z, 1], then the same scaled by
+    /// sqrt(w p (1 - p)); linear predictors; residuals): reused across chunks and passes, so the
+    /// pass allocates nothing per row or per block.
+    static NEWTON_SCRATCH: std::cell::RefCell<(Vec<f64>, Vec<f64>, Vec<f64>)> =
+        const { std::cell::RefCell::new((Vec::new(), Vec::new(), Vec::new())) };
+}
+
+/// The weighted, penalised logistic loss on standardised columns z = (x - mean) / scale with the
+/// intercept as last coordinate, and its derivatives.
+struct LogisticLoss<'a> {
+    x: MatrixView<'a>,
+    y: &'a [f64],
+    w: &'a [f64],
+    mean: Vec<f64>,
+    inv_scale: Vec<f64>,
+    /// Penalty per standardised coefficient, l2 / scale^2 (the same problem as l2 on raw ones).
+    pen: Vec<f64>,
+    /// Only rows 0, stride, 2 stride, ... take part (1: every row).
+    stride: usize,
+}
+
+/// Objective, gradient and Hessian at one point.
+struct Evaluation {
+    f: f64,
+    grad: Vec<f64>,
+    hess: Mat<f64>,
+}
+
+impl LogisticLoss<'_> {
+    /// Number of rows taking part.
+    fn rows(&self) -> usize {
+        self.x.rows().div_ceil(self.stride)
+    }
+
+    /// Total weight of the rows taking part.
+    fn weight_sum(&self) -> f64 {
+        self.w.iter().step_by(self.stride).sum()
+    }
+
+    /// One pass over the rows: objective, gradient and Hessian at `th` (length d + 1). Per block
+    /// of rows: the rows of [z, 1], the linear predictors as one matrix-vector product, the
+    /// gradient as a second, and the Hessian as one symmetric rank-k update of the rows scaled by
+    /// sqrt(w p (1 - p)); chunks in parallel through `par::reduce_chunks` (deterministic).
+    fn evaluate(&self, th: &[f64]) -> Evaluation {
+        let (x, y, w, stride) = (self.x, self.y, self.w, self.stride);
+        let d = x.cols();
+        let p = d + 1;
+        let thm = MatRef::from_column_major_slice(th, p, 1);
+        let (f, grad, mut hess) = par::reduce_chunks(
+            self.rows(),
+            (0.0f64, Mat::<f64>::zeros(p, 1), Mat::<f64>::zeros(p, p)),
+            |s, e| {
+                let mut f = 0.0;
+                let mut g = Mat::<f64>::zeros(p, 1);
+                let mut h = Mat::<f64>::zeros(p, p);
+                NEWTON_SCRATCH.with(|cell| {
+                    let mut scratch = cell.borrow_mut();
+                    let (zb, eta, resid) = &mut *scratch;
+                    zb.resize(NEWTON_BLOCK * p, 0.0);
+                    eta.resize(NEWTON_BLOCK, 0.0);
+                    resid.resize(NEWTON_BLOCK, 0.0);
+                    let mut b0 = s;
+                    while b0 < e {
+                        let b1 = (b0 + NEWTON_BLOCK).min(e);
+                        let m = b1 - b0;
+                        for (r, zrow) in zb[..m * p].chunks_exact_mut(p).enumerate() {
+                            let xr = x.row((b0 + r) * stride);
+                            for (((zj, xj), mj), sj) in
+                                zrow.iter_mut().zip(xr).zip(&self.mean).zip(&self.inv_scale)
+                            {
+                                *zj = (xj - mj) * sj;
+                            }
+                            zrow[d] = 1.0;
+                        }
+                        let zm = MatRef::from_row_major_slice(&zb[..m * p], m, p);
+                        faer::linalg::matmul::matmul(
+                            MatMut::from_column_major_slice_mut(&mut eta[..m], m, 1),
+                            faer::Accum::Replace,
+                            zm,
+                            thm,
+                            1.0,
+                            Par::Seq,
+                        );
+                        for r in 0..m {
+                            let i = (b0 + r) * stride;
+                            let t = eta[r];
+                            // One exponential serves the loss and the probability.
+                            let ex = (-t.abs()).exp();
+                            let pr = if t >= 0.0 {
+                                1.0 / (1.0 + ex)
+                            } else {
+                                ex / (1.0 + ex)
+                            };
+                            f += w[i] * (t.max(0.0) + ex.ln_1p() - y[i] * t);
+                            resid[r] = w[i] * (pr - y[i]);
+                            // eta's slot now holds the row's scale sqrt(w p (1 - p)).
+                            eta[r] = (w[i] * pr * (1.0 - pr)).sqrt();
+                        }
+                        faer::linalg::matmul::matmul(
+                            g.as_mut(),
+                            faer::Accum::Add,
+                            zm.transpose(),
+                            MatRef::from_column_major_slice(&resid[..m], m, 1),
+                            1.0,
+                            Par::Seq,
+                        );
+                        for (zrow, sw) in zb[..m * p].chunks_exact_mut(p).zip(&eta[..m]) {
+                            zrow.iter_mut().for_each(|v| *v *= sw);
+                        }
+                        // Symmetric rank-m update: lower triangle only (half the flops).
+                        let zm = MatRef::from_row_major_slice(&zb[..m * p], m, p);
+                        crate::kernel::gram_lower(h.as_mut(), zm, faer::Accum::Add);
+                        b0 = b1;
+                    }
+                });
+                (f, g, h)
+            },
+            |acc, part| {
+                acc.0 += part.0;
+                acc.1 += &part.1;
+                crate::kernel::add_lower(&mut acc.2, &part.2);
+            },
+        );
+        let mut grad: Vec<f64> = (0..p).map(|j| grad[(j, 0)]).collect();
+        let mut pen_sum = 0.0;
+        for j in 0..d {
+            grad[j] += self.pen[j] * th[j];
+            pen_sum += self.pen[j] * th[j] * th[j];
+            hess[(j, j)] += self.pen[j];
+        }
+        crate::kernel::mirror_lower(&mut hess);
+        Evaluation {
+            f: f + 0.5 * pen_sum,
+            grad,
+            hess,
+        }
+    }
+}
+
 /// Newton's method for the weighted, penalised logistic loss. Returns (coef, intercept, iters) on
 /// the raw feature scale. Works on standardised columns z = (x - mean) / scale with per-coordinate
 /// penalty l2 / scale^2, which is the same problem.
+///
+/// One pass over the rows per Newton step gives the objective, gradient and Hessian together
+/// ([`LogisticLoss::evaluate`]); the step solves the small (d + 1) x (d + 1) system by Cholesky.
+/// The objective at the new point, computed by the next pass, decides whether the step is kept
+/// (otherwise it is halved: backtracking). Stops when the largest gradient entry is below `tol`
+/// times the total weight, or after a step whose Newton decrement g' H^-1 g is below 1e-14 times
+/// the total weight (quadratic convergence makes the following gradient negligible).
 pub(crate) fn fit_logistic(
     x: MatrixView,
     y: &[f64],
@@ -256,107 +407,94 @@ pub(crate) fn fit_logistic(
     let d = x.cols();
     let p = d + 1; // last coordinate is the intercept
     let (mean, scale) = column_scaling(x);
-    let pen: Vec<f64> = scale.iter().map(|s| l2 / (s * s)).collect();
-    let wsum: f64 = w.iter().sum();
+    let loss = LogisticLoss {
+        x,
+        y,
+        w,
+        pen: scale.iter().map(|s| l2 / (s * s)).collect(),
+        inv_scale: scale.iter().map(|s| 1.0 / s).collect(),
+        mean: mean.clone(),
+        stride: 1,
+    };
+    let wsum = loss.weight_sum();
     let mut theta = vec![0.0; p];
     // Start the intercept at the weighted log-odds.
     let wy: f64 = w.iter().zip(y).map(|(a, b)| a * b).sum();
     let pbar = (wy / wsum).clamp(1e-6, 1.0 - 1e-6);
     theta[d] = (pbar / (1.0 - pbar)).ln();
-
-    let objective = |th: &[f64]| -> f64 {
-        let loss = par::reduce_chunks(
-            x.rows(),
-            0.0f64,
-            |s, e| {
-                let mut z = vec![0.0; d];
-                let mut acc = 0.0;
-                for i in s..e {
-                    let eta = eta_row(x.row(i), &mean, &scale, th, &mut z);
-                    acc += w[i] * (log1pexp(eta) - y[i] * eta);
+    // On many rows, start from the solution on an evenly spaced subsample (penalty scaled to its
+    // share of the weight): it is within sampling error of the full solution, so the full problem
+    // needs about half the Newton passes. Any failure on the subsample just keeps the plain start.
+    let stride = x.rows() / START_SUBSAMPLE_ROWS;
+    if stride >= 8 {
+        let share = w.iter().step_by(stride).sum::<f64>() / wsum;
+        if share > 0.0 && share.is_finite() {
+            let sub = LogisticLoss {
+                pen: loss.pen.iter().map(|q| q * share).collect(),
+                stride,
+                mean: loss.mean.clone(),
+                inv_scale: loss.inv_scale.clone(),
+                ..loss
+            };
+            if let Ok((t, _)) = newton(&sub, theta.clone(), max_iter, tol) {
+                if t.iter().all(|v| v.is_finite()) {
+                    theta = t;
                 }
-                acc
-            },
-            |a, v| *a += v,
-        );
-        loss + 0.5
-            * th[..d]
-                .iter()
-                .zip(&pen)
-                .map(|(b, q)| q * b * b)
-                .sum::<f64>()
-    };
-
-    let mut f_old = objective(&theta);
-    for it in 1..=max_iter {
-        // Gradient and Hessian, accumulated over chunks.
-        let (grad, hess) = par::reduce_chunks(
-            x.rows(),
-            (vec![0.0; p], vec![0.0; p * p]),
-            |s, e| {
-                let m = e - s;
-                let mut zt = vec![0.0; m * p]; // rows of [z, 1] scaled by sqrt(w p (1-p))
-                let mut g = vec![0.0; p];
-                let mut z = vec![0.0; d];
-                for (r, i) in (s..e).enumerate() {
-                    let eta = eta_row(x.row(i), &mean, &scale, &theta, &mut z);
-                    let pr = sigmoid(eta);
-                    let resid = w[i] * (pr - y[i]);
-                    for j in 0..d {
-                        g[j] += resid * z[j];
-                    }
-                    g[d] += resid;
-                    let sw = (w[i] * pr * (1.0 - pr)).sqrt();
-                    let row = &mut zt[r * p..(r + 1) * p];
-                    for j in 0..d {
-                        row[j] = sw * z[j];
-                    }
-                    row[d] = sw;
-                }
-                // Symmetric rank-m update: only the lower triangle (half the flops of a full
-                // product); the upper triangle is mirrored once after the reduction.
-                let zm = MatRef::from_row_major_slice(&zt, m, p);
-                let mut h = Mat::<f64>::zeros(p, p);
-                faer::linalg::matmul::triangular::matmul(
-                    h.as_mut(),
-                    faer::linalg::matmul::triangular::BlockStructure::TriangularLower,
-                    faer::Accum::Replace,
-                    zm.transpose(),
-                    faer::linalg::matmul::triangular::BlockStructure::Rectangular,
-                    zm,
-                    faer::linalg::matmul::triangular::BlockStructure::Rectangular,
-                    1.0,
-                    Par::Seq,
-                );
-                let hv: Vec<f64> = (0..p * p)
-                    .map(|k| {
-                        let (i, j) = (k / p, k % p);
-                        if j <= i {
-                            h[(i, j)]
-                        } else {
-                            0.0
-                        }
-                    })
-                    .collect();
-                (g, hv)
-            },
-            |acc, part| {
-                par::add_into(&mut acc.0, &part.0);
-                par::add_into(&mut acc.1, &part.1);
-            },
-        );
-        let mut grad = grad;
-        for j in 0..d {
-            grad[j] += pen[j] * theta[j];
+            }
         }
+    }
+    let (theta, it) = newton(&loss, theta, max_iter, tol)?;
+    Ok(unscale(&theta, &mean, &scale, it))
+}
+
+/// Rows of the evenly spaced subsample whose solution starts Newton's method on large inputs.
+const START_SUBSAMPLE_ROWS: usize = 50_000;
+
+/// Newton's method with backtracking from `theta` (see [`fit_logistic`]); returns the solution
+/// and the number of Newton steps.
+fn newton(
+    loss: &LogisticLoss,
+    mut theta: Vec<f64>,
+    max_iter: usize,
+    tol: f64,
+) -> Result<(Vec<f64>, usize)> {
+    let p = theta.len();
+    let wsum = loss.weight_sum();
+
+    // The last accepted point, its objective, the Newton step taken from it and the step length.
+    let mut last: Option<(Vec<f64>, f64, Vec<f64>, f64)> = None;
+    let mut it = 0;
+    loop {
+        let ev = loss.evaluate(&theta);
+        if let Some((base, f_base, step, t)) = last.take() {
+            let decreased = ev.f.is_finite() && ev.f <= f_base + 1e-12 * f_base.abs().max(1.0);
+            if !decreased {
+                let t = 0.5 * t;
+                if t < 1e-12 {
+                    // No further decrease possible at double precision: this is the optimum.
+                    return Ok((base, it));
+                }
+                theta = (0..p).map(|j| base[j] - t * step[j]).collect();
+                last = Some((base, f_base, step, t));
+                continue;
+            }
+            let smax = (0..p).fold(0.0f64, |a, j| a.max((t * step[j]).abs()));
+            if smax < 1e-13 * (1.0 + theta.iter().fold(0.0f64, |a, v| a.max(v.abs()))) {
+                return Ok((theta, it));
+            }
+        }
+        let grad = ev.grad;
         let gmax = grad.iter().fold(0.0f64, |a, v| a.max(v.abs()));
         if gmax <= tol * wsum.max(1.0) {
-            return Ok(unscale(&theta, &mean, &scale, it - 1));
+            return Ok((theta, it));
         }
-        let mut h = Mat::<f64>::from_fn(p, p, |i, j| hess[i.max(j) * p + i.min(j)]);
-        for j in 0..d {
-            h[(j, j)] += pen[j];
+        if it == max_iter {
+            return Err(Error::Numerical {
+                context: "weighted logistic regression".into(),
+                reason: format!("no convergence in {max_iter} Newton iterations (largest gradient entry {gmax:.3e}); raise max_iter or l2"),
+            });
         }
+        let mut h = ev.hess;
         // A tiny ridge on the diagonal keeps separable or collinear problems solvable.
         let jitter = 1e-12 * (1.0 + (0..p).map(|j| h[(j, j)]).fold(0.0, f64::max));
         for j in 0..p {
@@ -366,47 +504,19 @@ pub(crate) fn fit_logistic(
             context: "weighted logistic Newton step".into(),
             reason: format!("{e:?}; the classes may be perfectly separable, try a larger l2"),
         })?;
-        let step = llt.solve(Mat::<f64>::from_fn(p, 1, |i, _| grad[i]));
-        let mut t = 1.0;
-        let mut accepted = false;
-        for _ in 0..40 {
-            let cand: Vec<f64> = (0..p).map(|j| theta[j] - t * step[(j, 0)]).collect();
-            let f_new = objective(&cand);
-            if f_new.is_finite() && f_new <= f_old + 1e-12 * f_old.abs().max(1.0) {
-                theta = cand;
-                f_old = f_new;
-                accepted = true;
-                break;
-            }
-            t *= 0.5;
+        let sol = llt.solve(Mat::<f64>::from_fn(p, 1, |i, _| grad[i]));
+        let step: Vec<f64> = (0..p).map(|j| sol[(j, 0)]).collect();
+        let decrement: f64 = step.iter().zip(&grad).map(|(a, b)| a * b).sum();
+        it += 1;
+        let next: Vec<f64> = (0..p).map(|j| theta[j] - step[j]).collect();
+        if decrement.is_finite() && (0.0..=1e-14 * wsum.max(1.0)).contains(&decrement) {
+            // Inside the region of quadratic convergence: the full step is the solution to
+            // within rounding; no further pass is needed.
+            return Ok((next, it));
         }
-        if !accepted {
-            // No further decrease possible at double precision: this is the optimum.
-            return Ok(unscale(&theta, &mean, &scale, it));
-        }
-        let smax = (0..p).fold(0.0f64, |a, j| a.max((t * step[(j, 0)]).abs()));
-        if smax < 1e-13 * (1.0 + theta.iter().fold(0.0f64, |a, v| a.max(v.abs()))) {
-            return Ok(unscale(&theta, &mean, &scale, it));
-        }
-        if it == max_iter {
-            return Err(Error::Numerical {
-                context: "weighted logistic regression".into(),
-                reason: format!("no convergence in {max_iter} Newton iterations (largest gradient entry {gmax:.3e}); raise max_iter or l2"),
-            });
-        }
+        last = Some((theta, ev.f, step, 1.0));
+        theta = next;
     }
-    unreachable!("loop returns")
-}
-
-#[inline]
-fn eta_row(row: &[f64], mean: &[f64], scale: &[f64], th: &[f64], z: &mut [f64]) -> f64 {
-    let d = row.len();
-    let mut eta = th[d];
-    for j in 0..d {
-        z[j] = (row[j] - mean[j]) / scale[j];
-        eta += th[j] * z[j];
-    }
-    eta
 }
 
 fn unscale(theta: &[f64], mean: &[f64], scale: &[f64], iters: usize) -> (Vec<f64>, f64, usize) {

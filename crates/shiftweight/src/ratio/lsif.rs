@@ -27,10 +27,10 @@
 //! n_lambda m b^2)) for the cross-validation, O(n b d) to score n rows. Memory O(n_sigma b^2 + m b).
 
 use super::{
-    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
+    fit_meta, fit_standardizer, params, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
     ScoreRow, Selection,
 };
-use crate::data::{validate_pair, MatrixView};
+use crate::data::{validate_pair, MatrixView, Standardizer};
 use crate::error::{Error, Result};
 use crate::kernel;
 use crate::par;
@@ -193,7 +193,20 @@ pub(crate) fn kernel_sums(
     sigmas: &[f64],
     gram: bool,
 ) -> KernelSums {
+    kernel_sums_of(z, None, centres, sigmas, gram)
+}
+
+/// As [`kernel_sums`] on the rows of `x` after `standardizer` (when given), which standardises
+/// each row chunk into a chunk-sized buffer: no standardised copy of the whole input is made.
+pub(crate) fn kernel_sums_of(
+    x: MatrixView,
+    standardizer: Option<&Standardizer>,
+    centres: MatrixView,
+    sigmas: &[f64],
+    gram: bool,
+) -> KernelSums {
     let b = centres.rows();
+    let d = x.cols();
     let c_sq = kernel::row_sq_norms(centres);
     let init = KernelSums {
         gram: sigmas
@@ -203,11 +216,22 @@ pub(crate) fn kernel_sums(
         sum: sigmas.iter().map(|_| vec![0.0; b]).collect(),
     };
     let mut sums = par::reduce_chunks(
-        z.rows(),
+        x.rows(),
         init,
         |start, end| {
-            let rows = z.slice_rows(start, end);
             let m = end - start;
+            let standardised;
+            let rows = match standardizer {
+                Some(st) => {
+                    let mut buf = vec![0.0; m * d];
+                    for (i, out) in buf.chunks_exact_mut(d).enumerate() {
+                        st.transform_row(x.row(start + i), out);
+                    }
+                    standardised = buf;
+                    MatrixView::new(&standardised, m, d).expect("chunk shape")
+                }
+                None => x.slice_rows(start, end),
+            };
             let mut dist = vec![0.0; m * b];
             kernel::sq_distances_into(rows, centres, &c_sq, &mut dist);
             let mut kb = vec![0.0; m * b];
@@ -438,11 +462,14 @@ impl RatioEstimator for LeastSquaresRatio {
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         self.check()?;
         validate_pair(&source, &target, 2)?;
-        let (st, zs, zt, warnings) = standardise_pair(source, target);
-        let (n_s, n_t) = (zs.rows(), zt.rows());
+        // The source is standardised chunk by chunk where it is used, never copied whole (it is
+        // usually the large sample); the target is copied standardised.
+        let (st, warnings) = fit_standardizer(source, target);
+        let zt = st.transform(&target);
+        let (n_s, n_t) = (source.rows(), zt.rows());
         let centres = kernel::choose_centres(zt.view(), self.n_basis, self.seed)?;
         let b = centres.rows();
-        let median = kernel::median_distance(&[zs.view(), zt.view()], self.seed);
+        let median = kernel::median_distance_of(&[source, target], Some(&st), self.seed);
         let sigmas: Vec<f64> = match self.sigma {
             Some(s) => vec![s],
             None => self.sigma_multiples.iter().map(|m| m * median).collect(),
@@ -452,7 +479,7 @@ impl RatioEstimator for LeastSquaresRatio {
             None => self.lambda_grid.clone(),
         };
         let alpha = self.alpha;
-        let ss = kernel_sums(zs.view(), centres.view(), &sigmas, true);
+        let ss = kernel_sums_of(source, Some(&st), centres.view(), &sigmas, true);
         let stt = kernel_sums(zt.view(), centres.view(), &sigmas, alpha > 0.0);
 
         let mut table = Vec::new();
@@ -464,7 +491,7 @@ impl RatioEstimator for LeastSquaresRatio {
             let mut it = sample(&mut r, n_t, m).into_vec();
             is.sort_unstable();
             it.sort_unstable();
-            let cvs = zs.view().select_rows(&is);
+            let cvs = st.transform(&source.select_rows(&is).view());
             let cvt = zt.view().select_rows(&it);
             let mut best = f64::INFINITY;
             // Squared distances of the held-out rows, shared by every width.

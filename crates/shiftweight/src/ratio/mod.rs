@@ -34,6 +34,12 @@ pub trait RatioEstimator {
 /// Rows per cache-sized block when scoring (kernel values of one block stay in L2).
 const SCORE_BLOCK: usize = 256;
 
+thread_local! {
+    /// Per-thread scoring buffers (standardised rows, kernel block), reused across blocks.
+    static SCORE_SCRATCH: std::cell::RefCell<(Vec<f64>, Vec<f64>)> =
+        const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+}
+
 /// Which published method produced a fitted model.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -210,25 +216,38 @@ impl FittedRatio {
                     .enumerate()
                     .for_each(|(k, out_chunk)| {
                         let start = k * CHUNK_ROWS;
-                        // Sub-blocks small enough that the kernel values stay in cache between
-                        // the distance product, the exponentials and the weighted sum.
-                        let mut z = vec![0.0; SCORE_BLOCK * d];
-                        let mut kb = vec![0.0; SCORE_BLOCK * b];
-                        for (s, out_block) in out_chunk.chunks_mut(SCORE_BLOCK).enumerate() {
-                            let m = out_block.len();
-                            let first = start + s * SCORE_BLOCK;
-                            for i in 0..m {
-                                self.standardizer
-                                    .transform_row(x.row(first + i), &mut z[i * d..(i + 1) * d]);
+                        SCORE_SCRATCH.with(|cell| {
+                            // Sub-blocks small enough that the kernel values stay in cache between
+                            // the distance product, the exponentials and the weighted sum; the
+                            // buffers are per thread and reused, so no block allocates.
+                            let mut scratch = cell.borrow_mut();
+                            let (z, kb) = &mut *scratch;
+                            z.resize(SCORE_BLOCK * d, 0.0);
+                            kb.resize(SCORE_BLOCK * b, 0.0);
+                            for (s, out_block) in out_chunk.chunks_mut(SCORE_BLOCK).enumerate() {
+                                let m = out_block.len();
+                                let first = start + s * SCORE_BLOCK;
+                                for i in 0..m {
+                                    self.standardizer.transform_row(
+                                        x.row(first + i),
+                                        &mut z[i * d..(i + 1) * d],
+                                    );
+                                }
+                                let zv = MatrixView::new(&z[..m * d], m, d).expect("block shape");
+                                let kb = &mut kb[..m * b];
+                                kernel::kernel_block_into(zv, centres.view(), &c_sq, *sigma, kb);
+                                // The weighted sums of every row as one matrix-vector product.
+                                faer::linalg::matmul::matmul(
+                                    faer::MatMut::from_column_major_slice_mut(out_block, m, 1),
+                                    faer::Accum::Replace,
+                                    faer::MatRef::from_row_major_slice(kb, m, b),
+                                    faer::MatRef::from_column_major_slice(coef, b, 1),
+                                    1.0,
+                                    faer::Par::Seq,
+                                );
+                                out_block.iter_mut().for_each(|o| *o = o.max(0.0));
                             }
-                            let zv = MatrixView::new(&z[..m * d], m, d).expect("block shape");
-                            let kb = &mut kb[..m * b];
-                            kernel::kernel_block_into(zv, centres.view(), &c_sq, *sigma, kb);
-                            for (o, row) in out_block.iter_mut().zip(kb.chunks_exact(b)) {
-                                let r: f64 = row.iter().zip(coef).map(|(k, c)| k * c).sum();
-                                *o = r.max(0.0);
-                            }
-                        }
+                        });
                     });
                 Ok(())
             }
@@ -416,15 +435,24 @@ pub(crate) fn standardise_pair(
     source: MatrixView,
     target: MatrixView,
 ) -> (Standardizer, Matrix, Matrix, Vec<String>) {
-    let st = Standardizer::fit(&[source, target]);
+    let (st, warnings) = fit_standardizer(source, target);
     let zs = st.transform(&source);
     let zt = st.transform(&target);
+    (st, zs, zt, warnings)
+}
+
+/// The pooled standardiser of a source and a target, with a warning per constant column.
+pub(crate) fn fit_standardizer(
+    source: MatrixView,
+    target: MatrixView,
+) -> (Standardizer, Vec<String>) {
+    let st = Standardizer::fit(&[source, target]);
     let warnings = st
         .constant_columns
         .iter()
         .map(|j| format!("column {j} is constant in source and target; it carries no information about the shift"))
         .collect();
-    (st, zs, zt, warnings)
+    (st, warnings)
 }
 
 /// Metadata for a fit.
