@@ -723,22 +723,4 @@ mod tests {
             ));
         }
     }
-
-    #[test]
-    #[ignore]
-    fn timing_probe() {
-        for n in [250usize, 500, 1000] {
-            let s = gauss(n * 3, 0.0, 1.0, 5);
-            let t = gauss(n * 3, 0.5, 1.0, 6);
-            let t0 = std::time::Instant::now();
-            let _ = KernelMeanMatching::new()
-                .block_rows(n)
-                .fit(
-                    MatrixView::new(&s, n, 3).unwrap(),
-                    MatrixView::new(&t, n, 3).unwrap(),
-                )
-                .unwrap();
-            eprintln!("n = {n}: {:?}", t0.elapsed());
-        }
-    }
 }
