@@ -639,7 +639,7 @@ mod tests {
         let (n, m) = (120, 80);
         let s = gauss(n, 1.0, 0.5, 1);
         let t = gauss(m, 2.0, 0.25, 2);
-        let est = KernelMeanMatching::new().bound(20.0);
+        let est = KernelMeanMatching::new().bound(20.0).ridge(Some(0.1));
         let fit = est
             .fit(
                 MatrixView::new(&s, n, 1).unwrap(),
@@ -660,7 +660,10 @@ mod tests {
         );
         let _ = st;
         let sigma = fit.selection.chosen["sigma"];
-        let k = kernel::kernel_block(zs.view(), zs.view(), sigma);
+        let mut k = kernel::kernel_block(zs.view(), zs.view(), sigma);
+        for i in 0..n {
+            k[i * n + i] += 0.1 * (n as f64).sqrt(); // the ridge term
+        }
         let kt = target_kernel_sums(zs.view(), zt.view(), sigma);
         let grad: Vec<f64> = (0..n)
             .map(|i| {
