@@ -20,7 +20,7 @@ from __future__ import annotations
 import copy
 import html
 import inspect
-from typing import Any, Callable, Dict, List, Optional, Sequence, Tuple, Union
+from typing import Any, Callable, Dict, List, Mapping, Optional, Sequence, Tuple, Union
 
 import numpy as np
 
@@ -226,7 +226,7 @@ class CrossValidatedRisk:
         ``PredefinedSplit``), else None.
     """
 
-    def __init__(self, summary: Dict[str, Any], scoring: str, greater_is_better: bool, folds: Optional[np.ndarray]):
+    def __init__(self, summary: Mapping[str, Any], scoring: str, greater_is_better: bool, folds: Optional[np.ndarray]):
         self.estimate = float(summary["estimate"])
         self.std_error = float(summary["std_error"])
         self.unweighted_estimate = float(summary["unweighted_estimate"])
@@ -377,7 +377,7 @@ class MetricEstimate:
     """Result of :func:`weighted_metric`: ``estimate``, ``std_error``, ``lower``, ``upper``,
     ``confidence``, ``method``, ``ess`` (Kish effective sample size), ``n``."""
 
-    def __init__(self, d: Dict[str, Any], metric: str, method: str):
+    def __init__(self, d: Mapping[str, Any], metric: str, method: str):
         self.metric = metric
         self.method = method
         self.estimate = float(d["estimate"])
@@ -508,6 +508,7 @@ def iw_cross_validate(
     """
     w, name, gib, pairs, fold, custom = _prepare(model, X, y, weights, cv, scoring, seed)
     out = _evaluate_folds(model, X, y, w, pairs, name, custom, use_weights=True)
+    summary: Mapping[str, Any]
     if custom is not None:
         summary = _custom_summary(*out)
     else:

@@ -1,9 +1,11 @@
 # Type stub of the compiled module shiftweight._native (crates/shiftweight-py/src/*.rs).
 # Checked against the built module by `make test-python` (python -m mypy.stubtest).
 # Matrices are C-contiguous float64 (the Python layer converts inputs first); results that are
-# documents are JSON strings.
+# documents are JSON strings. Results that are plain dicts of a fixed layout are TypedDicts, so
+# type checkers see their keys; those exist only here (underscore names, as in typeshed), not at
+# runtime, where the values are ordinary dicts.
 
-from typing import Any, Dict, List, Optional, Tuple, final
+from typing import Any, Dict, List, Literal, Optional, Tuple, TypedDict, final
 
 import numpy as np
 import numpy.typing as npt
@@ -23,6 +25,25 @@ def get_threads() -> int: ...
 def _provoke_internal_failure() -> None: ...
 
 # ratio.rs
+class _SelectionRequired(TypedDict):
+    criterion: str  # name of the selection criterion (lower score is better)
+    chosen: Dict[str, float]  # the chosen hyperparameters, including those given by the user
+    # One row per candidate tried, in order: its hyperparameters by name, plus "score" (and for the
+    # automatic choice, "std_error").
+    table: List[Dict[str, float]]
+
+class _Selection(_SelectionRequired, total=False):
+    labels: List[str]  # only when candidates are named estimators (automatic choice): one per table row
+    candidate: str  # only then: the name of the chosen candidate ("uniform" for no correction)
+
+class _FitMeta(TypedDict):
+    n_source: int
+    n_target: int
+    n_features: int
+    seed: int
+    library_version: str
+    feature_names: Optional[List[str]]
+
 @final
 class RatioModel:
     def ratio(self, x: _F64) -> _F64: ...
@@ -37,9 +58,9 @@ class RatioModel:
     @property
     def warnings(self) -> List[str]: ...
     @property
-    def selection(self) -> Dict[str, Any]: ...
+    def selection(self) -> _Selection: ...
     @property
-    def meta(self) -> Dict[str, Any]: ...
+    def meta(self) -> _FitMeta: ...
     def form_json(self) -> str: ...
     def to_json(self) -> str: ...
     @staticmethod
@@ -137,18 +158,54 @@ def fit_weighted_logistic(
 def fit_weighted_ridge(x: _F64, y: _F64, sample_weight: Optional[_F64], l2: float) -> LinearModel: ...
 
 # demo.rs
-def demo_electricity(n_source: int = 2000, n_target: int = 1000, seed: int = 0) -> Dict[str, Any]: ...
+class _DemoData(TypedDict):
+    feature_names: List[str]
+    source: _F64  # n_source x 6
+    y_source: _F64
+    target: _F64  # n_target x 6
+    y_target: _F64
+
+def demo_electricity(n_source: int = 2000, n_target: int = 1000, seed: int = 0) -> _DemoData: ...
 
 # data.rs
 def kfold_assignment(n: int, k: int, seed: int) -> npt.NDArray[np.int64]: ...
 def validate_weights(w: _F64, n: int, name: str) -> None: ...
 
 # metrics.rs
+class _WeightedMean(TypedDict):
+    estimate: float
+    std_error: float
+    ess: float  # Kish effective sample size
+    n: int
+    total_weight: float
+
+class _CrossValidated(TypedDict):
+    estimate: float
+    std_error: float
+    unweighted_estimate: float
+    unweighted_std_error: float
+    per_fold: List[_WeightedMean]
+    per_fold_unweighted: List[float]
+
+_Verdict = Literal["favours_weighting", "favours_no_weighting", "no_clear_difference"]
+
+class _WeightingComparison(TypedDict):
+    weighted: _CrossValidated
+    unweighted: _CrossValidated
+    difference: float
+    difference_std_error: float
+    verdict: _Verdict
+
+class _MetricInterval(_WeightedMean):
+    lower: float
+    upper: float
+    confidence: float
+
 def metric_row_values(metric: str, y_true: _F64, y_pred: _F64) -> _F64: ...
 def metric_properties(metric: str) -> Tuple[bool, bool]: ...
 def cross_validated(
     values: _F64, weights: _F64, fold: npt.NDArray[np.int64], n_folds: int
-) -> Dict[str, Any]: ...
+) -> _CrossValidated: ...
 def fold_average(per_fold: List[float]) -> Tuple[float, float]: ...
 def compare_weighting(
     with_weights: _F64,
@@ -158,13 +215,13 @@ def compare_weighting(
     n_folds: int,
     greater_is_better: bool,
     z: float,
-) -> Dict[str, Any]: ...
+) -> _WeightingComparison: ...
 def compare_weighting_per_fold(
     with_weights: List[float], without_weights: List[float], greater_is_better: bool, z: float
-) -> Tuple[float, float, str]: ...
+) -> Tuple[float, float, _Verdict]: ...
 def metric_interval(
     values: _F64, weights: Optional[_F64], confidence: float, method: str, n_boot: int, seed: int
-) -> Dict[str, Any]: ...
+) -> _MetricInterval: ...
 
 # conformal.rs
 def conformal_intervals(

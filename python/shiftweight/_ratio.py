@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import json
 import warnings
-from typing import Any, Dict, Optional, Sequence
+from typing import TYPE_CHECKING, Any, Dict, List, Optional, Sequence
 
 import numpy as np
 
@@ -45,6 +45,12 @@ def register_kind(kind: str):
 
 class RatioEstimatorBase(ParamsMixin):
     """Shared behaviour of the ratio estimators. Subclasses implement ``_fit_native``."""
+
+    if TYPE_CHECKING:  # declarations for type checkers only (the key layouts live in _native.pyi)
+        model_: _native.RatioModel
+        source_weights_: np.ndarray
+        selection_: _native._Selection
+        warnings_: List[str]
 
     def _fit_native(self, source: np.ndarray, target: np.ndarray, names: Optional[list]) -> Any:
         raise NotImplementedError
