@@ -422,9 +422,7 @@ fn cv_score(
         };
         let a = submatrix(kt, b, &train_t, &cols);
         let h = column_means(ks, b, &train_s, &cols);
-        let Some(sol) = solve_kliep(&a, &h, cfg.tol, cfg.max_iter) else {
-            return None;
-        };
+        let sol = solve_kliep(&a, &h, cfg.tol, cfg.max_iter)?;
         let rt = evaluate(kt, b, &test_t, &cols, &sol.alpha);
         if rt.iter().any(|v| !(*v > 0.0)) {
             return None;
