@@ -3,6 +3,7 @@ set-up on scikit-learn's bundled breast-cancer data), and the NMSE used to score
 
 import numpy as np
 from scipy import stats
+from scipy.stats import norm
 
 
 def nmse(w_hat, w_true):
@@ -55,3 +56,18 @@ def breast_cancer_selection(seed):
     tgt_idx, pool = order[:half], order[half:]
     keep = pool[rng.random(len(pool)) < s_prob[pool]]
     return X[keep], X[tgt_idx], 1.0 / s_prob[keep]
+
+
+def sinc_regression_toy(seed, n_source=150, n_target=5000, noise=0.1):
+    """A misspecified regression under covariate shift: x ~ N(1, 0.5^2) in the source and
+    N(2, 0.25^2) in the target (a toy from the covariate-shift literature, from memory),
+    y = sinc(x) + noise. Returns xs, ys, true source weights, xt, yt, true target weights."""
+    rng = np.random.default_rng(seed)
+    xs = rng.normal(1.0, 0.5, n_source)
+    xt = rng.normal(2.0, 0.25, n_target)
+    ys = np.sinc(xs) + noise * rng.normal(size=n_source)
+    yt = np.sinc(xt) + noise * rng.normal(size=n_target)
+    # reference: scipy.stats.norm.pdf gives the exact density ratio of the two normals
+    ws = norm.pdf(xs, 2.0, 0.25) / norm.pdf(xs, 1.0, 0.5)
+    wt = norm.pdf(xt, 2.0, 0.25) / norm.pdf(xt, 1.0, 0.5)
+    return xs.reshape(-1, 1), ys, ws, xt.reshape(-1, 1), yt, wt

@@ -1,6 +1,9 @@
 """Importance-weighted cross-validation, the weighted-versus-unweighted comparison and weighted
 metrics with intervals."""
 
+import sys
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy import stats
@@ -21,21 +24,12 @@ from sklearn.preprocessing import StandardScaler
 
 import shiftweight as sw
 
+sys.path.insert(0, str(Path(__file__).parent))
+from _shift_cases import sinc_regression_toy as toy  # noqa: E402
+
 
 # The toy set-up of the covariate-shift literature (from memory): a straight line fitted to the
 # curved function sinc(x), source inputs N(1, 0.5^2), target inputs N(2, 0.25^2).
-def toy(seed, n_source=150, n_target=5000, noise=0.1):
-    rng = np.random.default_rng(seed)
-    xs = rng.normal(1.0, 0.5, n_source)
-    xt = rng.normal(2.0, 0.25, n_target)
-    ys = np.sinc(xs) + noise * rng.normal(size=n_source)
-    yt = np.sinc(xt) + noise * rng.normal(size=n_target)
-    # reference: scipy.stats.norm.pdf gives the exact density ratio of the two normals
-    ws = norm.pdf(xs, 2.0, 0.25) / norm.pdf(xs, 1.0, 0.5)
-    wt = norm.pdf(xt, 2.0, 0.25) / norm.pdf(xt, 1.0, 0.5)
-    return xs.reshape(-1, 1), ys, ws, xt.reshape(-1, 1), yt, wt
-
-
 def _cancer():
     X, y = load_breast_cancer(return_X_y=True)  # reference data: Wolberg, Street, Mangasarian (1995)
     return X, y

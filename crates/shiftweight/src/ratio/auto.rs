@@ -31,8 +31,8 @@
 
 use super::classifier::{ClassifierRatio, Features};
 use super::{
-    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, LeastSquaresRatio,
-    RatioEstimator, RatioForm, ScoreRow, Selection,
+    fit_meta, mean_and_std_error, params, standardise_pair, EstimatorKind, FittedRatio,
+    LeastSquaresRatio, RatioEstimator, RatioForm, ScoreRow, Selection,
 };
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
 use crate::error::{Error, Result};
@@ -309,9 +309,7 @@ impl AutoRatio {
             let (mean, std_error) = if error.is_some() {
                 (f64::INFINITY, f64::NAN)
             } else {
-                let mean = per_fold.iter().sum::<f64>() / k as f64;
-                let var = per_fold.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (k - 1) as f64;
-                (mean, (var / k as f64).sqrt())
+                mean_and_std_error(&per_fold)
             };
             out.push(CandidateScore {
                 name: c.name.clone(),

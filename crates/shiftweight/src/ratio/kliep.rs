@@ -55,8 +55,8 @@
 //! (folds + 1) fits per width. Memory O((n_s + n_t) b) for the kernel values of one width.
 
 use super::{
-    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
-    ScoreRow, Selection,
+    fit_meta, mean_and_std_error, params, standardise_pair, EstimatorKind, FittedRatio,
+    RatioEstimator, RatioForm, ScoreRow, Selection,
 };
 use crate::data::{kfold_assignment, validate_pair, MatrixView};
 use crate::error::{Error, Result};
@@ -439,18 +439,6 @@ fn cv_score(
         per_fold.push(-score);
     }
     Some(per_fold)
-}
-
-/// Mean and standard error (sample sd / sqrt(k)) of per-fold scores.
-fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
-    let k = v.len() as f64;
-    let mean = v.iter().sum::<f64>() / k;
-    let var = if v.len() > 1 {
-        v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (k - 1.0)
-    } else {
-        0.0
-    };
-    (mean, (var / k).sqrt())
 }
 
 /// The width chosen from per-width (mean, standard error) CV scores: the widest width whose mean

@@ -58,8 +58,8 @@
 //! total is O(n s^2) time and O(threads * s^2) memory: linear in n, never an n x n matrix.
 
 use super::{
-    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, RatioEstimator, RatioForm,
-    ScoreRow, Selection,
+    fit_meta, mean_and_std_error, params, standardise_pair, EstimatorKind, FittedRatio,
+    RatioEstimator, RatioForm, ScoreRow, Selection,
 };
 use crate::data::{kfold_assignment, validate_pair, MatrixView};
 use crate::error::{Error, Result};
@@ -75,18 +75,6 @@ use rayon::prelude::*;
 const BLOCK_TAG: u64 = 0x6b6d_6d62_6c6b;
 /// Seed tag of the target folds of the held-out selection.
 const FOLD_TAG: u64 = 0x6b6d_6d66_6f6c;
-
-/// Mean and standard error (sample sd / sqrt(k)) of per-fold scores.
-fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
-    let k = v.len() as f64;
-    let mean = v.iter().sum::<f64>() / k;
-    let var = if v.len() > 1 {
-        v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (k - 1.0)
-    } else {
-        0.0
-    };
-    (mean, (var / k).sqrt())
-}
 
 /// KMM configuration. Build with [`KernelMeanMatching::new`] and the setters.
 #[derive(Debug, Clone, PartialEq)]

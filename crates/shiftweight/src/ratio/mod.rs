@@ -471,3 +471,15 @@ pub(crate) fn fit_meta(source: &MatrixView, target: &MatrixView, seed: u64) -> F
 pub(crate) fn params<const N: usize>(pairs: [(&str, f64); N]) -> BTreeMap<String, f64> {
     pairs.iter().map(|(k, v)| (k.to_string(), *v)).collect()
 }
+
+/// Mean and standard error (sample sd / sqrt(k)) of per-fold scores.
+pub(crate) fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
+    let k = v.len() as f64;
+    let mean = v.iter().sum::<f64>() / k;
+    let var = if v.len() > 1 {
+        v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (k - 1.0)
+    } else {
+        0.0
+    };
+    (mean, (var / k).sqrt())
+}
