@@ -2,7 +2,6 @@
 misspecified-regression toy, and agreement with ordinary split conformal under equal weights."""
 
 import math
-
 import sys
 from pathlib import Path
 
