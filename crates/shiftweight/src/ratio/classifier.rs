@@ -336,12 +336,7 @@ impl ClassifierRatio {
                 format!("must be at least 2, got {}", self.folds),
             ));
         }
-        if self.l2_grid.is_empty() || self.l2_grid.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
-            return Err(Error::param(
-                "l2_grid",
-                "must be a non-empty list of finite values > 0",
-            ));
-        }
+        super::check_grid("l2_grid", &self.l2_grid, false)?;
         Ok(())
     }
 }

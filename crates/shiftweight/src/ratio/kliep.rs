@@ -209,17 +209,7 @@ impl KLRatio {
                 format!("must be at least 2, got {}", self.folds),
             ));
         }
-        if self.sigma_multiples.is_empty()
-            || self
-                .sigma_multiples
-                .iter()
-                .any(|v| !(v.is_finite() && *v > 0.0))
-        {
-            return Err(Error::param(
-                "sigma_multiples",
-                "must be a non-empty list of finite values > 0",
-            ));
-        }
+        super::check_grid("sigma_multiples", &self.sigma_multiples, false)?;
         if !(self.tol.is_finite() && self.tol > 0.0) {
             return Err(Error::param(
                 "tol",

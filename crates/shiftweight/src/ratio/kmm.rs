@@ -185,29 +185,11 @@ impl KernelMeanMatching {
                 ));
             }
         }
-        if self.sigma.is_none()
-            && (self.sigma_multiples.is_empty()
-                || self
-                    .sigma_multiples
-                    .iter()
-                    .any(|v| !(v.is_finite() && *v > 0.0)))
-        {
-            return Err(Error::param(
-                "sigma_multiples",
-                "must be a non-empty list of finite values > 0",
-            ));
+        if self.sigma.is_none() {
+            super::check_grid("sigma_multiples", &self.sigma_multiples, false)?;
         }
-        if self.ridge.is_none()
-            && (self.ridge_grid.is_empty()
-                || self
-                    .ridge_grid
-                    .iter()
-                    .any(|v| !(v.is_finite() && *v >= 0.0)))
-        {
-            return Err(Error::param(
-                "ridge_grid",
-                "must be a non-empty list of finite values >= 0",
-            ));
+        if self.ridge.is_none() {
+            super::check_grid("ridge_grid", &self.ridge_grid, true)?;
         }
         if self.folds < 2 {
             return Err(Error::param(

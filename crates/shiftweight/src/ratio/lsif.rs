@@ -145,28 +145,8 @@ impl LeastSquaresRatio {
                 format!("must be in [0, 1), got {}", self.alpha),
             ));
         }
-        if self.sigma_multiples.is_empty()
-            || self
-                .sigma_multiples
-                .iter()
-                .any(|v| !(v.is_finite() && *v > 0.0))
-        {
-            return Err(Error::param(
-                "sigma_multiples",
-                "must be a non-empty list of finite values > 0",
-            ));
-        }
-        if self.lambda_grid.is_empty()
-            || self
-                .lambda_grid
-                .iter()
-                .any(|v| !(v.is_finite() && *v > 0.0))
-        {
-            return Err(Error::param(
-                "lambda_grid",
-                "must be a non-empty list of finite values > 0",
-            ));
-        }
+        super::check_grid("sigma_multiples", &self.sigma_multiples, false)?;
+        super::check_grid("lambda_grid", &self.lambda_grid, false)?;
         if self.max_cv_rows < 2 {
             return Err(Error::param("max_cv_rows", "must be at least 2"));
         }

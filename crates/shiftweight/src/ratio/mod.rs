@@ -483,3 +483,17 @@ pub(crate) fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
     };
     (mean, (var / k).sqrt())
 }
+
+/// Rejects an empty candidate grid or one with a value that is not finite and > 0 (>= 0 when
+/// `allow_zero`), naming the option.
+pub(crate) fn check_grid(name: &str, values: &[f64], allow_zero: bool) -> Result<()> {
+    let ok = |v: &f64| v.is_finite() && (*v > 0.0 || (allow_zero && *v == 0.0));
+    if values.is_empty() || !values.iter().all(ok) {
+        let bound = if allow_zero { ">= 0" } else { "> 0" };
+        return Err(Error::param(
+            name,
+            format!("must be a non-empty list of finite values {bound}"),
+        ));
+    }
+    Ok(())
+}
