@@ -222,16 +222,22 @@ pub fn validate_weights(w: &[f64], n: usize, argument: &str) -> Result<()> {
     Ok(())
 }
 
+/// Rejects fewer than two cross-validation folds, naming `folds`.
+pub(crate) fn check_folds(folds: usize) -> Result<()> {
+    if folds < 2 {
+        return Err(Error::param(
+            "folds",
+            format!("must be at least 2, got {folds}"),
+        ));
+    }
+    Ok(())
+}
+
 /// Assigns each of `n` rows to one of `k` folds of (nearly) equal size in a seeded random order.
 /// Returns the fold index of every row. Errors when k < 2 or k > n.
 pub fn kfold_assignment(n: usize, k: usize, seed: u64) -> Result<Vec<usize>> {
     use rand::seq::SliceRandom;
-    if k < 2 {
-        return Err(Error::param(
-            "folds",
-            format!("must be at least 2, got {k}"),
-        ));
-    }
+    check_folds(k)?;
     if k > n {
         return Err(Error::param(
             "folds",

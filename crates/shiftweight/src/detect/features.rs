@@ -186,12 +186,7 @@ impl FeatureShift {
         target: MatrixView,
         names: Option<&[String]>,
     ) -> Result<FeatureShiftTable> {
-        if self.folds < 2 {
-            return Err(Error::param(
-                "folds",
-                format!("must be at least 2, got {}", self.folds),
-            ));
-        }
+        crate::data::check_folds(self.folds)?;
         if !(self.l2.is_finite() && self.l2 >= 0.0) {
             return Err(Error::param(
                 "l2",

@@ -219,12 +219,7 @@ impl AutoRatio {
 
     /// Rejects out-of-range settings with an error naming the parameter.
     pub fn check(&self) -> Result<()> {
-        if self.folds < 2 {
-            return Err(Error::param(
-                "folds",
-                format!("must be at least 2, got {}", self.folds),
-            ));
-        }
+        crate::data::check_folds(self.folds)?;
         if !(self.se_margin.is_finite() && self.se_margin >= 0.0) {
             return Err(Error::param(
                 "se_margin",

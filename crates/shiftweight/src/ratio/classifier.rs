@@ -330,12 +330,7 @@ impl ClassifierRatio {
         if let Some(s) = self.fourier_sigma {
             kernel::check_sigma("fourier_sigma", s)?;
         }
-        if self.folds < 2 {
-            return Err(Error::param(
-                "folds",
-                format!("must be at least 2, got {}", self.folds),
-            ));
-        }
+        crate::data::check_folds(self.folds)?;
         super::check_grid("l2_grid", &self.l2_grid, false)?;
         Ok(())
     }

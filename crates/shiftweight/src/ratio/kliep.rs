@@ -203,12 +203,7 @@ impl KLRatio {
         if self.n_basis == 0 {
             return Err(Error::param("n_basis", "must be at least 1"));
         }
-        if self.folds < 2 {
-            return Err(Error::param(
-                "folds",
-                format!("must be at least 2, got {}", self.folds),
-            ));
-        }
+        crate::data::check_folds(self.folds)?;
         super::check_grid("sigma_multiples", &self.sigma_multiples, false)?;
         if !(self.tol.is_finite() && self.tol > 0.0) {
             return Err(Error::param(

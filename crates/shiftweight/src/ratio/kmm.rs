@@ -191,12 +191,7 @@ impl KernelMeanMatching {
         if self.ridge.is_none() {
             super::check_grid("ridge_grid", &self.ridge_grid, true)?;
         }
-        if self.folds < 2 {
-            return Err(Error::param(
-                "folds",
-                format!("must be at least 2, got {}", self.folds),
-            ));
-        }
+        crate::data::check_folds(self.folds)?;
         if !(self.bound.is_finite() && self.bound > 0.0) {
             return Err(Error::param(
                 "bound",
