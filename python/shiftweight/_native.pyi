@@ -29,7 +29,8 @@ class _SelectionRequired(TypedDict):
     criterion: str  # name of the selection criterion (lower score is better)
     chosen: Dict[str, float]  # the chosen hyperparameters, including those given by the user
     # One row per candidate tried, in order: its hyperparameters by name, plus "score" (and for the
-    # automatic choice, "std_error").
+    # automatic choice, "std_error", "pareto_k" when it could be estimated, and "excluded" = 1.0
+    # for candidates the heavy-tail guard kept from being chosen).
     table: List[Dict[str, float]]
 
 class _Selection(_SelectionRequired, total=False):

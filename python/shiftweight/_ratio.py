@@ -564,9 +564,17 @@ class AutoRatio(RatioEstimatorBase):
     folds of both samples (the candidate is fitted on the other folds, choosing its own
     hyperparameters there), and averaged over folds. J differs from the squared error to the true
     ratio by a constant (Kanamori, Hido, Sugiyama 2009), so lower is better. Uniform weights
-    (w = 1, J = -0.5) are always a candidate and are kept unless another candidate is better by
-    more than ``se_margin`` standard errors; then ``warnings_`` says that no correction was chosen.
-    The winner is refitted on all rows.
+    (w = 1, J = -0.5) are always a candidate. A candidate is eligible only if its mean beats
+    uniform's by more than ``se_margin`` of its standard errors, and the eligible one with the
+    lowest mean wins; with none eligible, uniform weights are kept and ``warnings_`` says that no
+    correction was chosen. The winner is refitted on all rows.
+
+    Heavy-tail guard: J averages w^2 over the held-out source rows, and weights that explode where
+    source rows are rare (a linear classifier extrapolating past the source) make it come out far
+    too low, because the few held-out rows miss the tail. So each candidate's held-out source
+    weights, pooled over folds, get a Pareto tail fit; a candidate with k >= 1 (a tail with no
+    finite mean, which no density ratio has) is listed with its score but not chosen, and
+    ``warnings_`` says so.
 
     KMM cannot be a candidate: it is transductive (no weights for held-out rows, so no held-out
     score).
@@ -582,12 +590,14 @@ class AutoRatio(RatioEstimatorBase):
     seed : int
         Seed of the folds and of the default candidates.
     se_margin : float
-        Standard errors by which a candidate must beat uniform weights.
+        Standard errors by which a candidate must beat uniform weights to be eligible.
 
     Attributes
     ----------
     chosen_ : name of the chosen candidate ("uniform" for no correction); ``scores_``: list of
-    dicts (name, score, std_error), uniform first; ``chosen_estimator_``: the refitted winner as
+    dicts (name, score, std_error, pareto_k, excluded), uniform first, where ``pareto_k`` is the
+    tail shape of the held-out source weights (None when it cannot be estimated, e.g. bounded
+    weights) and ``excluded`` is True for candidates the heavy-tail guard kept from being chosen; ``chosen_estimator_``: the refitted winner as
     its own class (None for uniform); ``source_weights_``: the winner's source weights.
 
     Examples
@@ -639,7 +649,14 @@ class AutoRatio(RatioEstimatorBase):
         sel = model.selection
         self.chosen_ = sel["candidate"]
         self.scores_ = [
-            {"name": n, "score": r["score"], "std_error": r["std_error"]} for n, r in zip(sel["labels"], sel["table"])
+            {
+                "name": n,
+                "score": r["score"],
+                "std_error": r["std_error"],
+                "pareto_k": r.get("pareto_k"),
+                "excluded": bool(r.get("excluded", 0.0)),
+            }
+            for n, r in zip(sel["labels"], sel["table"])
         ]
         cls = _KIND_TO_CLASS.get(model.kind)
         if cls is None:
@@ -650,11 +667,13 @@ class AutoRatio(RatioEstimatorBase):
             self.chosen_estimator_ = est
 
     def score_table(self):
-        """The score table as a pandas DataFrame (needs pandas), best first."""
+        """The score table as a pandas DataFrame (needs pandas): candidates that may be chosen first,
+        each group by score (best first); the heavy-tail-excluded ones last."""
         import pandas as pd
 
         self._check_fitted()
-        return pd.DataFrame(self.scores_).sort_values("score", kind="stable").reset_index(drop=True)
+        table = pd.DataFrame(self.scores_)
+        return table.sort_values(["excluded", "score"], kind="stable").reset_index(drop=True)
 
 
 def ratio_from_probabilities(p_target: Any, n_source: int, n_target: int, clip: float = 1e-6) -> np.ndarray:

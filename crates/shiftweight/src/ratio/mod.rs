@@ -103,10 +103,81 @@ pub enum RatioForm {
 /// One row of a hyperparameter-selection table.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ScoreRow {
-    /// Hyperparameter values of this candidate.
+    /// Hyperparameter values of this candidate (and facts such as a standard error).
+    #[serde(with = "nonfinite::map")]
     pub params: BTreeMap<String, f64>,
-    /// Its score (lower is better).
+    /// Its score (lower is better; infinite for a candidate that failed).
+    #[serde(with = "nonfinite::value")]
     pub score: f64,
+}
+
+/// JSON has no infinities or NaN: in score tables they are written as the strings "inf", "-inf"
+/// and "nan" and read back as the same values (a failed candidate scores +inf).
+mod nonfinite {
+    use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+    #[derive(Serialize, Deserialize)]
+    #[serde(untagged)]
+    enum Num {
+        Finite(f64),
+        Text(String),
+    }
+
+    fn to_num(v: f64) -> Num {
+        if v.is_finite() {
+            Num::Finite(v)
+        } else if v.is_nan() {
+            Num::Text("nan".into())
+        } else if v > 0.0 {
+            Num::Text("inf".into())
+        } else {
+            Num::Text("-inf".into())
+        }
+    }
+
+    fn from_num<E: serde::de::Error>(n: Num) -> Result<f64, E> {
+        match n {
+            Num::Finite(v) => Ok(v),
+            Num::Text(t) => match t.as_str() {
+                "inf" => Ok(f64::INFINITY),
+                "-inf" => Ok(f64::NEG_INFINITY),
+                "nan" => Ok(f64::NAN),
+                other => Err(E::custom(format!(
+                    "expected a number, \"inf\", \"-inf\" or \"nan\", got {other:?}"
+                ))),
+            },
+        }
+    }
+
+    pub mod value {
+        use super::*;
+        pub fn serialize<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {
+            to_num(*v).serialize(s)
+        }
+        pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+            from_num(Num::deserialize(d)?)
+        }
+    }
+
+    pub mod map {
+        use super::*;
+        use std::collections::BTreeMap;
+        pub fn serialize<S: Serializer>(
+            m: &BTreeMap<String, f64>,
+            s: S,
+        ) -> Result<S::Ok, S::Error> {
+            let out: BTreeMap<&String, Num> = m.iter().map(|(k, v)| (k, to_num(*v))).collect();
+            out.serialize(s)
+        }
+        pub fn deserialize<'de, D: Deserializer<'de>>(
+            d: D,
+        ) -> Result<BTreeMap<String, f64>, D::Error> {
+            BTreeMap::<String, Num>::deserialize(d)?
+                .into_iter()
+                .map(|(k, v)| from_num(v).map(|v| (k, v)))
+                .collect()
+        }
+    }
 }
 
 /// What was chosen from the data, by which criterion, and the scores that chose it.
