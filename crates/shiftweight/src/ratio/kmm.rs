@@ -13,7 +13,11 @@
 //! ```
 //!
 //! (with c = 0, the squared maximum mean discrepancy between the weighted source and the target,
-//! up to the factor 1/n^2 and a constant) with the interior-point solver clarabel.
+//! up to the factor 1/n^2 and a constant) with the interior-point solver clarabel, through its
+//! supernodal sparse LDL back end built on faer (the `faer-sparse` feature): the kernel block of
+//! the KKT system is dense, and the supernodal factorisation runs it through dense kernels. On a
+//! 2,000 + 2,000 x 10 problem it solved the same QP in 13.0 s against 68.8 s for clarabel's
+//! default QDLDL back end (dev build with optimised dependencies, both under load).
 //!
 //! Ridge. The exact matching (c = 0) fits the sampling noise of the target's kernel mean: it
 //! drives many weights to 0 and was measured worse than uniform weights (5-D mean shift, n = 300:
