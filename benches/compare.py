@@ -327,47 +327,126 @@ def workload_scoring(args):
 # ----------------------------------------------------------------------------------------------
 # KLIEP with likelihood cross-validation (Sugiyama et al. 2008, AISM 60)
 # ----------------------------------------------------------------------------------------------
+#
+# Both sides run the same computation (the defaults of sw.KLRatio):
+# - problem: maximise mean_t log(K_t alpha) s.t. mean_s K_s alpha = 1, alpha >= 0 (Sugiyama et al.
+#   2008, eq. 5), Gaussian kernels at the model's centres, on the model's standardised features;
+# - solver: the multiplicative EM update p_l <- p_l g_l in p = h * alpha (Cover 1984, IEEE Trans.
+#   Inf. Theory 30; the EM algorithm for mixture weights), started at the centre of the simplex,
+#   with squared extrapolation (SQUAREM, Varadhan & Roland 2008, Scand. J. Statist. 35, scheme S3:
+#   step length s = min(-|r| / |v|, -1), jump kept only if non-negative and not lowering the
+#   objective, else the plain second EM step);
+# - stopping rule: the certified gap bound log(max_l g_l) <= tol = 1e-6 (Cover 1984), or
+#   10,000 EM steps;
+# - width selection: the model's width grid (read from its CV table), 5-fold likelihood CV holding
+#   out source AND target rows (the default `source_and_target` variant), with the SAME fold
+#   assignment (shiftweight's seeded kfold_assignment, read through the extension, with the seeds
+#   KLRatio uses), the constraint fitted on training-fold source rows, centres whose target row is
+#   held out dropped in that fold, held-out score mean_t log r(x_t) - log mean_s r(x_s), and the
+#   one-standard-error rule (widest width within 1 SE of the best mean);
+# - final fit at the chosen width on every row.
+# Each fit is solved on its own here (two matrix-vector products per pass, numpy/BLAS);
+# shiftweight sweeps the kernel matrix once per pass and serves the five folds of a width in the
+# same sweep. The iterates, number of passes and stopping points are the same on both sides.
 
-def kliep_solve(a, bvec, iters=100, steps=(1e3, 1e2, 1e1, 1.0, 1e-1, 1e-2, 1e-3)):
-    """Projected gradient ascent of mean log(A alpha) subject to bvec' alpha = 1, alpha >= 0
-    (Sugiyama et al. 2008, Fig. 1): gradient step, projection on the constraint, clipping,
-    renormalisation; the step shrinks when the objective stops improving."""
-    alpha = np.ones(a.shape[1])
-    alpha /= bvec @ alpha
-    score = np.mean(np.log(a @ alpha))
-    bb = bvec @ bvec
-    for eps in steps:
-        for _ in range(iters):
-            new = alpha + eps * (a.T @ (1.0 / (a @ alpha)))
-            new += (1.0 - bvec @ new) * bvec / bb
-            new = np.maximum(new, 0.0)
-            new /= bvec @ new
-            new_score = np.mean(np.log(a @ new))
-            if not new_score > score:
-                break
-            alpha, score = new, new_score
-    return alpha
+KLIEP_TOL, KLIEP_MAX_ITER, KLIEP_FOLDS, KLIEP_SE_MARGIN = 1e-6, 10_000, 5, 1.0
+# Seed tags of KLRatio's fold assignments (crates/shiftweight/src/ratio/kliep.rs).
+KLIEP_TARGET_FOLD_TAG, KLIEP_SOURCE_FOLD_TAG = 0x6B6C_6965_7074, 0x6B6C_6965_7073
 
 
-def ref_kliep(s, t, centres, sigmas, folds=5, seed=0):
-    mean, scale = pooled_standardiser(s, t)
-    zs, zt = (s - mean) / scale, (t - mean) / scale
-    fold = np.random.default_rng(seed).permutation(len(zt)) % folds
-    scores = []
+def kliep_solve(a, h, tol=KLIEP_TOL, max_iter=KLIEP_MAX_ITER):
+    """EM with SQUAREM for max mean log(a alpha) s.t. h' alpha = 1, alpha >= 0; columns with
+    h_l = 0 keep alpha_l = 0. Returns (alpha, objective, gap bound, EM steps) or None when some
+    row has no kernel mass."""
+    active = h > 0
+    a, hh = a[:, active], h[active]
+    n = a.shape[0]
+
+    def evaluate(al):
+        u = a @ al
+        if not (np.all(u > 0) and np.all(np.isfinite(u))):
+            return None
+        m = (a.T @ (1.0 / u)) / n / hh
+        return float(np.mean(np.log(u))), m, max(float(np.log(m.max())), 0.0)
+
+    alpha = 1.0 / (len(hh) * hh)
+    it = 0
+    r = evaluate(alpha)
+    if r is None:
+        return None
+    f0, m0, gap0 = r
+    while True:
+        if gap0 <= tol or it >= max_iter:
+            break
+        a1 = alpha * m0
+        it += 1
+        r = evaluate(a1)
+        if r is None:
+            return None
+        f1, m1, gap1 = r
+        if gap1 <= tol or it >= max_iter:
+            alpha, f0, m0, gap0 = a1, f1, m1, gap1
+            continue
+        a2 = a1 * m1
+        it += 1
+        rr = a1 - alpha
+        v = a2 - a1 - rr
+        nr, nv = np.linalg.norm(rr), np.linalg.norm(v)
+        nxt = a2
+        if nv > 0 and np.isfinite(nr) and np.isfinite(nv):
+            s = min(-nr / nv, -1.0)
+            ext = alpha - 2.0 * s * rr + s * s * v
+            if s < -1.0 and np.all(ext >= 0) and np.all(np.isfinite(ext)):
+                nxt = ext
+        r = evaluate(nxt)
+        if r is not None and r[0] >= f1:
+            alpha, (f0, m0, gap0) = nxt, r
+        else:
+            r = evaluate(a2)
+            if r is None:
+                return None
+            alpha, (f0, m0, gap0) = a2, r
+    full = np.zeros(len(h))
+    full[active] = alpha
+    return full, f0, gap0, it
+
+
+def ref_kliep(zs, zt, centres, centre_rows, sigmas, fold_t, fold_s, folds=KLIEP_FOLDS,
+              se_margin=KLIEP_SE_MARGIN):
+    """KLIEP with source-and-target likelihood CV and the one-standard-error rule, on standardised
+    rows; returns ((sigma, alpha), per-width (mean, se) of minus the held-out log-likelihood)."""
+    c_sq = np.einsum("ij,ij->i", centres, centres)
+    stats = []
     for sigma in sigmas:
-        ks = gauss_kernel(zs, centres, sigma)
-        kt = gauss_kernel(zt, centres, sigma)
-        bvec = ks.mean(axis=0)
-        ll = []
+        kt = gauss_kernel(zt, centres, sigma, c_sq)
+        ks = gauss_kernel(zs, centres, sigma, c_sq)
+        per_fold = []
         for k in range(folds):
-            alpha = kliep_solve(kt[fold != k], bvec)
-            ll.append(np.mean(np.log(np.maximum(kt[fold == k] @ alpha, 1e-300))))
-        scores.append(float(np.mean(ll)))
-    sigma = sigmas[int(np.argmax(scores))]
-    kt = gauss_kernel(zt, centres, sigma)
-    ks = gauss_kernel(zs, centres, sigma)
-    alpha = kliep_solve(kt, ks.mean(axis=0))
-    return (mean, scale, sigma, alpha), scores
+            h = ks[fold_s != k].mean(axis=0)
+            h[fold_t[centre_rows] == k] = 0.0
+            sol = kliep_solve(kt[fold_t != k], h)
+            if sol is None:
+                per_fold = None
+                break
+            alpha = sol[0]
+            rt = kt[fold_t == k] @ alpha
+            mean_s = float(np.mean(ks[fold_s == k] @ alpha))
+            if not (np.all(rt > 0) and mean_s > 0 and np.isfinite(mean_s)):
+                per_fold = None
+                break
+            per_fold.append(-(np.mean(np.log(rt)) - np.log(mean_s)))
+        if per_fold is None:
+            stats.append((np.inf, np.nan))
+        else:
+            v = np.asarray(per_fold)
+            stats.append((float(v.mean()), float(v.std(ddof=1) / np.sqrt(len(v)))))
+    best = min(range(len(sigmas)), key=lambda i: stats[i][0])
+    limit = stats[best][0] + se_margin * stats[best][1]
+    chosen = max((i for i in range(len(sigmas)) if stats[i][0] <= limit), key=lambda i: sigmas[i])
+    sigma = sigmas[chosen]
+    kt = gauss_kernel(zt, centres, sigma, c_sq)
+    h = gauss_kernel(zs, centres, sigma, c_sq).mean(axis=0)
+    return (sigma, kliep_solve(kt, h)[0]), stats
 
 
 def workload_kliep(args):
@@ -375,35 +454,49 @@ def workload_kliep(args):
     s, t = gaussian_pair(n, n, d, args.delta, seed=4)
     x_eval, _ = gaussian_pair(20_000, 1, d, 0.0, seed=9)
     truth = true_ratio(x_eval, args.delta)
-    mult = (0.25, 0.5, 1.0, 2.0, 4.0)
-    if missing("KLRatio"):
-        if not args.check_references:
-            print("  kliep_cv: skipped, sw.KLRatio is not in this build")
-            return
-        mean, scale = pooled_standardiser(s, t)
-        zt = (t - mean) / scale
-        centres = zt[np.sort(np.random.default_rng(0).choice(n, min(args.basis, n), replace=False))]
-        med = median_distance(np.vstack([(s - mean) / scale, zt]), 0)
-        tr, (model, _) = timed(lambda: ref_kliep(s, t, centres, [m * med for m in mult]), args.repeats)
-        w_ref = score_kernel_expansion(x_eval, model[0], model[1], centres, model[2], model[3])
-        record("kliep_cv (reference only)", f"{n}+{n}x{d}, b={len(centres)}, 5 widths, 5 folds",
-               [], tr, "n/a", f"NMSE {nmse(w_ref, truth):.4f}")
+    if missing("KLRatio", "_native"):
+        print("  kliep_cv: skipped, sw.KLRatio is not in this build")
         return
+    seed = 0
 
-    # shiftweight side: public name from DESIGN.md (estimator added on another branch)
     def run_sw():
-        return sw.KLRatio(n_basis=args.basis, seed=0).fit(s, t)
+        return sw.KLRatio(n_basis=args.basis, seed=seed).fit(s, t)
 
+    # The first shiftweight fit is timed as repeat 1; its model gives centres, standardiser, grid.
+    t0 = time.perf_counter()
     est = run_sw()
+    ts = [time.perf_counter() - t0]
     doc = model_doc(est)
     centres = centres_of(doc)
-    sigmas = sorted({r["sigma"] for r in est.selection_["table"] if "sigma" in r}) or [doc["form"]["sigma"]]
-    ts, tr, est, (model, _) = alternate(run_sw, lambda: ref_kliep(s, t, centres, sigmas), args.repeats)
+    sigmas = [r["sigma"] for r in est.selection_["table"]]
+    zs, zt = standardise_like(doc, s), standardise_like(doc, t)
+    # Target rows the centres were drawn from (nearest standardised row; distance ~0).
+    d2 = np.einsum("ij,ij->i", zt, zt)[None, :] - 2.0 * centres @ zt.T
+    centre_rows = np.argmin(d2, axis=1)
+    assert np.allclose(zt[centre_rows], centres, rtol=0, atol=1e-9)
+    native = sw._native
+    fold_t = np.asarray(native.kfold_assignment(n, KLIEP_FOLDS, seed ^ KLIEP_TARGET_FOLD_TAG))
+    fold_s = np.asarray(native.kfold_assignment(n, KLIEP_FOLDS, seed ^ KLIEP_SOURCE_FOLD_TAG))
+
+    def run_ref():
+        return ref_kliep(zs, zt, centres, centre_rows, sigmas, fold_t, fold_s)
+
+    t0 = time.perf_counter()
+    model, stats = run_ref()
+    tr = [time.perf_counter() - t0]
+    if args.repeats > 1:
+        ts2, tr2, est, (model, stats) = alternate(run_sw, run_ref, args.repeats - 1)
+        ts, tr = ts + ts2, tr + tr2
     w_sw = est.ratio(x_eval)
-    w_ref = score_kernel_expansion(x_eval, model[0], model[1], centres, model[2], model[3])
+    mean, scale = np.asarray(doc["standardizer"]["mean"]), np.asarray(doc["standardizer"]["scale"])
+    w_ref = score_kernel_expansion(x_eval, mean, scale, centres, model[0], model[1])
+    cv_sw = np.array([r["score"] for r in est.selection_["table"]])
+    cv_ref = np.array([m for m, _ in stats])
     record("kliep_cv", f"{n}+{n}x{d}, b={len(centres)}, {len(sigmas)} widths, 5 folds", ts, tr,
            f"NMSE {nmse(w_sw, truth):.4f}", f"NMSE {nmse(w_ref, truth):.4f}",
-           f"chosen sigma sw {doc['form']['sigma']:.3g} ref {model[2]:.3g}; folds: own seeded assignment")
+           f"chosen sigma sw {est.sigma_:.4g} ref {model[0]:.4g}; same folds; "
+           f"CV table max rel diff {rel_diff(cv_sw, cv_ref):.1e}; "
+           f"final alpha max rel diff {rel_diff(doc['form']['coef'], model[1]):.1e}")
 
 
 # ----------------------------------------------------------------------------------------------

@@ -55,7 +55,10 @@
 //! widths). The table records, per width, minus the mean held-out log-likelihood (lower is better).
 //!
 //! Complexity: O((n_s + n_t) b d) per width for kernel values, O(n_t b) per ascent step, and
-//! (folds + 1) fits per width. Memory O((n_s + n_t) b) for the kernel values of one width.
+//! (folds + 1) fits per width. The `folds` fits of a width run in lockstep and share one sweep of
+//! the kernel matrix per step (each row is read once and serves every fold it trains), so the
+//! memory traffic of a CV step is that of one fit. Memory O((n_s + n_t) b) for the kernel values
+//! of one width.
 
 use super::{
     fit_meta, mean_and_std_error, params, standardise_pair, EstimatorKind, FittedRatio,
@@ -239,138 +242,290 @@ pub(crate) struct KliepSolution {
 
 /// Maximises 1/n sum_t log (A alpha)_t subject to h' alpha = 1, alpha >= 0, where `a` is the
 /// row-major n x b target kernel matrix and `h` the mean source kernel vector (see the module doc
-/// for the method and its stopping rule). Columns with h_l = 0 (no source mass near the centre)
-/// keep alpha_l = 0. Returns `None` when some target row has no kernel mass at all (every
-/// k(x_t, c_l) underflows to 0), so that the objective is -infinity for every alpha.
-pub(crate) fn solve_kliep(
+/// for the method and its stopping rule), for several such problems at once.
+///
+/// The problems share the kernel matrix `a` (row-major, n x b) and are solved in lockstep,
+/// with one pass over `a` per round serving every unfinished problem. Problem k is
+/// `(h_k, skip_k)`: its rows are those whose label in `row_fold` differs from `skip_k` (every row
+/// when `skip_k` or `row_fold` is `None`), its columns those with h_kl > 0 (the others keep
+/// alpha_l = 0, which is the same problem as dropping them). Each problem follows exactly the
+/// iteration of a solve on its own (same iterates up to the order of floating-point sums); only
+/// the reads of `a` are shared, so a round costs one sweep of memory instead of one per problem.
+/// An entry is `None` when some row of that problem has no kernel mass at all (every
+/// k(x_t, c_l) underflows to 0), so that its objective is -infinity for every alpha.
+pub(crate) fn solve_kliep_batch(
     a: &[f64],
-    h: &[f64],
+    b: usize,
+    row_fold: Option<&[usize]>,
+    problems: &[(Vec<f64>, Option<usize>)],
     tol: f64,
     max_iter: usize,
-) -> Option<KliepSolution> {
-    let b = h.len();
+) -> Vec<Option<KliepSolution>> {
     let n = a.len() / b.max(1);
-    if n == 0 || b == 0 {
-        return None;
-    }
-    let active: Vec<bool> = h.iter().map(|v| *v > 0.0 && v.is_finite()).collect();
-    let n_active = active.iter().filter(|x| **x).count();
-    if n_active == 0 {
-        return None;
-    }
-    // Start at the centre of the simplex in p = h * alpha.
-    let mut alpha: Vec<f64> = (0..b)
-        .map(|l| {
-            if active[l] {
-                1.0 / (n_active as f64 * h[l])
-            } else {
-                0.0
-            }
+    let in_problem = |t: usize, skip: Option<usize>| match (row_fold, skip) {
+        (Some(rf), Some(s)) => rf[t] != s,
+        _ => true,
+    };
+    let mut states: Vec<Squarem> = problems
+        .iter()
+        .map(|(h, skip)| {
+            let rows = (0..n).filter(|&t| in_problem(t, *skip)).count();
+            Squarem::new(h, rows)
         })
         .collect();
-    let nf = n as f64;
-    // One pass over the rows at `al`: the objective f and the EM multipliers g_l (the gradient in
-    // p; sum_l p_l g_l = 1), or None when some target row has no kernel mass.
-    let pass = |al: &[f64]| -> Option<(f64, Vec<f64>, f64)> {
+    loop {
+        let live: Vec<usize> = (0..states.len())
+            .filter(|&k| states[k].result.is_none())
+            .collect();
+        if live.is_empty() {
+            break;
+        }
+        let points: Vec<&[f64]> = live.iter().map(|&k| states[k].point.as_slice()).collect();
+        let skips: Vec<Option<usize>> = live.iter().map(|&k| problems[k].1).collect();
+        let m = live.len();
+        // Per live problem: sum of log u_t, sum of row_t / u_t, and "some row has u_t <= 0".
         let (obj, grad, dead) = par::reduce_chunks(
             n,
-            (0.0f64, vec![0.0f64; b], false),
+            (vec![0.0f64; m], vec![0.0f64; m * b], vec![false; m]),
             |start, end| {
-                let mut g = vec![0.0; b];
-                let mut o = 0.0;
-                let mut dead = false;
-                for t in start..end {
-                    let row = &a[t * b..(t + 1) * b];
-                    let u: f64 = row.iter().zip(al).map(|(x, y)| x * y).sum();
-                    if u <= 0.0 || !u.is_finite() {
-                        dead = true;
-                        continue;
+                kernel::with_wide_simd(|| {
+                    let mut o = vec![0.0f64; m];
+                    let mut g = vec![0.0f64; m * b];
+                    let mut dd = vec![false; m];
+                    for t in start..end {
+                        let row = &a[t * b..(t + 1) * b];
+                        for k in 0..m {
+                            if !in_problem(t, skips[k]) {
+                                continue;
+                            }
+                            let u = dot(row, points[k]);
+                            if u <= 0.0 || !u.is_finite() {
+                                dd[k] = true;
+                                continue;
+                            }
+                            o[k] += u.ln();
+                            let inv = 1.0 / u;
+                            for (gl, x) in g[k * b..(k + 1) * b].iter_mut().zip(row) {
+                                *gl += x * inv;
+                            }
+                        }
                     }
-                    o += u.ln();
-                    let inv = 1.0 / u;
-                    for (gl, x) in g.iter_mut().zip(row) {
-                        *gl += x * inv;
-                    }
-                }
-                (o, g, dead)
+                    (o, g, dd)
+                })
             },
             |acc, p| {
-                acc.0 += p.0;
+                par::add_into(&mut acc.0, &p.0);
                 par::add_into(&mut acc.1, &p.1);
-                acc.2 |= p.2;
+                for (x, y) in acc.2.iter_mut().zip(&p.2) {
+                    *x |= *y;
+                }
             },
         );
-        if dead {
-            return None;
+        for (j, &k) in live.iter().enumerate() {
+            let out = if dead[j] {
+                None
+            } else {
+                Some(states[k].finish_pass(obj[j], &grad[j * b..(j + 1) * b], &problems[k].0))
+            };
+            states[k].receive(out, tol, max_iter);
         }
+    }
+    states.into_iter().map(|s| s.result.flatten()).collect()
+}
+
+/// Dot product with eight independent partial sums, so that the loop vectorises (a single
+/// running sum is a chain of dependent additions that the compiler may not reorder).
+#[inline(always)]
+fn dot(x: &[f64], y: &[f64]) -> f64 {
+    let mut acc = [0.0f64; 8];
+    let (xc, yc) = (x.chunks_exact(8), y.chunks_exact(8));
+    let (xr, yr) = (xc.remainder(), yc.remainder());
+    for (p, q) in xc.zip(yc) {
+        for i in 0..8 {
+            acc[i] += p[i] * q[i];
+        }
+    }
+    let mut s = ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7]));
+    for (p, q) in xr.iter().zip(yr) {
+        s += p * q;
+    }
+    s
+}
+
+/// Where a [`Squarem`] is in its cycle, i.e. which point the next pass evaluates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Stage {
+    /// The starting point.
+    Start,
+    /// The first EM step a1 from the current point.
+    First,
+    /// The extrapolated point (or a2 when the extrapolation was not usable).
+    Extrapolated,
+    /// The second EM step a2, after the extrapolation lowered the objective.
+    Second,
+}
+
+/// The EM iteration with squared extrapolation (SQUAREM, Varadhan & Roland 2008) for one KLIEP
+/// problem, written as a state machine driven by passes over the rows: `point` is where the next
+/// pass must be evaluated, `receive` takes its outcome (objective, EM multipliers, gap bound, or
+/// `None` when some row had no kernel mass there) and moves on.
+struct Squarem {
+    active: Vec<bool>,
+    rows: f64,
+    alpha: Vec<f64>,
+    f0: f64,
+    m0: Vec<f64>,
+    gap0: f64,
+    f1: f64,
+    a2: Vec<f64>,
+    point: Vec<f64>,
+    stage: Stage,
+    iterations: usize,
+    /// `Some` once finished: the solution, or `None` when no row set or column set is usable.
+    result: Option<Option<KliepSolution>>,
+}
+
+impl Squarem {
+    /// Starts at the centre of the simplex in p = h * alpha.
+    fn new(h: &[f64], rows: usize) -> Self {
+        let active: Vec<bool> = h.iter().map(|v| *v > 0.0 && v.is_finite()).collect();
+        let n_active = active.iter().filter(|x| **x).count();
+        let alpha: Vec<f64> = (0..h.len())
+            .map(|l| {
+                if active[l] {
+                    1.0 / (n_active as f64 * h[l])
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        Self {
+            active,
+            rows: rows as f64,
+            point: alpha.clone(),
+            alpha,
+            f0: f64::NEG_INFINITY,
+            m0: Vec::new(),
+            gap0: f64::INFINITY,
+            f1: f64::NEG_INFINITY,
+            a2: Vec::new(),
+            stage: Stage::Start,
+            iterations: 0,
+            result: if n_active == 0 || rows == 0 || h.is_empty() {
+                Some(None)
+            } else {
+                None
+            },
+        }
+    }
+
+    /// Objective, EM multipliers g_l (the gradient in p; sum_l p_l g_l = 1) and the certified
+    /// gap bound log(max_l g_l) from the row sums of one pass.
+    fn finish_pass(&self, obj: f64, grad: &[f64], h: &[f64]) -> (f64, Vec<f64>, f64) {
         let mut gmax = 0.0f64;
-        let mut mult = vec![0.0; b];
-        for l in 0..b {
-            if active[l] {
-                mult[l] = grad[l] / nf / h[l];
+        let mut mult = vec![0.0; grad.len()];
+        for l in 0..grad.len() {
+            if self.active[l] {
+                mult[l] = grad[l] / self.rows / h[l];
                 gmax = gmax.max(mult[l]);
             }
         }
-        Some((obj / nf, mult, gmax.ln().max(0.0)))
-    };
-    let step = |al: &[f64], mult: &[f64]| -> Vec<f64> {
+        (obj / self.rows, mult, gmax.ln().max(0.0))
+    }
+
+    fn step(al: &[f64], mult: &[f64]) -> Vec<f64> {
         al.iter().zip(mult).map(|(x, m)| x * m).collect()
-    };
-    let mut iterations = 0;
-    let (mut f0, mut m0, mut gap0) = pass(&alpha)?;
-    loop {
-        if gap0 <= tol || iterations >= max_iter {
-            return Some(KliepSolution {
-                alpha,
-                objective: f0,
-                gap: gap0,
-                iterations,
-            });
+    }
+
+    /// At the current point (objective, multipliers and gap known): stop, or take the first EM
+    /// step of the next cycle.
+    fn settle(&mut self, tol: f64, max_iter: usize) {
+        if self.gap0 <= tol || self.iterations >= max_iter {
+            self.result = Some(Some(KliepSolution {
+                alpha: std::mem::take(&mut self.alpha),
+                objective: self.f0,
+                gap: self.gap0,
+                iterations: self.iterations,
+            }));
+            return;
         }
-        // Two EM steps, then a squared extrapolation along them (SQUAREM, Varadhan & Roland
-        // 2008, Scand. J. Statist. 35), kept only if it stays feasible and does not lower f.
-        let a1 = step(&alpha, &m0);
-        iterations += 1;
-        let (f1, m1, gap1) = pass(&a1)?;
-        if gap1 <= tol || iterations >= max_iter {
-            (alpha, f0, m0, gap0) = (a1, f1, m1, gap1);
-            continue;
-        }
-        let a2 = step(&a1, &m1);
-        iterations += 1;
-        let r: Vec<f64> = a1.iter().zip(&alpha).map(|(x, y)| x - y).collect();
-        let v: Vec<f64> = a2
-            .iter()
-            .zip(&a1)
-            .zip(&r)
-            .map(|((x2, x1), rr)| x2 - x1 - rr)
-            .collect();
-        let (nr, nv) = (
-            r.iter().map(|x| x * x).sum::<f64>().sqrt(),
-            v.iter().map(|x| x * x).sum::<f64>().sqrt(),
-        );
-        let mut next = a2.clone();
-        if nv > 0.0 && nr.is_finite() && nv.is_finite() {
-            let s = (-nr / nv).min(-1.0);
-            let ext: Vec<f64> = alpha
-                .iter()
-                .zip(&r)
-                .zip(&v)
-                .map(|((x0, rr), vv)| x0 - 2.0 * s * rr + s * s * vv)
-                .collect();
-            if s < -1.0 && ext.iter().all(|x| *x >= 0.0 && x.is_finite()) {
-                next = ext;
+        self.point = Self::step(&self.alpha, &self.m0);
+        self.iterations += 1;
+        self.stage = Stage::First;
+    }
+
+    fn receive(&mut self, out: Option<(f64, Vec<f64>, f64)>, tol: f64, max_iter: usize) {
+        match self.stage {
+            Stage::Start | Stage::Second => {
+                let Some((f, m, g)) = out else {
+                    self.result = Some(None);
+                    return;
+                };
+                if self.stage == Stage::Second {
+                    self.alpha = std::mem::take(&mut self.a2);
+                }
+                (self.f0, self.m0, self.gap0) = (f, m, g);
+                self.settle(tol, max_iter);
             }
-        }
-        match pass(&next) {
-            Some((fe, me, ge)) if fe >= f1 => {
-                (alpha, f0, m0, gap0) = (next, fe, me, ge);
+            Stage::First => {
+                let Some((f1, m1, gap1)) = out else {
+                    self.result = Some(None);
+                    return;
+                };
+                let a1 = std::mem::take(&mut self.point);
+                if gap1 <= tol || self.iterations >= max_iter {
+                    (self.alpha, self.f0, self.m0, self.gap0) = (a1, f1, m1, gap1);
+                    self.settle(tol, max_iter);
+                    return;
+                }
+                // Second EM step, then a squared extrapolation along the two (SQUAREM, Varadhan
+                // & Roland 2008, Scand. J. Statist. 35), kept only if it stays feasible and
+                // does not lower f (checked when its pass comes back).
+                let a2 = Self::step(&a1, &m1);
+                self.iterations += 1;
+                let r: Vec<f64> = a1.iter().zip(&self.alpha).map(|(x, y)| x - y).collect();
+                let v: Vec<f64> = a2
+                    .iter()
+                    .zip(&a1)
+                    .zip(&r)
+                    .map(|((x2, x1), rr)| x2 - x1 - rr)
+                    .collect();
+                let (nr, nv) = (
+                    r.iter().map(|x| x * x).sum::<f64>().sqrt(),
+                    v.iter().map(|x| x * x).sum::<f64>().sqrt(),
+                );
+                let mut next = a2.clone();
+                if nv > 0.0 && nr.is_finite() && nv.is_finite() {
+                    let s = (-nr / nv).min(-1.0);
+                    let ext: Vec<f64> = self
+                        .alpha
+                        .iter()
+                        .zip(&r)
+                        .zip(&v)
+                        .map(|((x0, rr), vv)| x0 - 2.0 * s * rr + s * s * vv)
+                        .collect();
+                    if s < -1.0 && ext.iter().all(|x| *x >= 0.0 && x.is_finite()) {
+                        next = ext;
+                    }
+                }
+                self.f1 = f1;
+                self.a2 = a2;
+                self.point = next;
+                self.stage = Stage::Extrapolated;
             }
-            _ => {
-                // The extrapolation lowered the objective (or left the domain): plain EM step.
-                let (f2, m2, gap2) = pass(&a2)?;
-                (alpha, f0, m0, gap0) = (a2, f2, m2, gap2);
-            }
+            Stage::Extrapolated => match out {
+                Some((fe, me, ge)) if fe >= self.f1 => {
+                    self.alpha = std::mem::take(&mut self.point);
+                    self.a2 = Vec::new();
+                    (self.f0, self.m0, self.gap0) = (fe, me, ge);
+                    self.settle(tol, max_iter);
+                }
+                _ => {
+                    // The extrapolation lowered the objective (or left the domain): plain EM.
+                    self.point = self.a2.clone();
+                    self.stage = Stage::Second;
+                }
+            },
         }
     }
 }
@@ -391,41 +546,21 @@ fn kernel_matrix(x: MatrixView, centres: MatrixView, sigma: f64) -> Vec<f64> {
     out
 }
 
-/// Copies the given rows and columns of a row-major matrix with `b` columns.
-fn submatrix(a: &[f64], b: usize, rows: &[usize], cols: &[usize]) -> Vec<f64> {
-    let mut out = Vec::with_capacity(rows.len() * cols.len());
-    for &r in rows {
-        let row = &a[r * b..(r + 1) * b];
-        out.extend(cols.iter().map(|&c| row[c]));
-    }
-    out
-}
-
-/// Mean of the given rows of a row-major matrix with `b` columns, restricted to `cols`.
-fn column_means(a: &[f64], b: usize, rows: &[usize], cols: &[usize]) -> Vec<f64> {
-    let mut s = vec![0.0; cols.len()];
-    for &r in rows {
-        let row = &a[r * b..(r + 1) * b];
-        for (sj, &c) in s.iter_mut().zip(cols) {
-            *sj += row[c];
-        }
-    }
-    let n = rows.len().max(1) as f64;
-    s.iter().map(|v| v / n).collect()
-}
-
-/// r at the given rows of a kernel matrix, with coefficients on `cols`.
-fn evaluate(a: &[f64], b: usize, rows: &[usize], cols: &[usize], alpha: &[f64]) -> Vec<f64> {
-    rows.iter()
-        .map(|&r| {
-            let row = &a[r * b..(r + 1) * b];
-            cols.iter().zip(alpha).map(|(&c, al)| row[c] * al).sum()
-        })
-        .collect()
+/// r at every row of a kernel matrix with `b` columns whose label in `fold` is `f`.
+fn evaluate_fold(a: &[f64], b: usize, fold: &[usize], f: usize, alpha: &[f64]) -> Vec<f64> {
+    kernel::with_wide_simd(|| {
+        a.chunks_exact(b)
+            .zip(fold)
+            .filter(|(_, &g)| g == f)
+            .map(|(row, _)| dot(row, alpha))
+            .collect()
+    })
 }
 
 /// Minus the held-out log-likelihood of one width in each fold (lower is better); `None` when
 /// some fold has a target row with no kernel mass or a held-out normaliser that is not finite.
+/// The `k` fold fits are solved together ([`solve_kliep_batch`]): one sweep of the kernel matrix
+/// per round serves every fold still running.
 #[allow(clippy::too_many_arguments)]
 fn cv_score(
     kt: &[f64],
@@ -437,33 +572,51 @@ fn cv_score(
     k: usize,
     cfg: &KLRatio,
 ) -> Option<Vec<f64>> {
-    let n_t = fold_t.len();
+    // Per-fold column sums of the source kernel rows; the training rows of fold f are all rows
+    // but fold f's (source-and-target) or every row (target-only).
+    let mut fold_sums = vec![vec![0.0f64; b]; k];
+    let mut fold_rows = vec![0usize; k];
+    for (row, &f) in ks.chunks_exact(b).zip(fold_s) {
+        par::add_into(&mut fold_sums[f], row);
+        fold_rows[f] += 1;
+    }
+    let mut total = vec![0.0f64; b];
+    for s in &fold_sums {
+        par::add_into(&mut total, s);
+    }
     let n_s = fold_s.len();
-    let mut per_fold = Vec::with_capacity(k);
+    let mut problems = Vec::with_capacity(k);
     for f in 0..k {
-        let train_t: Vec<usize> = (0..n_t).filter(|&i| fold_t[i] != f).collect();
-        let test_t: Vec<usize> = (0..n_t).filter(|&i| fold_t[i] == f).collect();
-        let cols: Vec<usize> = (0..b).filter(|&l| fold_t[centre_rows[l]] != f).collect();
-        if cols.is_empty() {
+        // Centres whose target row is held out in fold f are not used in fold f.
+        let h: Vec<f64> = (0..b)
+            .map(|l| {
+                if fold_t[centre_rows[l]] == f {
+                    return 0.0;
+                }
+                match cfg.cv {
+                    KliepCv::SourceAndTarget => {
+                        (total[l] - fold_sums[f][l]) / (n_s - fold_rows[f]).max(1) as f64
+                    }
+                    KliepCv::TargetOnly => total[l] / n_s as f64,
+                }
+            })
+            .collect();
+        if (0..b).all(|l| fold_t[centre_rows[l]] == f) {
             return None;
         }
-        let (train_s, test_s): (Vec<usize>, Vec<usize>) = match cfg.cv {
-            KliepCv::SourceAndTarget => (
-                (0..n_s).filter(|&i| fold_s[i] != f).collect(),
-                (0..n_s).filter(|&i| fold_s[i] == f).collect(),
-            ),
-            KliepCv::TargetOnly => ((0..n_s).collect(), Vec::new()),
-        };
-        let a = submatrix(kt, b, &train_t, &cols);
-        let h = column_means(ks, b, &train_s, &cols);
-        let sol = solve_kliep(&a, &h, cfg.tol, cfg.max_iter)?;
-        let rt = evaluate(kt, b, &test_t, &cols, &sol.alpha);
-        if rt.iter().any(|v| !(*v > 0.0)) {
+        problems.push((h, Some(f)));
+    }
+    let sols = solve_kliep_batch(kt, b, Some(fold_t), &problems, cfg.tol, cfg.max_iter);
+    let mut per_fold = Vec::with_capacity(k);
+    for (f, sol) in sols.into_iter().enumerate() {
+        let sol = sol?;
+        let rt = evaluate_fold(kt, b, fold_t, f, &sol.alpha);
+        if rt.is_empty() || rt.iter().any(|v| !(*v > 0.0)) {
             return None;
         }
         let mut score = rt.iter().map(|v| v.ln()).sum::<f64>() / rt.len() as f64;
         if cfg.cv == KliepCv::SourceAndTarget {
-            let rs = evaluate(ks, b, &test_s, &cols, &sol.alpha);
+            let rs = evaluate_fold(ks, b, fold_s, f, &sol.alpha);
             let mean_s = rs.iter().sum::<f64>() / rs.len() as f64;
             if !(mean_s > 0.0 && mean_s.is_finite()) {
                 return None;
@@ -558,7 +711,10 @@ impl RatioEstimator for KLRatio {
             .sum
             .remove(0);
         let h: Vec<f64> = h.iter().map(|v| v / n_s as f64).collect();
-        let sol = solve_kliep(&kt, &h, self.tol, self.max_iter).ok_or_else(|| Error::Numerical {
+        let sol = solve_kliep_batch(&kt, b, None, &[(h.clone(), None)], self.tol, self.max_iter)
+            .pop()
+            .flatten()
+            .ok_or_else(|| Error::Numerical {
             context: "KLIEP fit".into(),
             reason: format!(
                 "the kernel width {sigma} is so small that some target row has no kernel mass at any centre; use a larger sigma"
