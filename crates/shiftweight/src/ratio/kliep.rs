@@ -783,6 +783,38 @@ mod tests {
     }
 
     #[test]
+    fn lockstep_batch_equals_solving_each_fold_alone_on_its_own_rows() {
+        // Three held-out-fold problems solved together must give what each gives alone on a
+        // matrix holding only its training rows (the claim of `solve_kliep_batch`).
+        let (n, b) = (120, 12);
+        let t = gauss(n, 2.0, 0.25, 5);
+        let centres: Vec<f64> = t[..b].to_vec();
+        let tv = MatrixView::new(&t, n, 1).unwrap();
+        let cv = MatrixView::new(&centres, b, 1).unwrap();
+        let a = kernel_matrix(tv, cv, 0.3);
+        let fold: Vec<usize> = (0..n).map(|i| i % 3).collect();
+        let h: Vec<Vec<f64>> = (0..3)
+            .map(|f| (0..b).map(|l| 0.02 + 0.01 * ((l + f) % 5) as f64).collect())
+            .collect();
+        let problems: Vec<(Vec<f64>, Option<usize>)> =
+            (0..3).map(|f| (h[f].clone(), Some(f))).collect();
+        let together = solve_kliep_batch(&a, b, Some(&fold), &problems, 1e-10, 10_000);
+        for f in 0..3 {
+            let own: Vec<f64> = (0..n)
+                .filter(|t| fold[*t] != f)
+                .flat_map(|t| a[t * b..(t + 1) * b].to_vec())
+                .collect();
+            let alone = solve_kliep_batch(&own, b, None, &[(h[f].clone(), None)], 1e-10, 10_000);
+            let (x, y) = (together[f].as_ref().unwrap(), alone[0].as_ref().unwrap());
+            assert_eq!(x.iterations, y.iterations, "fold {f}");
+            assert!((x.objective - y.objective).abs() < 1e-10, "fold {f}");
+            for (p, q) in x.alpha.iter().zip(&y.alpha) {
+                assert!((p - q).abs() <= 1e-8 * q.abs().max(1.0), "fold {f}: {p} vs {q}");
+            }
+        }
+    }
+
+    #[test]
     fn constraint_holds_and_perturbations_do_not_improve() {
         let n = 150;
         let s = gauss(n, 1.0, 0.5, 1);
