@@ -36,9 +36,15 @@
 //!   it for m up to 2,500. A p-value changes only if a relabelled statistic lies within that error
 //!   of the observed one: for B = 1,000 about B x 2 x 1e-6 x (density <= about 0.5 / sd), a
 //!   chance near 1e-3 of a change of 1 / (1 + B), far below the p-value's own Monte Carlo error.
-//!   Measured (test `f32_permutation_statistics_match_f64_reference`, 900 + 1,100 rows, no
-//!   shift): largest error of 200 relabelled statistics 6.2e-10 against their sd 5.2e-4, i.e.
-//!   1.2e-6 of the spread; the p-value equals the f64 one.
+//!   The random-walk picture needs the rows in random order: the matrix is built on a seeded
+//!   shuffle of the pooled rows (the relabellings are unchanged). Without it, inputs sorted on a
+//!   feature gave errors near 1e-5 of the spread. Measured (test
+//!   `f32_permutation_statistics_match_f64_reference`, 900 + 1,100 rows in 3 features, no shift):
+//!   largest error of 200 relabelled statistics 6.8e-10 (rows in random order) and 6.0e-10 (rows
+//!   sorted on a feature) against sds 5.2e-4 and 4.9e-4, i.e. 1.3e-6 and 1.2e-6 of the spread;
+//!   the modelled error a u (rms(K~) m^1.5 / 2 + m) was 1.0e-9. p-values equal the f64 ones.
+//!   Exact ties (discrete data) stay ties: the p-value counts relabelled statistics within
+//!   1e-12 relative plus 10 modelled errors of the observed one (conservative).
 //! - N > `max_kernel_rows`: the block estimator (Zaremba, Gretton, Blaschko 2013, "B-test: a
 //!   non-parametric, low variance kernel two-sample test", NIPS 26): source and target rows are
 //!   shuffled (seeded) and dealt into L disjoint blocks of about `block_size` rows (default
@@ -81,6 +87,9 @@ const TAG_MEDIAN: u64 = 0x6d6d_645f_6d65_6469;
 const TAG_PERM: u64 = 0x6d6d_645f_7065_726d;
 const TAG_BLOCK: u64 = 0x6d6d_645f_626c_6f63;
 const TAG_BLOCK_PERM: u64 = 0x6d6d_645f_6270_6572;
+const TAG_ORDER: u64 = 0x6d6d_645f_6f72_6472;
+/// Tie tolerance of the p-value in units of the modelled f32 error of a relabelled statistic.
+const TIE_ERRORS: f64 = 10.0;
 /// Most permutation columns multiplied with the kernel matrix at a time (wider batches amortise
 /// faer's packing of the kernel matrix; 256 was the fastest of 64, 128 and 256 at N = 4,000).
 const PERM_BATCH_MAX: usize = 256;
@@ -191,11 +200,11 @@ impl MmdShiftTest {
         d: usize,
     ) -> Result<ShiftTestResult> {
         let n = ns + nt;
-        let kc = centred_kernel(z, sigma, ns);
+        let kc = centred_kernel(z, sigma, ns, self.seed ^ TAG_ORDER);
         let mut gen = rng(self.seed ^ TAG_PERM);
         let seeds: Vec<u64> = (0..self.permutations).map(|_| gen.next_u64()).collect();
-        let (observed, perm_stats) = permutation_statistics(&kc, ns, &seeds);
-        let p_value = permutation_p_value(observed, &perm_stats);
+        let (observed, perm_stats, err) = permutation_statistics(&kc, ns, &seeds);
+        let p_value = permutation_p_value(observed, &perm_stats, err);
         Ok(ShiftTestResult {
             method: "mmd".into(),
             statistic: observed,
@@ -256,7 +265,7 @@ impl MmdShiftTest {
         // One seed per block; block b draws its own `permutations` relabellings from it.
         let mut pgen = rng(self.seed ^ TAG_BLOCK_PERM);
         let block_seeds: Vec<u64> = (0..n_blocks).map(|_| pgen.next_u64()).collect();
-        let per_block: Vec<(f64, Vec<f64>)> = (0..n_blocks)
+        let per_block: Vec<(f64, Vec<f64>, f64)> = (0..n_blocks)
             .into_par_iter()
             .map(|b| {
                 let xs = part(&si, b);
@@ -264,7 +273,7 @@ impl MmdShiftTest {
                 let mut rows = xs.clone();
                 rows.extend_from_slice(&ys);
                 let sub = z.select_rows(&rows);
-                let kc = centred_kernel(sub.view(), sigma, xs.len());
+                let kc = centred_kernel(sub.view(), sigma, xs.len(), block_seeds[b] ^ TAG_ORDER);
                 let mut g = rng(block_seeds[b]);
                 let seeds: Vec<u64> = (0..self.permutations).map(|_| g.next_u64()).collect();
                 permutation_statistics(&kc, xs.len(), &seeds)
@@ -272,11 +281,13 @@ impl MmdShiftTest {
             .collect();
         let l = n_blocks as f64;
         // Sums in block order: identical for any thread count.
-        let mean = per_block.iter().map(|(o, _)| o).sum::<f64>() / l;
+        let mean = per_block.iter().map(|(o, _, _)| o).sum::<f64>() / l;
         let perm_means: Vec<f64> = (0..self.permutations)
-            .map(|r| per_block.iter().map(|(_, p)| p[r]).sum::<f64>() / l)
+            .map(|r| per_block.iter().map(|(_, p, _)| p[r]).sum::<f64>() / l)
             .collect();
-        let p_value = permutation_p_value(mean, &perm_means);
+        // The error of a mean is at most the mean of the errors.
+        let err = per_block.iter().map(|(_, _, e)| e).sum::<f64>() / l;
+        let p_value = permutation_p_value(mean, &perm_means, err);
         Ok(ShiftTestResult {
             method: "mmd".into(),
             statistic: mean,
@@ -314,14 +325,21 @@ impl MmdShiftTest {
 /// flops of K P) over batches of at most [`PERM_BATCH_MAX`] columns, in parallel; the quadratic
 /// forms are summed in f64. The observed statistic comes from f64 sums only. Returned in seed
 /// order. See the module docs ("Precision") for the error against an f64 computation.
-fn permutation_statistics(kc: &CentredKernel, ns: usize, seeds: &[u64]) -> (f64, Vec<f64>) {
+///
+/// Also returns the modelled f32 error of one relabelled statistic (module docs, "Precision"):
+/// a u (rms(K~) m^1.5 / 2 + m) with m the larger sample, u = 2^-24.
+fn permutation_statistics(kc: &CentredKernel, ns: usize, seeds: &[u64]) -> (f64, Vec<f64>, f64) {
     let n = kc.n;
     let nt = n - ns;
     let total = kc.total;
     let frac = ns as f64 / n as f64;
     let stat = |s_xx: f64, rp: f64| mmd2_from_sums(s_xx, rp - s_xx, total, ns, nt);
-    let rp_obs: f64 = kc.r[..ns].iter().sum();
+    let rp_obs: f64 = kc.r.iter().zip(&kc.src).map(|(r, w)| r * w).sum();
     let observed = stat(kc.s_xx_first, rp_obs);
+    let (mf, nf) = (ns as f64, nt as f64);
+    let a = 1.0 / (mf * (mf - 1.0)) + 1.0 / (nf * (nf - 1.0)) + 2.0 / (mf * nf);
+    let big = mf.max(nf);
+    let err = a * f64::from(f32::EPSILON) / 2.0 * (kc.rms * big.powf(1.5) / 2.0 + big);
     let lower = MatRef::from_row_major_slice(&kc.lower, n, n);
     let perm_stats: Vec<f64> = seeds
         .par_chunks(perm_batch_width(seeds.len()))
@@ -332,7 +350,7 @@ fn permutation_statistics(kc: &CentredKernel, ns: usize, seeds: &[u64]) -> (f64,
                 let mut idx: Vec<usize> = (0..n).collect();
                 idx.shuffle(&mut rng(s));
                 for &i in &idx[..ns] {
-                    p[(i, c)] = 1.0;
+                    p[(kc.pos[i], c)] = 1.0;
                 }
             }
             let mut y = Mat::<f32>::zeros(n, b);
@@ -377,7 +395,7 @@ fn permutation_statistics(kc: &CentredKernel, ns: usize, seeds: &[u64]) -> (f64,
                 .collect::<Vec<f64>>()
         })
         .collect();
-    (observed, perm_stats)
+    (observed, perm_stats, err)
 }
 
 /// Columns per batch of the permutation products for `b` permutations: at most
@@ -391,10 +409,13 @@ fn perm_batch_width(b: usize) -> usize {
     b.div_ceil(batches).max(1)
 }
 
-/// (1 + #{permuted >= observed}) / (1 + permutations), with a relative tolerance of 1e-12 so
-/// that relabellings equal to the observed one up to rounding count as ties.
-fn permutation_p_value(observed: f64, permuted: &[f64]) -> f64 {
-    let tol = 1e-12 * observed.abs().max(1e-12);
+/// (1 + #{permuted >= observed}) / (1 + permutations), with a tolerance so that relabellings
+/// equal to the observed one up to rounding count as ties (discrete data has exact ties): 1e-12
+/// relative plus [`TIE_ERRORS`] times `err`, the modelled f32 error of a relabelled statistic.
+/// Counting a near-tie only raises p (conservative); at about 1e-5 of the permutation spread
+/// (N = 4,000) it adds a count with a chance near B x 1e-5 x 0.5.
+fn permutation_p_value(observed: f64, permuted: &[f64], err: f64) -> f64 {
+    let tol = 1e-12 * observed.abs().max(1e-12) + TIE_ERRORS * err;
     let exceed = permuted.iter().filter(|v| **v >= observed - tol).count();
     (1 + exceed) as f64 / (1 + permuted.len()) as f64
 }
@@ -413,6 +434,12 @@ fn mmd2_from_sums(s_xx: f64, s_xy: f64, total: f64, m: usize, n: usize) -> f64 {
 /// over the first `ns` rows.
 struct CentredKernel {
     n: usize,
+    /// Position in the matrix of each pooled row (a seeded shuffle; see [`centred_kernel`]).
+    pos: Vec<usize>,
+    /// 1.0 at the positions of the first `ns` pooled rows (the observed source rows), else 0.0.
+    src: Vec<f64>,
+    /// Root mean square of the off-diagonal entries of K~.
+    rms: f64,
     /// Row-major N x N; entry (i, j), j < i, holds K~_ij rounded to f32; the rest is zero.
     lower: Vec<f32>,
     /// K~_ii = 1 - 2 c_i with c_i = r_i / N - 1'K1 / (2 N^2).
@@ -423,17 +450,30 @@ struct CentredKernel {
     s_xx_first: f64,
 }
 
-/// Builds [`CentredKernel`] for the rows of `z`, the first `ns` of them the source rows. Only the
+/// Builds [`CentredKernel`] for the rows of `z`, the first `ns` of them the source rows, placed in
+/// a seeded random order (`order_seed`): the f32 sums along a row of K~ P then run over a random
+/// subset of rows whatever the input order, which keeps their partial sums random walks (with
+/// inputs sorted on a feature they would drift, and the f32 error was measured 10 times larger).
+/// Only the
 /// strict lower triangle of K is evaluated (with the shared vectorised kernel helper, in f64), in
 /// fixed chunks of [`KERNEL_CHUNK`] rows, in parallel; partial sums are combined in chunk order, so
 /// the result is bitwise identical for any thread count. O(N^2 d / 2) time; N^2 f32 values plus
 /// a KERNEL_CHUNK x N f64 scratch per thread.
-fn centred_kernel(z: MatrixView, sigma: f64, ns: usize) -> CentredKernel {
+fn centred_kernel(z: MatrixView, sigma: f64, ns: usize, order_seed: u64) -> CentredKernel {
     let n = z.rows();
+    let mut order: Vec<usize> = (0..n).collect();
+    order.shuffle(&mut rng(order_seed));
+    let mut pos = vec![0; n];
+    for (k, &i) in order.iter().enumerate() {
+        pos[i] = k;
+    }
+    let src: Vec<f64> = order.iter().map(|&i| f64::from(u8::from(i < ns))).collect();
+    let shuffled = z.select_rows(&order);
+    let z = shuffled.view();
     let z_sq = kernel::row_sq_norms(z);
     let mut lower = vec![0.0f32; n * n];
     // Per chunk of rows s..e: the strictly lower row sums, the column sums over columns 0..e.
-    let parts: Vec<(Vec<f64>, Vec<f64>)> = lower
+    let parts: Vec<(Vec<f64>, Vec<f64>, f64)> = lower
         .par_chunks_mut(KERNEL_CHUNK * n)
         .enumerate()
         .map_init(Vec::new, |buf: &mut Vec<f64>, (c, out)| {
@@ -449,10 +489,14 @@ fn centred_kernel(z: MatrixView, sigma: f64, ns: usize) -> CentredKernel {
             );
             let mut rows = Vec::with_capacity(e - s);
             let mut cols = vec![0.0; e];
+            let mut xx = 0.0;
             kernel::with_wide_simd(|| {
                 for i in s..e {
                     let k_row = &buf[(i - s) * e..(i - s) * e + i];
                     rows.push(sum_f64(k_row));
+                    if src[i] == 1.0 {
+                        xx += k_row.iter().zip(&src).map(|(k, w)| k * w).sum::<f64>();
+                    }
                     for (cj, v) in cols.iter_mut().zip(k_row) {
                         *cj += v;
                     }
@@ -461,19 +505,17 @@ fn centred_kernel(z: MatrixView, sigma: f64, ns: usize) -> CentredKernel {
                     }
                 }
             });
-            (rows, cols)
+            (rows, cols, xx)
         })
         .collect();
     let mut r = vec![1.0; n];
     let mut lower_xx = 0.0;
-    for (c, (rows, cols)) in parts.iter().enumerate() {
+    for (c, (rows, cols, xx)) in parts.iter().enumerate() {
         let s = c * KERNEL_CHUNK;
         for (k, v) in rows.iter().enumerate() {
             r[s + k] += v;
-            if s + k < ns {
-                lower_xx += v;
-            }
         }
+        lower_xx += xx;
         for (rj, v) in r.iter_mut().zip(cols) {
             *rj += v;
         }
@@ -482,22 +524,31 @@ fn centred_kernel(z: MatrixView, sigma: f64, ns: usize) -> CentredKernel {
     let nf = n as f64;
     let shift = total / (2.0 * nf * nf);
     let cen: Vec<f64> = r.iter().map(|ri| ri / nf - shift).collect();
-    lower
+    let sq_parts: Vec<f64> = lower
         .par_chunks_mut(KERNEL_CHUNK * n)
         .enumerate()
-        .for_each(|(c, out)| {
+        .map(|(c, out)| {
             kernel::with_wide_simd(|| {
+                let mut sq = 0.0;
                 for (k, row) in out.chunks_exact_mut(n).enumerate() {
                     let i = c * KERNEL_CHUNK + k;
                     let ci = cen[i];
                     for (o, cj) in row[..i].iter_mut().zip(&cen) {
                         *o = (f64::from(*o) - ci - cj) as f32;
                     }
+                    sq += row[..i].iter().map(|v| f64::from(*v).powi(2)).sum::<f64>();
                 }
+                sq
             })
-        });
+        })
+        .collect();
+    let pairs = (nf * (nf - 1.0) / 2.0).max(1.0);
+    let rms = (sq_parts.iter().sum::<f64>() / pairs).sqrt();
     CentredKernel {
         n,
+        pos,
+        src,
+        rms,
         lower,
         diag: cen.iter().map(|c| 1.0 - 2.0 * c).collect(),
         r,
@@ -609,13 +660,30 @@ mod tests {
             .collect()
     }
 
+    /// Rows sorted on their first feature (row-major, `d` columns).
+    fn sorted_rows(v: &[f64], d: usize) -> Vec<f64> {
+        let mut rows: Vec<&[f64]> = v.chunks(d).collect();
+        rows.sort_by(|a, b| a[0].total_cmp(&b[0]));
+        rows.concat()
+    }
+
     #[test]
     fn f32_permutation_statistics_match_f64_reference() {
         // No shift: the observed statistic sits inside the permutation distribution, where
-        // rounding could move a relabelled statistic across it.
+        // rounding could move a relabelled statistic across it. Random and sorted row orders.
+        for sorted in [false, true] {
+            f32_against_f64(sorted);
+        }
+    }
+
+    fn f32_against_f64(sorted: bool) {
         let (ns, nt, d, b) = (900, 1100, 3, 200);
-        let s = gaussian(ns, d, 0.0, 11);
-        let t = gaussian(nt, d, 0.0, 12);
+        let mut s = gaussian(ns, d, 0.0, 11);
+        let mut t = gaussian(nt, d, 0.0, 12);
+        if sorted {
+            s = sorted_rows(&s, d);
+            t = sorted_rows(&t, d);
+        }
         let (sv, tv) = (
             MatrixView::new(&s, ns, d).unwrap(),
             MatrixView::new(&t, nt, d).unwrap(),
@@ -626,8 +694,11 @@ mod tests {
         let sigma = kernel::median_distance(&[z.view()], 5 ^ TAG_MEDIAN);
         let mut gen = rng(5 ^ TAG_PERM);
         let seeds: Vec<u64> = (0..b).map(|_| gen.next_u64()).collect();
-        let (observed, ours) =
-            permutation_statistics(&centred_kernel(z.view(), sigma, ns), ns, &seeds);
+        let (observed, ours, err) = permutation_statistics(
+            &centred_kernel(z.view(), sigma, ns, 5 ^ TAG_ORDER),
+            ns,
+            &seeds,
+        );
         let reference = reference_f64(z.view(), ns, sigma, &seeds);
         let mean = reference.iter().sum::<f64>() / b as f64;
         let sd =
@@ -646,7 +717,9 @@ mod tests {
             "largest f32 error {worst:e} against a permutation sd of {sd:e}"
         );
         assert_eq!(observed, res.statistic);
-        assert_eq!(res.p_value, permutation_p_value(observed, &reference));
+        assert_eq!(res.p_value, permutation_p_value(observed, &reference, err));
+        // The modelled error (module docs) is of the order of the measured one.
+        assert!(worst <= TIE_ERRORS * err, "error {worst:e}, model {err:e}");
         // The case the check is about: a p-value inside (0, 1), i.e. relabelled statistics on both
         // sides of the observed one.
         assert!(
@@ -654,6 +727,47 @@ mod tests {
             "p = {}",
             res.p_value
         );
+    }
+
+    #[test]
+    fn exact_ties_count_as_ties() {
+        // One binary feature: a relabelling's statistic depends only on how many 1s the rows
+        // called "source" hold, so relabellings with the observed count tie with the observed
+        // statistic exactly. The p-value must count them (its definition, module docs); the
+        // others are compared with the f64 reference (sums from Gretton et al. 2012, eq. 3).
+        let (ns, nt, b) = (600, 640, 200);
+        let bit = |i: usize, seed: usize| f64::from(u8::from((i * 7 + seed) % 5 < 2));
+        let s: Vec<f64> = (0..ns).map(|i| bit(i, 0)).collect();
+        let t: Vec<f64> = (0..nt).map(|i| bit(i, 1)).collect();
+        let (sv, tv) = (
+            MatrixView::new(&s, ns, 1).unwrap(),
+            MatrixView::new(&t, nt, 1).unwrap(),
+        );
+        let res = MmdShiftTest::new()
+            .sigma(Some(1.0))
+            .permutations(b)
+            .seed(2)
+            .run(sv, tv)
+            .unwrap();
+        let pooled: Vec<f64> = s.iter().chain(&t).copied().collect();
+        let ones = |rows: &[usize]| rows.iter().filter(|&&i| pooled[i] == 1.0).count();
+        let observed_ones = ones(&(0..ns).collect::<Vec<_>>());
+        let (z, _) = pooled_standardized(sv, tv);
+        let mut gen = rng(2 ^ TAG_PERM);
+        let seeds: Vec<u64> = (0..b).map(|_| gen.next_u64()).collect();
+        let reference = reference_f64(z.view(), ns, 1.0, &seeds);
+        let (mut ties, mut above) = (0, 0);
+        for (&seed, v) in seeds.iter().zip(&reference) {
+            let mut idx: Vec<usize> = (0..ns + nt).collect();
+            idx.shuffle(&mut rng(seed));
+            if ones(&idx[..ns]) == observed_ones {
+                ties += 1;
+            } else if *v > res.statistic {
+                above += 1;
+            }
+        }
+        assert!(ties > 0, "the case must have exact ties");
+        assert_eq!(res.p_value, (1 + ties + above) as f64 / (1 + b) as f64);
     }
 
     #[test]
