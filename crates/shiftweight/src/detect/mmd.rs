@@ -9,12 +9,42 @@
 //!           - 2/(mn) sum_{i, j} k(x_i, y_j)
 //!
 //! (Gretton et al. 2012, eq. 3). Two routes, chosen by the pooled row count N = m + n:
-//! - N <= `max_kernel_rows` (default 5,000): the N x N kernel matrix K is computed once. For a
-//!   0/1 indicator p of the rows called "source", s_XX = p'Kp, s_XY = r'p - s_XX (r = K 1) and
-//!   s_YY = 1'K1 - s_XX - 2 s_XY give MMD^2_u, so B permutations cost one product of K with an
-//!   N x B matrix of indicator columns (done in column batches, in parallel). The p-value is
-//!   (1 + #{MMD^2_b >= MMD^2}) / (1 + B): exact level under the null. Time O(N^2 d + N^2 B), memory
-//!   O(N^2 + N * batch).
+//! - N <= `max_kernel_rows` (default 5,000): the N x N kernel matrix K is computed once (its
+//!   lower triangle only). For a 0/1 indicator p of the rows called "source", s_XX = p'Kp,
+//!   s_XY = r'p - s_XX (r = K 1) and s_YY = 1'K1 - s_XX - 2 s_XY give MMD^2_u, so B permutations
+//!   cost one product of K with an N x B matrix of indicator columns. K being symmetric, only its
+//!   strict lower triangle enters the product (p'Kp = 2 p'Lp + sum_i p_i K_ii), half the flops;
+//!   the product runs in f32 in column batches, in parallel (see "Precision" below). The p-value
+//!   is (1 + #{MMD^2_b >= MMD^2}) / (1 + B): exact level under the null. Time
+//!   O(N^2 d / 2 + N^2 B / 2), memory N^2 f32 values (100 MB at N = 5,000) plus O(N * 256) per
+//!   thread.
+//!
+//!   Precision. The observed statistic, r and 1'K1 are f64 sums. The relabelled statistics use
+//!   f32 for the kernel and the products (the 0/1 indicators are exact in f32) and f64 for the
+//!   final quadratic forms. MMD^2_u is s_XX times a = 1/(m(m-1)) + 1/(n(n-1)) + 2/(mn) (about
+//!   (1/m + 1/n)^2) plus f64 terms in r'p and 1'K1, so an error e in s_XX moves the statistic by
+//!   a e. To keep e small the f32 matrix is the doubly centred K~ = HKH (H = I - 11'/N), using
+//!   p'Kp = p'K~p + 2 (m/N) r'p - (m/N)^2 1'K1 (exact algebra, since 1'p = m): the rows of K~ sum
+//!   to zero, so the partial sums of a row of K~ P grow like a random walk (about
+//!   rms(K~) sqrt(k) after k terms) instead of like k. With unit roundoff u = 2^-24 and rounding
+//!   errors modelled as independent and mean-zero (the probabilistic model of Higham & Mary 2019,
+//!   "A new approach to probabilistic rounding error analysis", SIAM J. Sci. Comput. 41(5);
+//!   cited from memory), the accumulation error of p'K~p has a standard deviation of about
+//!   u rms(K~) m^1.5 / 2, and the f32 storage of K and K~ adds only of order u m, so the statistic
+//!   errs by about 2 u rms(K~) m^-0.5 (m = n). The permutation spread of MMD^2_u shrinks like
+//!   1/m, so the error is of order u sqrt(m) = 6e-8 sqrt(m) times the spread, i.e. a few 1e-6 of
+//!   it for m up to 2,500. A p-value changes only if a relabelled statistic lies within that error
+//!   of the observed one: for B = 1,000 about B x 2 x 1e-6 x (density <= about 0.5 / sd), a
+//!   chance near 1e-3 of a change of 1 / (1 + B), far below the p-value's own Monte Carlo error.
+//!   The random-walk picture needs the rows in random order: the matrix is built on a seeded
+//!   shuffle of the pooled rows (the relabellings are unchanged). Without it, inputs sorted on a
+//!   feature gave errors near 1e-5 of the spread. Measured (test
+//!   `f32_permutation_statistics_match_f64_reference`, 900 + 1,100 rows in 3 features, no shift):
+//!   largest error of 200 relabelled statistics 6.8e-10 (rows in random order) and 6.0e-10 (rows
+//!   sorted on a feature) against sds 5.2e-4 and 4.9e-4, i.e. 1.3e-6 and 1.2e-6 of the spread;
+//!   the modelled error a u (rms(K~) m^1.5 / 2 + m) was 1.0e-9. p-values equal the f64 ones.
+//!   Exact ties (discrete data) stay ties: the p-value counts relabelled statistics within
+//!   1e-12 relative plus 10 modelled errors of the observed one (conservative).
 //! - N > `max_kernel_rows`: the block estimator (Zaremba, Gretton, Blaschko 2013, "B-test: a
 //!   non-parametric, low variance kernel two-sample test", NIPS 26): source and target rows are
 //!   shuffled (seeded) and dealt into L disjoint blocks of about `block_size` rows (default
@@ -40,14 +70,14 @@
 //!   interval 6 to 25. The normal limit only
 //!   holds as L grows; relabelling within blocks needs no limit.
 //!
-//!   Time O(N * block_size * (d + B)), memory O(block_size^2 + block_size * 64) per thread plus
+//!   Time O(N * block_size * (d + B)), memory O(block_size^2 + block_size * 256) per thread plus
 //!   O(L * B) for the relabelled statistics.
 
 use super::{pooled_standardized, PValueMethod, ShiftDetails, ShiftTestResult};
 use crate::data::{validate_pair, MatrixView};
 use crate::error::{Error, Result};
-use crate::kernel::{self, rng, CHUNK_ROWS};
-use faer::linalg::matmul::matmul;
+use crate::kernel::{self, rng};
+use faer::linalg::matmul::triangular::{self, BlockStructure};
 use faer::{Accum, Mat, MatRef, Par};
 use rand::seq::SliceRandom;
 use rand::RngCore;
@@ -57,8 +87,18 @@ const TAG_MEDIAN: u64 = 0x6d6d_645f_6d65_6469;
 const TAG_PERM: u64 = 0x6d6d_645f_7065_726d;
 const TAG_BLOCK: u64 = 0x6d6d_645f_626c_6f63;
 const TAG_BLOCK_PERM: u64 = 0x6d6d_645f_6270_6572;
-/// Permutation columns multiplied with the kernel matrix at a time.
-const PERM_BATCH: usize = 64;
+const TAG_ORDER: u64 = 0x6d6d_645f_6f72_6472;
+/// Tie tolerance of the p-value in units of the modelled f32 error of a relabelled statistic.
+const TIE_ERRORS: f64 = 10.0;
+/// Most permutation columns multiplied with the kernel matrix at a time (wider batches amortise
+/// faer's packing of the kernel matrix; 256 was the fastest of 64, 128 and 256 at N = 4,000).
+const PERM_BATCH_MAX: usize = 256;
+/// Fewest batches (when there are at least 32 permutations each), so that a few cores share the
+/// products. Batch widths depend only on the number of permutations, never on the thread count.
+const PERM_BATCHES_MIN: usize = 4;
+/// Rows per chunk when the kernel matrix is built (fixed, never derived from the thread count;
+/// 64 rows keep the f64 scratch of a chunk at N = 4,000 to 2 MB, near the cache).
+const KERNEL_CHUNK: usize = 64;
 
 /// Configuration of the MMD two-sample test. See the module docs.
 #[derive(Debug, Clone, PartialEq)]
@@ -67,7 +107,7 @@ pub struct MmdShiftTest {
     pub sigma: Option<f64>,
     /// Label permutations (>= 1; default 200).
     pub permutations: usize,
-    /// Largest pooled row count for the full kernel matrix (default 5,000, i.e. 200 MB).
+    /// Largest pooled row count for the full kernel matrix (default 5,000, i.e. 100 MB of f32).
     pub max_kernel_rows: usize,
     /// Rows per block for the block estimator; `None` (default) uses sqrt(N) within [50, 1000].
     pub block_size: Option<usize>,
@@ -160,11 +200,11 @@ impl MmdShiftTest {
         d: usize,
     ) -> Result<ShiftTestResult> {
         let n = ns + nt;
-        let k = kernel_matrix(z, sigma);
+        let kc = centred_kernel(z, sigma, ns, self.seed ^ TAG_ORDER);
         let mut gen = rng(self.seed ^ TAG_PERM);
         let seeds: Vec<u64> = (0..self.permutations).map(|_| gen.next_u64()).collect();
-        let (observed, perm_stats) = permutation_statistics(&k, n, ns, &seeds);
-        let p_value = permutation_p_value(observed, &perm_stats);
+        let (observed, perm_stats, err) = permutation_statistics(&kc, ns, &seeds);
+        let p_value = permutation_p_value(observed, &perm_stats, err);
         Ok(ShiftTestResult {
             method: "mmd".into(),
             statistic: observed,
@@ -225,7 +265,7 @@ impl MmdShiftTest {
         // One seed per block; block b draws its own `permutations` relabellings from it.
         let mut pgen = rng(self.seed ^ TAG_BLOCK_PERM);
         let block_seeds: Vec<u64> = (0..n_blocks).map(|_| pgen.next_u64()).collect();
-        let per_block: Vec<(f64, Vec<f64>)> = (0..n_blocks)
+        let per_block: Vec<(f64, Vec<f64>, f64)> = (0..n_blocks)
             .into_par_iter()
             .map(|b| {
                 let xs = part(&si, b);
@@ -233,20 +273,21 @@ impl MmdShiftTest {
                 let mut rows = xs.clone();
                 rows.extend_from_slice(&ys);
                 let sub = z.select_rows(&rows);
-                let m = rows.len();
-                let k = kernel_matrix(sub.view(), sigma);
+                let kc = centred_kernel(sub.view(), sigma, xs.len(), block_seeds[b] ^ TAG_ORDER);
                 let mut g = rng(block_seeds[b]);
                 let seeds: Vec<u64> = (0..self.permutations).map(|_| g.next_u64()).collect();
-                permutation_statistics(&k, m, xs.len(), &seeds)
+                permutation_statistics(&kc, xs.len(), &seeds)
             })
             .collect();
         let l = n_blocks as f64;
         // Sums in block order: identical for any thread count.
-        let mean = per_block.iter().map(|(o, _)| o).sum::<f64>() / l;
+        let mean = per_block.iter().map(|(o, _, _)| o).sum::<f64>() / l;
         let perm_means: Vec<f64> = (0..self.permutations)
-            .map(|r| per_block.iter().map(|(_, p)| p[r]).sum::<f64>() / l)
+            .map(|r| per_block.iter().map(|(_, p, _)| p[r]).sum::<f64>() / l)
             .collect();
-        let p_value = permutation_p_value(mean, &perm_means);
+        // The error of a mean is at most the mean of the errors.
+        let err = per_block.iter().map(|(_, _, e)| e).sum::<f64>() / l;
+        let p_value = permutation_p_value(mean, &perm_means, err);
         Ok(ShiftTestResult {
             method: "mmd".into(),
             statistic: mean,
@@ -276,59 +317,105 @@ impl MmdShiftTest {
     }
 }
 
-/// The MMD^2_u of the first `ns` of the `n` rows against the others, and its value under one
-/// random relabelling per seed (the same number of rows called "source"), from the row-major
-/// kernel matrix `k`. With s_XX = p'Kp for the 0/1 indicator p of the source rows, r = K 1 and
-/// s_XY = r'p - s_XX, every relabelling needs one column of K P; the columns are multiplied in
-/// batches of [`PERM_BATCH`], in parallel, and returned in seed order.
-fn permutation_statistics(k: &[f64], n: usize, ns: usize, seeds: &[u64]) -> (f64, Vec<f64>) {
+/// The MMD^2_u of the first `ns` rows of `kc` against the others, and its value under one random
+/// relabelling per seed (the same number of rows called "source"). For the 0/1 indicator p of the
+/// source rows, s_XX = p'Kp = p'K~p + 2 (m/N) r'p - (m/N)^2 1'K1 with K~ = HKH (see
+/// [`CentredKernel`]), and p'K~p = 2 p'L~p + sum_i p_i K~_ii for the strict lower triangle L~.
+/// Every relabelling needs one column of L~ P: f32 products (faer's triangular matmul, half the
+/// flops of K P) over batches of at most [`PERM_BATCH_MAX`] columns, in parallel; the quadratic
+/// forms are summed in f64. The observed statistic comes from f64 sums only. Returned in seed
+/// order. See the module docs ("Precision") for the error against an f64 computation.
+///
+/// Also returns the modelled f32 error of one relabelled statistic (module docs, "Precision"):
+/// a u (rms(K~) m^1.5 / 2 + m) with m the larger sample, u = 2^-24.
+fn permutation_statistics(kc: &CentredKernel, ns: usize, seeds: &[u64]) -> (f64, Vec<f64>, f64) {
+    let n = kc.n;
     let nt = n - ns;
-    let r: Vec<f64> = k.par_chunks(n).map(|row| row.iter().sum::<f64>()).collect();
-    let total: f64 = r.iter().sum();
+    let total = kc.total;
+    let frac = ns as f64 / n as f64;
     let stat = |s_xx: f64, rp: f64| mmd2_from_sums(s_xx, rp - s_xx, total, ns, nt);
-    let s_xx_obs: f64 = k
-        .chunks(n)
-        .take(ns)
-        .map(|row| row[..ns].iter().sum::<f64>())
-        .sum();
-    let rp_obs: f64 = r[..ns].iter().sum();
-    let observed = stat(s_xx_obs, rp_obs);
-    let km = MatRef::from_row_major_slice(k, n, n);
+    let rp_obs: f64 = kc.r.iter().zip(&kc.src).map(|(r, w)| r * w).sum();
+    let observed = stat(kc.s_xx_first, rp_obs);
+    let (mf, nf) = (ns as f64, nt as f64);
+    let a = 1.0 / (mf * (mf - 1.0)) + 1.0 / (nf * (nf - 1.0)) + 2.0 / (mf * nf);
+    let big = mf.max(nf);
+    let err = a * f64::from(f32::EPSILON) / 2.0 * (kc.rms * big.powf(1.5) / 2.0 + big);
+    let lower = MatRef::from_row_major_slice(&kc.lower, n, n);
     let perm_stats: Vec<f64> = seeds
-        .par_chunks(PERM_BATCH)
+        .par_chunks(perm_batch_width(seeds.len()))
         .flat_map_iter(|batch| {
             let b = batch.len();
-            let mut p = Mat::<f64>::zeros(n, b);
+            let mut p = Mat::<f32>::zeros(n, b);
             for (c, &s) in batch.iter().enumerate() {
                 let mut idx: Vec<usize> = (0..n).collect();
                 idx.shuffle(&mut rng(s));
                 for &i in &idx[..ns] {
-                    p[(i, c)] = 1.0;
+                    p[(kc.pos[i], c)] = 1.0;
                 }
             }
-            let mut kp = Mat::<f64>::zeros(n, b);
-            matmul(kp.as_mut(), Accum::Replace, km, p.as_ref(), 1.0, Par::Seq);
+            let mut y = Mat::<f32>::zeros(n, b);
+            triangular::matmul(
+                y.as_mut(),
+                BlockStructure::Rectangular,
+                Accum::Replace,
+                lower,
+                BlockStructure::StrictTriangularLower,
+                p.as_ref(),
+                BlockStructure::Rectangular,
+                1.0f32,
+                Par::Seq,
+            );
             (0..b)
                 .map(|c| {
-                    let (mut s_xx, mut rp) = (0.0, 0.0);
-                    for i in 0..n {
-                        if p[(i, c)] == 1.0 {
-                            s_xx += kp[(i, c)];
-                            rp += r[i];
-                        }
+                    // Weights 0 or 1: a product with them and an added 0 are exact, so this
+                    // branch-free loop gives the sums over the selected rows bit for bit.
+                    let pc = p
+                        .col(c)
+                        .try_as_col_major()
+                        .expect("Mat columns are contiguous");
+                    let yc = y
+                        .col(c)
+                        .try_as_col_major()
+                        .expect("Mat columns are contiguous");
+                    let (mut q, mut rp) = (0.0, 0.0);
+                    for (((w, yi), di), ri) in pc
+                        .as_slice()
+                        .iter()
+                        .zip(yc.as_slice())
+                        .zip(&kc.diag)
+                        .zip(&kc.r)
+                    {
+                        let w = f64::from(*w);
+                        q += w * (2.0 * f64::from(*yi) + di);
+                        rp += w * ri;
                     }
+                    let s_xx = q + 2.0 * frac * rp - frac * frac * total;
                     stat(s_xx, rp)
                 })
                 .collect::<Vec<f64>>()
         })
         .collect();
-    (observed, perm_stats)
+    (observed, perm_stats, err)
 }
 
-/// (1 + #{permuted >= observed}) / (1 + permutations), with a relative tolerance of 1e-12 so
-/// that relabellings equal to the observed one up to rounding count as ties.
-fn permutation_p_value(observed: f64, permuted: &[f64]) -> f64 {
-    let tol = 1e-12 * observed.abs().max(1e-12);
+/// Columns per batch of the permutation products for `b` permutations: at most
+/// [`PERM_BATCH_MAX`], and at least [`PERM_BATCHES_MIN`] batches of 32 or more columns when `b`
+/// allows, all of equal width but the last.
+fn perm_batch_width(b: usize) -> usize {
+    let batches = b
+        .div_ceil(PERM_BATCH_MAX)
+        .max(b.div_ceil(32).min(PERM_BATCHES_MIN))
+        .max(1);
+    b.div_ceil(batches).max(1)
+}
+
+/// (1 + #{permuted >= observed}) / (1 + permutations), with a tolerance so that relabellings
+/// equal to the observed one up to rounding count as ties (discrete data has exact ties): 1e-12
+/// relative plus [`TIE_ERRORS`] times `err`, the modelled f32 error of a relabelled statistic.
+/// Counting a near-tie only raises p (conservative); at about 1e-5 of the permutation spread
+/// (N = 4,000) it adds a count with a chance near B x 1e-5 x 0.5.
+fn permutation_p_value(observed: f64, permuted: &[f64], err: f64) -> f64 {
+    let tol = 1e-12 * observed.abs().max(1e-12) + TIE_ERRORS * err;
     let exceed = permuted.iter().filter(|v| **v >= observed - tol).count();
     (1 + exceed) as f64 / (1 + permuted.len()) as f64
 }
@@ -341,23 +428,146 @@ fn mmd2_from_sums(s_xx: f64, s_xy: f64, total: f64, m: usize, n: usize) -> f64 {
     (s_xx - mf) / (mf * (mf - 1.0)) + (s_yy - nf) / (nf * (nf - 1.0)) - 2.0 * s_xy / (mf * nf)
 }
 
-/// The full Gaussian kernel matrix of the rows of `z` (row-major, unit diagonal), computed in
-/// fixed row chunks in parallel (bitwise identical for any thread count).
-fn kernel_matrix(z: MatrixView, sigma: f64) -> Vec<f64> {
+/// The Gaussian kernel matrix K of the pooled rows (unit diagonal) in the form the permutation
+/// products use: the doubly centred K~ = HKH (H = I - 11'/N) as its strict lower triangle in f32
+/// plus its diagonal in f64, and in f64 the row sums r = K 1, the total 1'K1 and the kernel sum
+/// over the first `ns` rows.
+struct CentredKernel {
+    n: usize,
+    /// Position in the matrix of each pooled row (a seeded shuffle; see [`centred_kernel`]).
+    pos: Vec<usize>,
+    /// 1.0 at the positions of the first `ns` pooled rows (the observed source rows), else 0.0.
+    src: Vec<f64>,
+    /// Root mean square of the off-diagonal entries of K~.
+    rms: f64,
+    /// Row-major N x N; entry (i, j), j < i, holds K~_ij rounded to f32; the rest is zero.
+    lower: Vec<f32>,
+    /// K~_ii = 1 - 2 c_i with c_i = r_i / N - 1'K1 / (2 N^2).
+    diag: Vec<f64>,
+    r: Vec<f64>,
+    total: f64,
+    /// 1'K1 over the first `ns` rows (diagonal included).
+    s_xx_first: f64,
+}
+
+/// Builds [`CentredKernel`] for the rows of `z`, the first `ns` of them the source rows, placed in
+/// a seeded random order (`order_seed`): the f32 sums along a row of K~ P then run over a random
+/// subset of rows whatever the input order, which keeps their partial sums random walks (with
+/// inputs sorted on a feature they would drift, and the f32 error was measured 10 times larger).
+/// Only the
+/// strict lower triangle of K is evaluated (with the shared vectorised kernel helper, in f64), in
+/// fixed chunks of [`KERNEL_CHUNK`] rows, in parallel; partial sums are combined in chunk order, so
+/// the result is bitwise identical for any thread count. O(N^2 d / 2) time; N^2 f32 values plus
+/// a KERNEL_CHUNK x N f64 scratch per thread.
+fn centred_kernel(z: MatrixView, sigma: f64, ns: usize, order_seed: u64) -> CentredKernel {
     let n = z.rows();
+    let mut order: Vec<usize> = (0..n).collect();
+    order.shuffle(&mut rng(order_seed));
+    let mut pos = vec![0; n];
+    for (k, &i) in order.iter().enumerate() {
+        pos[i] = k;
+    }
+    let src: Vec<f64> = order.iter().map(|&i| f64::from(u8::from(i < ns))).collect();
+    let shuffled = z.select_rows(&order);
+    let z = shuffled.view();
     let z_sq = kernel::row_sq_norms(z);
-    let mut k = vec![0.0; n * n];
-    k.par_chunks_mut(CHUNK_ROWS * n)
+    let mut lower = vec![0.0f32; n * n];
+    // Per chunk of rows s..e: the strictly lower row sums, the column sums over columns 0..e.
+    let parts: Vec<(Vec<f64>, Vec<f64>, f64)> = lower
+        .par_chunks_mut(KERNEL_CHUNK * n)
         .enumerate()
-        .for_each(|(c, out)| {
-            let start = c * CHUNK_ROWS;
-            let end = (start + CHUNK_ROWS).min(n);
-            kernel::kernel_block_into(z.slice_rows(start, end), z, &z_sq, sigma, out);
-            for i in start..end {
-                out[(i - start) * n + i] = 1.0;
-            }
-        });
-    k
+        .map_init(Vec::new, |buf: &mut Vec<f64>, (c, out)| {
+            let s = c * KERNEL_CHUNK;
+            let e = (s + KERNEL_CHUNK).min(n);
+            buf.resize((e - s) * e, 0.0);
+            kernel::kernel_block_into(
+                z.slice_rows(s, e),
+                z.slice_rows(0, e),
+                &z_sq[..e],
+                sigma,
+                buf,
+            );
+            let mut rows = Vec::with_capacity(e - s);
+            let mut cols = vec![0.0; e];
+            let mut xx = 0.0;
+            kernel::with_wide_simd(|| {
+                for i in s..e {
+                    let k_row = &buf[(i - s) * e..(i - s) * e + i];
+                    rows.push(sum_f64(k_row));
+                    if src[i] == 1.0 {
+                        xx += k_row.iter().zip(&src).map(|(k, w)| k * w).sum::<f64>();
+                    }
+                    for (cj, v) in cols.iter_mut().zip(k_row) {
+                        *cj += v;
+                    }
+                    for (o, v) in out[(i - s) * n..(i - s) * n + i].iter_mut().zip(k_row) {
+                        *o = *v as f32;
+                    }
+                }
+            });
+            (rows, cols, xx)
+        })
+        .collect();
+    let mut r = vec![1.0; n];
+    let mut lower_xx = 0.0;
+    for (c, (rows, cols, xx)) in parts.iter().enumerate() {
+        let s = c * KERNEL_CHUNK;
+        for (k, v) in rows.iter().enumerate() {
+            r[s + k] += v;
+        }
+        lower_xx += xx;
+        for (rj, v) in r.iter_mut().zip(cols) {
+            *rj += v;
+        }
+    }
+    let total = sum_f64(&r);
+    let nf = n as f64;
+    let shift = total / (2.0 * nf * nf);
+    let cen: Vec<f64> = r.iter().map(|ri| ri / nf - shift).collect();
+    let sq_parts: Vec<f64> = lower
+        .par_chunks_mut(KERNEL_CHUNK * n)
+        .enumerate()
+        .map(|(c, out)| {
+            kernel::with_wide_simd(|| {
+                let mut sq = 0.0;
+                for (k, row) in out.chunks_exact_mut(n).enumerate() {
+                    let i = c * KERNEL_CHUNK + k;
+                    let ci = cen[i];
+                    for (o, cj) in row[..i].iter_mut().zip(&cen) {
+                        *o = (f64::from(*o) - ci - cj) as f32;
+                    }
+                    sq += row[..i].iter().map(|v| f64::from(*v).powi(2)).sum::<f64>();
+                }
+                sq
+            })
+        })
+        .collect();
+    let pairs = (nf * (nf - 1.0) / 2.0).max(1.0);
+    let rms = (sq_parts.iter().sum::<f64>() / pairs).sqrt();
+    CentredKernel {
+        n,
+        pos,
+        src,
+        rms,
+        lower,
+        diag: cen.iter().map(|c| 1.0 - 2.0 * c).collect(),
+        r,
+        total,
+        s_xx_first: ns as f64 + 2.0 * lower_xx,
+    }
+}
+
+/// Sum with four interleaved accumulators (a fixed order, so deterministic; vectorises).
+fn sum_f64(v: &[f64]) -> f64 {
+    let mut acc = [0.0; 4];
+    let mut quads = v.chunks_exact(4);
+    for q in &mut quads {
+        for l in 0..4 {
+            acc[l] += q[l];
+        }
+    }
+    let tail: f64 = quads.remainder().iter().sum();
+    (acc[0] + acc[1]) + (acc[2] + acc[3]) + tail
 }
 
 #[cfg(test)]
@@ -415,6 +625,149 @@ mod tests {
             "{} vs {direct}",
             r.statistic
         );
+    }
+
+    /// Float64 reference for the relabelled statistics: the full kernel matrix in f64 and, for the
+    /// same seeded shuffles, MMD^2_u from its definition (Gretton et al. 2012, eq. 3) as sums over
+    /// the selected pairs.
+    fn reference_f64(z: MatrixView, ns: usize, sigma: f64, seeds: &[u64]) -> Vec<f64> {
+        let n = z.rows();
+        let k = kernel::kernel_block(z, z, sigma);
+        let (mf, nf) = (ns as f64, (n - ns) as f64);
+        seeds
+            .iter()
+            .map(|&s| {
+                let mut idx: Vec<usize> = (0..n).collect();
+                idx.shuffle(&mut rng(s));
+                let mut src = vec![false; n];
+                for &i in &idx[..ns] {
+                    src[i] = true;
+                }
+                let (mut xx, mut yy, mut xy) = (0.0, 0.0, 0.0);
+                for i in 0..n {
+                    for j in 0..n {
+                        let v = k[i * n + j];
+                        match (src[i], src[j]) {
+                            (true, true) if i != j => xx += v,
+                            (false, false) if i != j => yy += v,
+                            (true, false) => xy += v,
+                            _ => {}
+                        }
+                    }
+                }
+                xx / (mf * (mf - 1.0)) + yy / (nf * (nf - 1.0)) - 2.0 * xy / (mf * nf)
+            })
+            .collect()
+    }
+
+    /// Rows sorted on their first feature (row-major, `d` columns).
+    fn sorted_rows(v: &[f64], d: usize) -> Vec<f64> {
+        let mut rows: Vec<&[f64]> = v.chunks(d).collect();
+        rows.sort_by(|a, b| a[0].total_cmp(&b[0]));
+        rows.concat()
+    }
+
+    #[test]
+    fn f32_permutation_statistics_match_f64_reference() {
+        // No shift: the observed statistic sits inside the permutation distribution, where
+        // rounding could move a relabelled statistic across it. Random and sorted row orders.
+        for sorted in [false, true] {
+            f32_against_f64(sorted);
+        }
+    }
+
+    fn f32_against_f64(sorted: bool) {
+        let (ns, nt, d, b) = (900, 1100, 3, 200);
+        let mut s = gaussian(ns, d, 0.0, 11);
+        let mut t = gaussian(nt, d, 0.0, 12);
+        if sorted {
+            s = sorted_rows(&s, d);
+            t = sorted_rows(&t, d);
+        }
+        let (sv, tv) = (
+            MatrixView::new(&s, ns, d).unwrap(),
+            MatrixView::new(&t, nt, d).unwrap(),
+        );
+        let test = MmdShiftTest::new().permutations(b).seed(5);
+        let res = test.run(sv, tv).unwrap();
+        let (z, _) = pooled_standardized(sv, tv);
+        let sigma = kernel::median_distance(&[z.view()], 5 ^ TAG_MEDIAN);
+        let mut gen = rng(5 ^ TAG_PERM);
+        let seeds: Vec<u64> = (0..b).map(|_| gen.next_u64()).collect();
+        let (observed, ours, err) = permutation_statistics(
+            &centred_kernel(z.view(), sigma, ns, 5 ^ TAG_ORDER),
+            ns,
+            &seeds,
+        );
+        let reference = reference_f64(z.view(), ns, sigma, &seeds);
+        let mean = reference.iter().sum::<f64>() / b as f64;
+        let sd =
+            (reference.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (b - 1) as f64).sqrt();
+        let worst = ours
+            .iter()
+            .zip(&reference)
+            .map(|(a, r)| (a - r).abs())
+            .fold(0.0, f64::max);
+        // Tolerance: the module docs' error model predicts about 1e-6 of the spread at this size;
+        // at 1e-4 of it a p-value from 1,000 permutations would change with a probability near
+        // 0.1 (B x 2 x error x density 0.5 / sd), so above it "cannot change a p-value in
+        // practice" would be false.
+        assert!(
+            worst <= 1e-4 * sd,
+            "largest f32 error {worst:e} against a permutation sd of {sd:e}"
+        );
+        assert_eq!(observed, res.statistic);
+        assert_eq!(res.p_value, permutation_p_value(observed, &reference, err));
+        // The modelled error (module docs) is of the order of the measured one.
+        assert!(worst <= TIE_ERRORS * err, "error {worst:e}, model {err:e}");
+        // The case the check is about: a p-value inside (0, 1), i.e. relabelled statistics on both
+        // sides of the observed one.
+        assert!(
+            res.p_value > 0.05 && res.p_value < 0.95,
+            "p = {}",
+            res.p_value
+        );
+    }
+
+    #[test]
+    fn exact_ties_count_as_ties() {
+        // One binary feature: a relabelling's statistic depends only on how many 1s the rows
+        // called "source" hold, so relabellings with the observed count tie with the observed
+        // statistic exactly. The p-value must count them (its definition, module docs); the
+        // others are compared with the f64 reference (sums from Gretton et al. 2012, eq. 3).
+        let (ns, nt, b) = (600, 640, 200);
+        let bit = |i: usize, seed: usize| f64::from(u8::from((i * 7 + seed) % 5 < 2));
+        let s: Vec<f64> = (0..ns).map(|i| bit(i, 0)).collect();
+        let t: Vec<f64> = (0..nt).map(|i| bit(i, 1)).collect();
+        let (sv, tv) = (
+            MatrixView::new(&s, ns, 1).unwrap(),
+            MatrixView::new(&t, nt, 1).unwrap(),
+        );
+        let res = MmdShiftTest::new()
+            .sigma(Some(1.0))
+            .permutations(b)
+            .seed(2)
+            .run(sv, tv)
+            .unwrap();
+        let pooled: Vec<f64> = s.iter().chain(&t).copied().collect();
+        let ones = |rows: &[usize]| rows.iter().filter(|&&i| pooled[i] == 1.0).count();
+        let observed_ones = ones(&(0..ns).collect::<Vec<_>>());
+        let (z, _) = pooled_standardized(sv, tv);
+        let mut gen = rng(2 ^ TAG_PERM);
+        let seeds: Vec<u64> = (0..b).map(|_| gen.next_u64()).collect();
+        let reference = reference_f64(z.view(), ns, 1.0, &seeds);
+        let (mut ties, mut above) = (0, 0);
+        for (&seed, v) in seeds.iter().zip(&reference) {
+            let mut idx: Vec<usize> = (0..ns + nt).collect();
+            idx.shuffle(&mut rng(seed));
+            if ones(&idx[..ns]) == observed_ones {
+                ties += 1;
+            } else if *v > res.statistic {
+                above += 1;
+            }
+        }
+        assert!(ties > 0, "the case must have exact ties");
+        assert_eq!(res.p_value, (1 + ties + above) as f64 / (1 + b) as f64);
     }
 
     #[test]
