@@ -4,7 +4,9 @@
 //!   unpenalised: scikit-learn's `LogisticRegression(C = 1/l2)` with `sample_weight`. Binary labels
 //!   {0, 1}. Solved by Newton's method with backtracking on internally standardised columns (the
 //!   penalty is transformed so the solution is that of the raw problem). Each iteration is O(n p^2)
-//!   accumulated over row chunks in parallel, plus O(p^3); memory O(p^2) beyond the input.
+//!   accumulated over row chunks in parallel, plus O(p^3), except chord steps near the solution
+//!   (the last Hessian reused), which are O(n p); memory O(p^2) beyond the input, plus a copy of
+//!   the 50,000-row start subsample on inputs of 400,000 rows or more.
 //! - [`WeightedRidge`] minimises `sum_i w_i (y_i - x_i beta - b)^2 + l2 |beta|^2`: scikit-learn's
 //!   `Ridge(alpha = l2)` with `sample_weight`. One pass, O(n p^2 + p^3).
 //!
@@ -142,6 +144,31 @@ pub fn log1pexp(t: f64) -> f64 {
     }
 }
 
+/// log(1 + u) for u in [0, 1] (the loss term of the logistic pass, u = exp(-|t|)), written without
+/// calls or branches so that the pass's row loop vectorises. 1 + u is formed with its rounding
+/// error c (exact, as 1 >= u), reduced to m in [sqrt(1/2), sqrt(2)] by halving when above
+/// sqrt(2), and log m = 2 atanh(s), s = (m - 1) / (m + 1), |s| <= 0.172, by its series to s^23
+/// (truncation below 1e-18 relative); the rounding error adds c / (1 + u). Agrees with
+/// `f64::ln_1p` to a few units in the last place.
+#[inline(always)]
+fn log1p_unit(u: f64) -> f64 {
+    const LN2: f64 = std::f64::consts::LN_2;
+    const SQRT2: f64 = std::f64::consts::SQRT_2;
+    let x = 1.0 + u;
+    let c = u - (x - 1.0);
+    let big = x > SQRT2;
+    let m = if big { 0.5 * x } else { x };
+    let k = if big { LN2 } else { 0.0 };
+    let s = (m - 1.0) / (m + 1.0);
+    let s2 = s * s;
+    // 1/(2j + 1) for j = 0..=11, in Horner's scheme on s^2.
+    let mut q = 1.0 / 23.0;
+    for d in [21.0, 19.0, 17.0, 15.0, 13.0, 11.0, 9.0, 7.0, 5.0, 3.0, 1.0] {
+        q = q * s2 + 1.0 / d;
+    }
+    k + 2.0 * s * q + c / x
+}
+
 /// Column means and scales (1 for constant columns) used to condition the solvers.
 fn column_scaling(x: MatrixView) -> (Vec<f64>, Vec<f64>) {
     let st = crate::data::Standardizer::fit(&[x]);
@@ -251,10 +278,11 @@ const NEWTON_BLOCK: usize = 256;
 
 thread_local! {
     /// Per-thread scratch of the Newton pass (rows of [z, 1], then the same scaled by
-    /// sqrt(w p (1 - p)); linear predictors; residuals): reused across chunks and passes, so the
-    /// pass allocates nothing per row or per block.
-    static NEWTON_SCRATCH: std::cell::RefCell<(Vec<f64>, Vec<f64>, Vec<f64>)> =
-        const { std::cell::RefCell::new((Vec::new(), Vec::new(), Vec::new())) };
+    /// sqrt(w p (1 - p)); linear predictors; residuals; loss terms): reused across chunks and
+    /// passes, so the pass allocates nothing per row or per block.
+    #[allow(clippy::type_complexity)]
+    static NEWTON_SCRATCH: std::cell::RefCell<(Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>)> =
+        const { std::cell::RefCell::new((Vec::new(), Vec::new(), Vec::new(), Vec::new())) };
 }
 
 /// The weighted, penalised logistic loss on standardised columns z = (x - mean) / scale with the
@@ -269,11 +297,11 @@ struct LogisticLoss<'a> {
     pen: Vec<f64>,
 }
 
-/// Objective, gradient and Hessian at one point.
+/// Objective, gradient and (when asked for) Hessian at one point.
 struct Evaluation {
     f: f64,
     grad: Vec<f64>,
-    hess: Mat<f64>,
+    hess: Option<Mat<f64>>,
 }
 
 impl<'a> LogisticLoss<'a> {
@@ -311,24 +339,27 @@ impl<'a> LogisticLoss<'a> {
     /// of rows: the rows of [z, 1], the linear predictors as one matrix-vector product, the
     /// gradient as a second, and the Hessian as one symmetric rank-k update of the rows scaled by
     /// sqrt(w p (1 - p)); chunks in parallel through `par::reduce_chunks` (deterministic).
-    fn evaluate(&self, th: &[f64]) -> Evaluation {
+    /// Without `with_hess` the row scaling and the rank-k update are skipped (a gradient pass).
+    fn evaluate(&self, th: &[f64], with_hess: bool) -> Evaluation {
         let (x, y, w) = (self.x, self.y, self.w);
         let d = x.cols();
         let p = d + 1;
         let thm = MatRef::from_column_major_slice(th, p, 1);
+        let hp = if with_hess { p } else { 0 };
         let (f, grad, mut hess) = par::reduce_chunks(
             self.rows(),
-            (0.0f64, Mat::<f64>::zeros(p, 1), Mat::<f64>::zeros(p, p)),
+            (0.0f64, Mat::<f64>::zeros(p, 1), Mat::<f64>::zeros(hp, hp)),
             |s, e| {
                 let mut f = 0.0;
                 let mut g = Mat::<f64>::zeros(p, 1);
-                let mut h = Mat::<f64>::zeros(p, p);
+                let mut h = Mat::<f64>::zeros(hp, hp);
                 NEWTON_SCRATCH.with(|cell| {
                     let mut scratch = cell.borrow_mut();
-                    let (zb, eta, resid) = &mut *scratch;
+                    let (zb, eta, resid, term) = &mut *scratch;
                     zb.resize(NEWTON_BLOCK * p, 0.0);
                     eta.resize(NEWTON_BLOCK, 0.0);
                     resid.resize(NEWTON_BLOCK, 0.0);
+                    term.resize(NEWTON_BLOCK, 0.0);
                     let mut b0 = s;
                     while b0 < e {
                         let b1 = (b0 + NEWTON_BLOCK).min(e);
@@ -351,20 +382,32 @@ impl<'a> LogisticLoss<'a> {
                             1.0,
                             Par::Seq,
                         );
-                        for r in 0..m {
-                            let i = b0 + r;
-                            let t = eta[r];
-                            // One exponential serves the loss and the probability.
-                            let ex = (-t.abs()).exp();
-                            let pr = if t >= 0.0 {
-                                1.0 / (1.0 + ex)
-                            } else {
-                                ex / (1.0 + ex)
-                            };
-                            f += w[i] * (t.max(0.0) + ex.ln_1p() - y[i] * t);
-                            resid[r] = w[i] * (pr - y[i]);
-                            // eta's slot now holds the row's scale sqrt(w p (1 - p)).
-                            eta[r] = (w[i] * pr * (1.0 - pr)).sqrt();
+                        // Branch-free, call-free row loop (vectorised exp and log1p) over the
+                        // block; the loss terms are summed afterwards in row order.
+                        let (wb, yb) = (&w[b0..b1], &y[b0..b1]);
+                        crate::kernel::with_wide_simd(|| {
+                            for ((((et, rs), tm), wi), yi) in eta[..m]
+                                .iter_mut()
+                                .zip(&mut resid[..m])
+                                .zip(&mut term[..m])
+                                .zip(wb)
+                                .zip(yb)
+                            {
+                                let t = *et;
+                                // One exponential serves the loss and the probability.
+                                let ex = crate::kernel::exp_nonpositive(-t.abs());
+                                let inv = 1.0 / (1.0 + ex);
+                                let pr = if t >= 0.0 { inv } else { ex * inv };
+                                *tm = wi * (t.max(0.0) + log1p_unit(ex) - yi * t);
+                                *rs = wi * (pr - yi);
+                                if with_hess {
+                                    // eta's slot now holds the row's scale sqrt(w p (1 - p)).
+                                    *et = (wi * pr * (1.0 - pr)).sqrt();
+                                }
+                            }
+                        });
+                        for v in &term[..m] {
+                            f += v;
                         }
                         faer::linalg::matmul::matmul(
                             g.as_mut(),
@@ -374,12 +417,14 @@ impl<'a> LogisticLoss<'a> {
                             1.0,
                             Par::Seq,
                         );
-                        for (zrow, sw) in zb[..m * p].chunks_exact_mut(p).zip(&eta[..m]) {
-                            zrow.iter_mut().for_each(|v| *v *= sw);
+                        if with_hess {
+                            for (zrow, sw) in zb[..m * p].chunks_exact_mut(p).zip(&eta[..m]) {
+                                zrow.iter_mut().for_each(|v| *v *= sw);
+                            }
+                            // Symmetric rank-m update: lower triangle only (half the flops).
+                            let zm = MatRef::from_row_major_slice(&zb[..m * p], m, p);
+                            crate::kernel::gram_lower(h.as_mut(), zm, faer::Accum::Add);
                         }
-                        // Symmetric rank-m update: lower triangle only (half the flops).
-                        let zm = MatRef::from_row_major_slice(&zb[..m * p], m, p);
-                        crate::kernel::gram_lower(h.as_mut(), zm, faer::Accum::Add);
                         b0 = b1;
                     }
                 });
@@ -396,13 +441,15 @@ impl<'a> LogisticLoss<'a> {
         for j in 0..d {
             grad[j] += self.pen[j] * th[j];
             pen_sum += self.pen[j] * th[j] * th[j];
-            hess[(j, j)] += self.pen[j];
+            if with_hess {
+                hess[(j, j)] += self.pen[j];
+            }
         }
         crate::kernel::mirror_lower(&mut hess);
         Evaluation {
             f: f + 0.5 * pen_sum,
             grad,
-            hess,
+            hess: with_hess.then_some(hess),
         }
     }
 }
@@ -493,7 +540,7 @@ fn fit_logistic_inner(
         let share = ws.iter().sum::<f64>() / wsum;
         if share > 0.0 && share.is_finite() {
             let sub = LogisticLoss::new(xsv, &ys, &ws, l2 * share, &mean, &scale);
-            if let Ok((t, _)) = newton(&sub, theta.clone(), max_iter, tol, false) {
+            if let Ok((t, _, _)) = newton(&sub, theta.clone(), max_iter, tol, false, None) {
                 if t.iter().all(|v| v.is_finite()) {
                     start = Some(t);
                 }
@@ -515,31 +562,52 @@ fn fit_logistic_inner(
         theta = t;
     }
     let loss = LogisticLoss::new(x, y, w, l2, &mean, &scale);
-    let (theta, it) = newton(&loss, theta, max_iter, tol, check_first)?;
+    let (theta, it, _) = newton(&loss, theta, max_iter, tol, check_first, None)?;
     Ok(unscale(&theta, &mean, &scale, it))
 }
 
 /// Rows of the evenly spaced subsample whose solution starts Newton's method on large inputs.
 const START_SUBSAMPLE_ROWS: usize = 50_000;
 
-/// Newton's method with backtracking from `theta` (see [`fit_logistic`]); returns the solution
-/// and the number of Newton steps. With `check_first`, a non-finite objective or gradient at the
-/// first pass is reported through [`MatrixView::validate`] when the input holds a non-finite value.
+/// A factorised Hessian kept for chord steps (Newton steps with an earlier Hessian), with the
+/// factor its solve is multiplied by (the subsample's Hessian, scaled to the full data).
+type Chord = (faer::linalg::solvers::Llt<f64>, f64);
+
+/// A fresh Newton step whose decrement g' H^-1 g is below this times the total weight is close
+/// enough to the solution (relative coefficient error about its square root) that the Hessian
+/// changes by less than about 0.1% before convergence: the next steps reuse it (chord steps)
+/// with passes that skip the Hessian. A chord step contracts the error by about that relative
+/// change, so a chord step whose decrement fell less than [`CHORD_CONTRACTION`]-fold makes the
+/// next pass compute the Hessian again.
+const CHORD_DECREMENT: f64 = 1e-6;
+/// Least fall of the decrement from one chord step to the next (a contraction of the error by
+/// 10 per step) for the next step to keep the old Hessian.
+const CHORD_CONTRACTION: f64 = 100.0;
+
+/// Newton's method with backtracking from `theta` (see [`fit_logistic`]); returns the solution,
+/// the number of steps and the last factorised Hessian used. With `check_first`, a non-finite
+/// objective or gradient at the first pass is reported through [`MatrixView::validate`] when the
+/// input holds a non-finite value. `chord` is a Hessian to start with (chord steps, see
+/// [`CHORD_DECREMENT`]); a chord step that does not decrease the objective is retaken from the
+/// same point with the Hessian there.
 fn newton(
     loss: &LogisticLoss,
     mut theta: Vec<f64>,
     max_iter: usize,
     tol: f64,
     mut check_first: bool,
-) -> Result<(Vec<f64>, usize)> {
+    mut chord: Option<Chord>,
+) -> Result<(Vec<f64>, usize, Option<Chord>)> {
     let p = theta.len();
     let wsum = loss.weight_sum();
 
     // The last accepted point, its objective, the Newton step taken from it and the step length.
     let mut last: Option<(Vec<f64>, f64, Vec<f64>, f64)> = None;
+    // Decrement of the last chord step (infinite after a fresh Newton step).
+    let mut prev_chord_dec = f64::INFINITY;
     let mut it = 0;
     loop {
-        let ev = loss.evaluate(&theta);
+        let ev = loss.evaluate(&theta, chord.is_none());
         if check_first {
             check_first = false;
             if !(ev.f.is_finite() && ev.grad.iter().all(|g| g.is_finite())) {
@@ -549,10 +617,18 @@ fn newton(
         if let Some((base, f_base, step, t)) = last.take() {
             let decreased = ev.f.is_finite() && ev.f <= f_base + 1e-12 * f_base.abs().max(1.0);
             if !decreased {
+                if chord.is_some() {
+                    // The old Hessian gave a poor step: retake it from `base` with the Hessian
+                    // there.
+                    chord = None;
+                    prev_chord_dec = f64::INFINITY;
+                    theta = base;
+                    continue;
+                }
                 let t = 0.5 * t;
                 if t < 1e-12 {
                     // No further decrease possible at double precision: this is the optimum.
-                    return Ok((base, it));
+                    return Ok((base, it, chord));
                 }
                 theta = (0..p).map(|j| base[j] - t * step[j]).collect();
                 last = Some((base, f_base, step, t));
@@ -560,13 +636,13 @@ fn newton(
             }
             let smax = (0..p).fold(0.0f64, |a, j| a.max((t * step[j]).abs()));
             if smax < 1e-13 * (1.0 + theta.iter().fold(0.0f64, |a, v| a.max(v.abs()))) {
-                return Ok((theta, it));
+                return Ok((theta, it, chord));
             }
         }
         let grad = ev.grad;
         let gmax = grad.iter().fold(0.0f64, |a, v| a.max(v.abs()));
         if gmax <= tol * wsum.max(1.0) {
-            return Ok((theta, it));
+            return Ok((theta, it, chord));
         }
         if it == max_iter {
             return Err(Error::Numerical {
@@ -574,25 +650,43 @@ fn newton(
                 reason: format!("no convergence in {max_iter} Newton iterations (largest gradient entry {gmax:.3e}); raise max_iter or l2"),
             });
         }
-        let mut h = ev.hess;
-        // A tiny ridge on the diagonal keeps separable or collinear problems solvable.
-        let jitter = 1e-12 * (1.0 + (0..p).map(|j| h[(j, j)]).fold(0.0, f64::max));
-        for j in 0..p {
-            h[(j, j)] += jitter;
-        }
-        let llt = h.llt(Side::Lower).map_err(|e| Error::Numerical {
-            context: "weighted logistic Newton step".into(),
-            reason: format!("{e:?}; the classes may be perfectly separable, try a larger l2"),
-        })?;
+        let is_chord = chord.is_some();
+        let (llt, factor) = match chord.take() {
+            Some(c) => c,
+            None => {
+                let mut h = ev.hess.expect("a pass without a kept Hessian computes one");
+                // A tiny ridge on the diagonal keeps separable or collinear problems solvable.
+                let jitter = 1e-12 * (1.0 + (0..p).map(|j| h[(j, j)]).fold(0.0, f64::max));
+                for j in 0..p {
+                    h[(j, j)] += jitter;
+                }
+                let llt = h.llt(Side::Lower).map_err(|e| Error::Numerical {
+                    context: "weighted logistic Newton step".into(),
+                    reason: format!(
+                        "{e:?}; the classes may be perfectly separable, try a larger l2"
+                    ),
+                })?;
+                (llt, 1.0)
+            }
+        };
         let sol = llt.solve(Mat::<f64>::from_fn(p, 1, |i, _| grad[i]));
-        let step: Vec<f64> = (0..p).map(|j| sol[(j, 0)]).collect();
+        let step: Vec<f64> = (0..p).map(|j| factor * sol[(j, 0)]).collect();
         let decrement: f64 = step.iter().zip(&grad).map(|(a, b)| a * b).sum();
         it += 1;
         let next: Vec<f64> = (0..p).map(|j| theta[j] - step[j]).collect();
         if decrement.is_finite() && (0.0..=1e-14 * wsum.max(1.0)).contains(&decrement) {
             // Inside the region of quadratic convergence: the full step is the solution to
             // within rounding; no further pass is needed.
-            return Ok((next, it));
+            return Ok((next, it, Some((llt, factor))));
+        }
+        let keep = if is_chord {
+            decrement * CHORD_CONTRACTION <= prev_chord_dec
+        } else {
+            decrement <= CHORD_DECREMENT * wsum.max(1.0)
+        };
+        prev_chord_dec = if is_chord { decrement } else { f64::INFINITY };
+        if keep {
+            chord = Some((llt, factor));
         }
         last = Some((theta, ev.f, step, 1.0));
         theta = next;
@@ -777,6 +871,30 @@ mod tests {
         assert!(validate_weights(&[0.0, 0.0], 2, "w").is_err());
         assert!(validate_weights(&[1.0], 2, "w").is_err());
         assert!(validate_weights(&[1.0, f64::NAN], 2, "w").is_err());
+    }
+
+    #[test]
+    fn log1p_unit_matches_std_ln_1p() {
+        // Reference: Rust's f64::ln_1p (the platform libm) over [0, 1], including both sides of
+        // the sqrt(2) - 1 switch and tiny arguments; a few units in the last place.
+        let mut worst = 0.0f64;
+        for k in 0..=100_000 {
+            let u = k as f64 / 100_000.0;
+            for v in [
+                u,
+                u * 1e-9,
+                (std::f64::consts::SQRT_2 - 1.0) * (1.0 + (u - 0.5) * 1e-12),
+            ] {
+                let (a, b) = (log1p_unit(v), v.ln_1p());
+                let rel = if b == 0.0 {
+                    a.abs()
+                } else {
+                    ((a - b) / b).abs()
+                };
+                worst = worst.max(rel);
+            }
+        }
+        assert!(worst < 4.0 * f64::EPSILON, "worst relative error {worst:e}");
     }
 
     #[test]
