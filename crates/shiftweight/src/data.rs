@@ -82,6 +82,21 @@ impl<'a> MatrixView<'a> {
     /// Checks the matrix for use as `argument`: at least `min_rows` rows, at least one column,
     /// every value finite. Errors name the argument and the first offending row and column.
     pub fn validate(&self, argument: &str, min_rows: usize) -> Result<()> {
+        self.validate_shape(argument, min_rows)?;
+        if let Some(pos) = self.data.iter().position(|v| !v.is_finite()) {
+            return Err(Error::NonFinite {
+                argument: argument.to_string(),
+                row: pos / self.cols,
+                column: pos % self.cols,
+                value: self.data[pos],
+            });
+        }
+        Ok(())
+    }
+
+    /// The shape half of [`MatrixView::validate`] (at least `min_rows` rows, at least one column)
+    /// without the pass over the values, for callers that check the values later themselves.
+    pub fn validate_shape(&self, argument: &str, min_rows: usize) -> Result<()> {
         if self.cols == 0 {
             return Err(Error::NoFeatures {
                 argument: argument.to_string(),
@@ -92,14 +107,6 @@ impl<'a> MatrixView<'a> {
                 argument: argument.to_string(),
                 found: self.rows,
                 required: min_rows,
-            });
-        }
-        if let Some(pos) = self.data.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite {
-                argument: argument.to_string(),
-                row: pos / self.cols,
-                column: pos % self.cols,
-                value: self.data[pos],
             });
         }
         Ok(())

@@ -256,8 +256,10 @@ pub(crate) fn kernel_sums_of(
 /// thread count).
 const LOO_BLOCK: usize = 256;
 
-/// Held-out LOO scores of every lambda for one width. `ks`, `kt`: kernel values at the held-out
-/// source and target rows, row-major m x b. `base` = (1-alpha)/(n_s-1) S_s + alpha/(n_t-1) S_t.
+/// Held-out LOO scores of every lambda for one width `sigma`. `ds`, `dt`: squared distances of the
+/// held-out source and target rows to the centres, row-major m x b (shared by every width); each
+/// block turns its rows into kernel values in a block-sized buffer, so no m x b kernel matrix is
+/// allocated per width. `base` = (1-alpha)/(n_s-1) S_s + alpha/(n_t-1) S_t.
 ///
 /// The held-out pairs are processed in fixed blocks of [`LOO_BLOCK`] in parallel; each block
 /// returns its partial sum of the criterion for every lambda, folded in block order (bitwise
@@ -266,8 +268,9 @@ const LOO_BLOCK: usize = 256;
 fn loo_scores(
     base: &Mat<f64>,
     sum_t: &[f64],
-    ks: &[f64],
-    kt: &[f64],
+    ds: &[f64],
+    dt: &[f64],
+    sigma: f64,
     m: usize,
     n_s: usize,
     n_t: usize,
@@ -302,8 +305,11 @@ fn loo_scores(
         init,
         |start, end| {
             let mb = end - start;
-            let ksb = &ks[start * b..end * b];
-            let ktb = &kt[start * b..end * b];
+            let mut ksb = vec![0.0; mb * b];
+            let mut ktb = vec![0.0; mb * b];
+            kernel::gaussian_from(&ds[start * b..end * b], sigma, &mut ksb);
+            kernel::gaussian_from(&dt[start * b..end * b], sigma, &mut ktb);
+            let (ksb, ktb) = (&ksb[..], &ktb[..]);
             let ksm = MatRef::from_row_major_slice(ksb, mb, b).transpose(); // b x mb
             let ktm = MatRef::from_row_major_slice(ktb, mb, b).transpose();
             let mut g = Mat::<f64>::zeros(b, mb);
@@ -324,60 +330,24 @@ fn loo_scores(
                 1.0,
                 Par::Seq,
             );
+            // (gt - f_i) / (n_t - 1) for every held-out pair: the part of the held-out right-hand
+            // side in eigen-coordinates that does not depend on lambda.
+            let mut e = Mat::<f64>::zeros(b, mb);
+            for i in 0..mb {
+                let fi = col(&f, i);
+                let ei = col_mut(&mut e, i);
+                for j in 0..b {
+                    ei[j] = (gt[j] - fi[j]) / nt1;
+                }
+            }
             let mut tot = vec![0.0; n_l];
             let mut bad = vec![false; n_l];
             let mut tt = Mat::<f64>::zeros(b, mb);
             let mut theta = Mat::<f64>::zeros(b, mb);
             for (li, dinv) in dinv.iter().enumerate() {
                 // theta~ in eigen-coordinates for every held-out pair (columns).
-                for i in 0..mb {
-                    let gi = g
-                        .col(i)
-                        .try_as_col_major()
-                        .expect("column-major")
-                        .as_slice();
-                    let fi = f
-                        .col(i)
-                        .try_as_col_major()
-                        .expect("column-major")
-                        .as_slice();
-                    let (mut uu, mut uv, mut vv, mut uy, mut vy) = (0.0, 0.0, 0.0, 0.0, 0.0);
-                    for j in 0..b {
-                        let (uj, vj, dj) = (gi[j], fi[j], dinv[j]);
-                        let yj = dj * (gt[j] - vj) / nt1;
-                        uu += uj * dj * uj;
-                        uv += uj * dj * vj;
-                        vv += vj * dj * vj;
-                        uy += uj * yj;
-                        vy += vj * yj;
-                    }
-                    let (z0, z1) = if alpha == 0.0 {
-                        let den = 1.0 / p - uu;
-                        if den.abs() < 1e-12 * (1.0 / p) {
-                            bad[li] = true;
-                            break;
-                        }
-                        (uy / den, 0.0)
-                    } else {
-                        let (m00, m01, m11) = (1.0 / p - uu, -uv, 1.0 / q - vv);
-                        let det = m00 * m11 - m01 * m01;
-                        if det.abs() < 1e-12 * (m00.abs() * m11.abs()).max(1e-300) {
-                            bad[li] = true;
-                            break;
-                        }
-                        ((m11 * uy - m01 * vy) / det, (m00 * vy - m01 * uy) / det)
-                    };
-                    let ti = tt
-                        .col_mut(i)
-                        .try_as_col_major_mut()
-                        .expect("column-major")
-                        .as_slice_mut();
-                    for j in 0..b {
-                        let dj = dinv[j];
-                        ti[j] = dj * (gt[j] - fi[j]) / nt1 + dj * gi[j] * z0 + dj * fi[j] * z1;
-                    }
-                }
-                if bad[li] {
+                if held_out_coefficients(&g, &f, &e, &mut tt, dinv, alpha, p, q) {
+                    bad[li] = true;
                     continue;
                 }
                 matmul(
@@ -388,22 +358,7 @@ fn loo_scores(
                     1.0,
                     Par::Seq,
                 );
-                let mut total = 0.0;
-                for i in 0..mb {
-                    let th = theta
-                        .col(i)
-                        .try_as_col_major()
-                        .expect("column-major")
-                        .as_slice();
-                    let (ksi, kti) = (&ksb[i * b..(i + 1) * b], &ktb[i * b..(i + 1) * b]);
-                    let (mut rs, mut rt) = (0.0, 0.0);
-                    for j in 0..b {
-                        let th = th[j].max(0.0);
-                        rs += ksi[j] * th;
-                        rt += kti[j] * th;
-                    }
-                    total += a * rs * rs / 2.0 + alpha * rt * rt / 2.0 - rt;
-                }
+                let total = held_out_total(&theta, ksb, ktb, a, alpha);
                 tot[li] = total;
             }
             (tot, bad)
@@ -420,6 +375,256 @@ fn loo_scores(
         .zip(&bad)
         .map(|(t, bad)| if *bad { f64::INFINITY } else { t / m as f64 })
         .collect())
+}
+
+/// The held-out coefficients in eigen-coordinates of every pair of a block (columns of `tt`) for
+/// one lambda (`dinv` = 1 / (eigenvalue + lambda)): the 1 x 1 (uLSIF) or 2 x 2 (RuLSIF) Woodbury
+/// system of each pair, then tt_i = D (e_i + z0 g_i + z1 f_i). Returns true when some pair's
+/// system is singular. Compiled for AVX2 when the CPU has it (the body is too large for
+/// [`kernel::with_wide_simd`]'s closure to be inlined into its wide version; the arithmetic is the
+/// same in both, so results are bitwise equal).
+#[allow(clippy::too_many_arguments)]
+fn held_out_coefficients(
+    g: &Mat<f64>,
+    f: &Mat<f64>,
+    e: &Mat<f64>,
+    tt: &mut Mat<f64>,
+    dinv: &[f64],
+    alpha: f64,
+    p: f64,
+    q: f64,
+) -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        #[target_feature(enable = "avx2")]
+        #[allow(clippy::too_many_arguments)]
+        unsafe fn wide(
+            g: &Mat<f64>,
+            f: &Mat<f64>,
+            e: &Mat<f64>,
+            tt: &mut Mat<f64>,
+            dinv: &[f64],
+            alpha: f64,
+            p: f64,
+            q: f64,
+        ) -> bool {
+            held_out_coefficients_body(g, f, e, tt, dinv, alpha, p, q)
+        }
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU was just checked to support AVX2, the only feature enabled.
+            return unsafe { wide(g, f, e, tt, dinv, alpha, p, q) };
+        }
+    }
+    held_out_coefficients_body(g, f, e, tt, dinv, alpha, p, q)
+}
+
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn held_out_coefficients_body(
+    g: &Mat<f64>,
+    f: &Mat<f64>,
+    e: &Mat<f64>,
+    tt: &mut Mat<f64>,
+    dinv: &[f64],
+    alpha: f64,
+    p: f64,
+    q: f64,
+) -> bool {
+    if alpha == 0.0 {
+        // uLSIF: only the source row is removed from H, a 1 x 1 system; the target terms (f) do
+        // not enter (same values as the general branch below with z1 = 0).
+        for i in 0..g.ncols() {
+            let (gi, ei) = (col(g, i), col(e, i));
+            let [uu, uy] = weighted_dots_source(gi, ei, dinv);
+            let den = 1.0 / p - uu;
+            if den.abs() < 1e-12 * (1.0 / p) {
+                return true;
+            }
+            let z0 = uy / den;
+            let ti = col_mut(tt, i);
+            for (((t, dj), ej), gj) in ti.iter_mut().zip(dinv).zip(ei).zip(gi) {
+                *t = dj * ej + dj * gj * z0;
+            }
+        }
+        return false;
+    }
+    for i in 0..g.ncols() {
+        let (gi, fi, ei) = (col(g, i), col(f, i), col(e, i));
+        let [uu, uv, vv, uy, vy] = weighted_dots(gi, fi, ei, dinv);
+        let (z0, z1) = if alpha == 0.0 {
+            let den = 1.0 / p - uu;
+            if den.abs() < 1e-12 * (1.0 / p) {
+                return true;
+            }
+            (uy / den, 0.0)
+        } else {
+            let (m00, m01, m11) = (1.0 / p - uu, -uv, 1.0 / q - vv);
+            let det = m00 * m11 - m01 * m01;
+            if det.abs() < 1e-12 * (m00.abs() * m11.abs()).max(1e-300) {
+                return true;
+            }
+            ((m11 * uy - m01 * vy) / det, (m00 * vy - m01 * uy) / det)
+        };
+        let ti = col_mut(tt, i);
+        for ((((t, dj), ej), gj), fj) in ti.iter_mut().zip(dinv).zip(ei).zip(gi).zip(fi) {
+            *t = dj * ej + dj * gj * z0 + dj * fj * z1;
+        }
+    }
+    false
+}
+
+/// Sum over the pairs of a block of the held-out criterion
+/// (1 - alpha)/2 r(x_s)^2 + alpha/2 r(x_t)^2 - r(x_t), with the coefficients `theta` (columns)
+/// clipped at zero; `ksb`, `ktb` the pairs' kernel rows (row-major). AVX2 when the CPU has it, as
+/// [`held_out_coefficients`].
+fn held_out_total(theta: &Mat<f64>, ksb: &[f64], ktb: &[f64], a: f64, alpha: f64) -> f64 {
+    #[cfg(target_arch = "x86_64")]
+    {
+        #[target_feature(enable = "avx2")]
+        unsafe fn wide(theta: &Mat<f64>, ksb: &[f64], ktb: &[f64], a: f64, alpha: f64) -> f64 {
+            held_out_total_body(theta, ksb, ktb, a, alpha)
+        }
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU was just checked to support AVX2, the only feature enabled.
+            return unsafe { wide(theta, ksb, ktb, a, alpha) };
+        }
+    }
+    held_out_total_body(theta, ksb, ktb, a, alpha)
+}
+
+#[inline(always)]
+fn held_out_total_body(theta: &Mat<f64>, ksb: &[f64], ktb: &[f64], a: f64, alpha: f64) -> f64 {
+    let b = theta.nrows();
+    let mut total = 0.0;
+    for i in 0..theta.ncols() {
+        let th = col(theta, i);
+        let (ksi, kti) = (&ksb[i * b..(i + 1) * b], &ktb[i * b..(i + 1) * b]);
+        let (rs, rt) = clipped_dots(th, ksi, kti);
+        total += a * rs * rs / 2.0 + alpha * rt * rt / 2.0 - rt;
+    }
+    total
+}
+
+/// Column `i` of a column-major matrix as a slice.
+#[inline(always)]
+fn col(m: &Mat<f64>, i: usize) -> &[f64] {
+    m.col(i)
+        .try_as_col_major()
+        .expect("column-major")
+        .as_slice()
+}
+
+/// Column `i` of a column-major matrix as a mutable slice.
+#[inline(always)]
+fn col_mut(m: &mut Mat<f64>, i: usize) -> &mut [f64] {
+    m.col_mut(i)
+        .try_as_col_major_mut()
+        .expect("column-major")
+        .as_slice_mut()
+}
+
+/// Lanes of the vectorised sums below (each lane sums every fourth term; the lanes are added at
+/// the end, in a fixed order, so results do not depend on the machine).
+const LANES: usize = 4;
+
+/// (sum g d g, sum g d f, sum f d f, sum g d e, sum f d e) over j, with d_j e_j standing for the
+/// held-out right-hand side: the 2 x 2 (or 1 x 1) Woodbury system of one held-out pair. Summed in
+/// [`LANES`] independent lanes so the loop vectorises.
+#[inline(always)]
+fn weighted_dots(g: &[f64], f: &[f64], e: &[f64], d: &[f64]) -> [f64; 5] {
+    let mut acc = [[0.0f64; LANES]; 5];
+    let n = g.len() / LANES * LANES;
+    let (g4, f4, e4, d4) = (
+        g[..n].chunks_exact(LANES),
+        f[..n].chunks_exact(LANES),
+        e[..n].chunks_exact(LANES),
+        d[..n].chunks_exact(LANES),
+    );
+    for (((gc, fc), ec), dc) in g4.zip(f4).zip(e4).zip(d4) {
+        for l in 0..LANES {
+            let (uj, vj, dj) = (gc[l], fc[l], dc[l]);
+            let yj = dj * ec[l];
+            acc[0][l] += uj * dj * uj;
+            acc[1][l] += uj * dj * vj;
+            acc[2][l] += vj * dj * vj;
+            acc[3][l] += uj * yj;
+            acc[4][l] += vj * yj;
+        }
+    }
+    let mut out = [0.0; 5];
+    for (o, a) in out.iter_mut().zip(&acc) {
+        *o = (a[0] + a[1]) + (a[2] + a[3]);
+    }
+    for j in n..g.len() {
+        let (uj, vj, dj) = (g[j], f[j], d[j]);
+        let yj = dj * e[j];
+        out[0] += uj * dj * uj;
+        out[1] += uj * dj * vj;
+        out[2] += vj * dj * vj;
+        out[3] += uj * yj;
+        out[4] += vj * yj;
+    }
+    out
+}
+
+/// The (sum g d g, sum g d e) part of [`weighted_dots`] (uLSIF), summed in the same lanes and
+/// order.
+#[inline(always)]
+fn weighted_dots_source(g: &[f64], e: &[f64], d: &[f64]) -> [f64; 2] {
+    let mut acc = [[0.0f64; LANES]; 2];
+    let n = g.len() / LANES * LANES;
+    for ((gc, ec), dc) in g[..n]
+        .chunks_exact(LANES)
+        .zip(e[..n].chunks_exact(LANES))
+        .zip(d[..n].chunks_exact(LANES))
+    {
+        for l in 0..LANES {
+            let (uj, dj) = (gc[l], dc[l]);
+            let yj = dj * ec[l];
+            acc[0][l] += uj * dj * uj;
+            acc[1][l] += uj * yj;
+        }
+    }
+    let mut out = [0.0; 2];
+    for (o, a) in out.iter_mut().zip(&acc) {
+        *o = (a[0] + a[1]) + (a[2] + a[3]);
+    }
+    for j in n..g.len() {
+        let (uj, dj) = (g[j], d[j]);
+        let yj = dj * e[j];
+        out[0] += uj * dj * uj;
+        out[1] += uj * yj;
+    }
+    out
+}
+
+/// (ks . max(theta, 0), kt . max(theta, 0)): the held-out ratio at the source and target row,
+/// summed in [`LANES`] lanes.
+#[inline(always)]
+fn clipped_dots(th: &[f64], ks: &[f64], kt: &[f64]) -> (f64, f64) {
+    let (mut rs, mut rt) = ([0.0f64; LANES], [0.0f64; LANES]);
+    let n = th.len() / LANES * LANES;
+    for ((tc, sc), cc) in th[..n]
+        .chunks_exact(LANES)
+        .zip(ks[..n].chunks_exact(LANES))
+        .zip(kt[..n].chunks_exact(LANES))
+    {
+        for l in 0..LANES {
+            let t = tc[l].max(0.0);
+            rs[l] += sc[l] * t;
+            rt[l] += cc[l] * t;
+        }
+    }
+    let (mut s, mut t) = (
+        (rs[0] + rs[1]) + (rs[2] + rs[3]),
+        (rt[0] + rt[1]) + (rt[2] + rt[3]),
+    );
+    for j in n..th.len() {
+        let c = th[j].max(0.0);
+        s += ks[j] * c;
+        t += kt[j] * c;
+    }
+    (s, t)
 }
 
 /// Solves (H + lambda I) theta = h and rounds negative coefficients up to zero.
@@ -491,11 +696,18 @@ impl RatioEstimator for LeastSquaresRatio {
                         base += stt.gram[si].as_ref().expect("gram").clone()
                             * Scale(alpha / (n_t as f64 - 1.0));
                     }
-                    let mut ks = vec![0.0; m * b];
-                    let mut kt = vec![0.0; m * b];
-                    kernel::gaussian_from(&ds, sigma, &mut ks);
-                    kernel::gaussian_from(&dt, sigma, &mut kt);
-                    loo_scores(&base, &stt.sum[si], &ks, &kt, m, n_s, n_t, alpha, &lambdas)
+                    loo_scores(
+                        &base,
+                        &stt.sum[si],
+                        &ds,
+                        &dt,
+                        sigma,
+                        m,
+                        n_s,
+                        n_t,
+                        alpha,
+                        &lambdas,
+                    )
                 })
                 .collect();
             for (si, scores) in per_width.into_iter().enumerate() {
@@ -647,13 +859,18 @@ mod tests {
         }
         let is: Vec<usize> = held.iter().map(|p| p.0).collect();
         let it: Vec<usize> = held.iter().map(|p| p.1).collect();
-        let ks = kernel::kernel_block(s.view().select_rows(&is).view(), c.view(), sigma);
-        let kt = kernel::kernel_block(t.view().select_rows(&it).view(), c.view(), sigma);
+        let c_sq = kernel::row_sq_norms(c.view());
+        let b = c.rows();
+        let mut ds = vec![0.0; held.len() * b];
+        let mut dt = vec![0.0; held.len() * b];
+        kernel::sq_distances_into(s.view().select_rows(&is).view(), c.view(), &c_sq, &mut ds);
+        kernel::sq_distances_into(t.view().select_rows(&it).view(), c.view(), &c_sq, &mut dt);
         loo_scores(
             &base,
             &st.sum[0],
-            &ks,
-            &kt,
+            &ds,
+            &dt,
+            sigma,
             held.len(),
             n_s,
             n_t,
