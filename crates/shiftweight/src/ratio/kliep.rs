@@ -809,7 +809,10 @@ mod tests {
             assert_eq!(x.iterations, y.iterations, "fold {f}");
             assert!((x.objective - y.objective).abs() < 1e-10, "fold {f}");
             for (p, q) in x.alpha.iter().zip(&y.alpha) {
-                assert!((p - q).abs() <= 1e-8 * q.abs().max(1.0), "fold {f}: {p} vs {q}");
+                assert!(
+                    (p - q).abs() <= 1e-8 * q.abs().max(1.0),
+                    "fold {f}: {p} vs {q}"
+                );
             }
         }
     }
