@@ -400,18 +400,38 @@ impl Standardizer {
         }
     }
 
-    /// Standardises a whole matrix.
+    /// Standardises a whole matrix (row chunks in parallel).
     pub fn transform(&self, x: &MatrixView) -> Matrix {
         let d = x.cols();
         let mut data = vec![0.0; x.rows() * d];
-        for (i, out) in data.chunks_mut(d.max(1)).enumerate().take(x.rows()) {
-            self.transform_row(x.row(i), out);
-        }
+        self.transform_into(x, &mut data);
         Matrix {
             data,
             rows: x.rows(),
             cols: d,
         }
+    }
+
+    /// Standardises a whole matrix into `out` (row-major, `x.rows() * x.cols()` values; row
+    /// chunks in parallel), for callers that pool several matrices in one buffer.
+    ///
+    /// # Panics
+    /// If `out` has the wrong length.
+    pub fn transform_into(&self, x: &MatrixView, out: &mut [f64]) {
+        use rayon::prelude::*;
+        let d = x.cols();
+        assert_eq!(out.len(), x.rows() * d, "transform_into: output length");
+        if d == 0 {
+            return;
+        }
+        let rows = crate::kernel::CHUNK_ROWS;
+        out.par_chunks_mut(rows * d)
+            .enumerate()
+            .for_each(|(k, chunk)| {
+                for (r, o) in chunk.chunks_exact_mut(d).enumerate() {
+                    self.transform_row(x.row(k * rows + r), o);
+                }
+            });
     }
 
     pub(crate) fn check(&self) -> Result<()> {
