@@ -456,8 +456,7 @@ impl<'a> LogisticLoss<'a> {
 
 /// Newton's method for the weighted, penalised logistic loss. Returns (coef, intercept, iters) on
 /// the raw feature scale. Works on standardised columns z = (x - mean) / scale with per-coordinate
-/// penalty l2 / scale^2, which is the same problem. `x` must already be checked for non-finite
-/// values (see [`fit_logistic_unchecked`] for the variant that checks them on the way).
+/// penalty l2 / scale^2, which is the same problem.
 ///
 /// One pass over the rows per Newton step gives the objective, gradient and Hessian together
 /// ([`LogisticLoss::evaluate`]); the step solves the small (d + 1) x (d + 1) system by Cholesky.
@@ -465,18 +464,8 @@ impl<'a> LogisticLoss<'a> {
 /// (otherwise it is halved: backtracking). Stops when the largest gradient entry is below `tol`
 /// times the total weight, or after a step whose Newton decrement g' H^-1 g is below 1e-14 times
 /// the total weight (quadratic convergence makes the following gradient negligible).
-pub(crate) fn fit_logistic(
-    x: MatrixView,
-    y: &[f64],
-    w: &[f64],
-    l2: f64,
-    max_iter: usize,
-    tol: f64,
-) -> Result<(Vec<f64>, f64, usize)> {
-    fit_logistic_inner(x, y, w, l2, max_iter, tol, false)
-}
-
-/// [`fit_logistic`] on an `x` whose values have not been checked yet. On many rows it makes no
+///
+/// `x` need not have been checked for non-finite values. On many rows it makes no
 /// pass of its own for the check or the column scaling: the scaling is taken from the start
 /// subsample (any per-column shift and scale gives the same Newton iterates, since Newton's method
 /// is invariant under affine changes of variables; the scaling only keeps the Hessian
@@ -484,7 +473,7 @@ pub(crate) fn fit_logistic(
 /// full ones), and a non-finite value anywhere makes the first full pass's objective non-finite,
 /// at which point [`MatrixView::validate`] names it. Saves three of the roughly seven passes over
 /// `x` at 1,000,000 rows.
-fn fit_logistic_unchecked(
+pub(crate) fn fit_logistic_unchecked(
     x: MatrixView,
     y: &[f64],
     w: &[f64],
@@ -492,9 +481,27 @@ fn fit_logistic_unchecked(
     max_iter: usize,
     tol: f64,
 ) -> Result<(Vec<f64>, f64, usize)> {
-    fit_logistic_inner(x, y, w, l2, max_iter, tol, true)
+    fit_logistic_inner(x, y, w, l2, max_iter, tol, None)
 }
 
+/// [`fit_logistic_unchecked`] started from a known nearby solution `(coef, intercept)` on the raw
+/// scale (for instance the fit on another cross-fitting fold, which differs from this one's by
+/// sampling error) instead of from the subsample's solution: Newton's method then needs one or two
+/// passes over the rows. The optimum, and so the result to within `tol`, does not depend on the
+/// start (the problem is strictly convex for l2 > 0).
+pub(crate) fn fit_logistic_warm(
+    x: MatrixView,
+    y: &[f64],
+    w: &[f64],
+    l2: f64,
+    max_iter: usize,
+    tol: f64,
+    start: (&[f64], f64),
+) -> Result<(Vec<f64>, f64, usize)> {
+    fit_logistic_inner(x, y, w, l2, max_iter, tol, Some(start))
+}
+
+#[allow(clippy::too_many_arguments)]
 fn fit_logistic_inner(
     x: MatrixView,
     y: &[f64],
@@ -502,10 +509,21 @@ fn fit_logistic_inner(
     l2: f64,
     max_iter: usize,
     tol: f64,
-    unchecked: bool,
+    warm: Option<(&[f64], f64)>,
 ) -> Result<(Vec<f64>, f64, usize)> {
     let d = x.cols();
     let p = d + 1; // last coordinate is the intercept
+    if let Some((coef, b)) = warm {
+        if coef.len() != d || !b.is_finite() || coef.iter().any(|c| !c.is_finite()) {
+            return Err(Error::InvalidParameter {
+                name: "start".into(),
+                reason: format!(
+                    "a warm start needs {d} finite coefficients and a finite intercept (got {})",
+                    coef.len()
+                ),
+            });
+        }
+    }
     let wsum: f64 = w.iter().sum();
     let mut theta = vec![0.0; p];
     // Start the intercept at the weighted log-odds.
@@ -528,17 +546,13 @@ fn fit_logistic_inner(
         let ys: Vec<f64> = y.iter().step_by(stride).copied().collect();
         let ws: Vec<f64> = w.iter().step_by(stride).copied().collect();
         let xsv = MatrixView::new(&xs, ys.len(), d)?;
-        if unchecked && xsv.validate("X", 1).is_err() {
+        if xsv.validate("X", 1).is_err() {
             // The error names the first non-finite value of the whole input.
             x.validate("X", 1)?;
         }
-        let (mean, scale) = if unchecked {
-            column_scaling(xsv)
-        } else {
-            column_scaling(x)
-        };
+        let (mean, scale) = column_scaling(xsv);
         let share = ws.iter().sum::<f64>() / wsum;
-        if share > 0.0 && share.is_finite() {
+        if warm.is_none() && share > 0.0 && share.is_finite() {
             let sub = LogisticLoss::new(xsv, &ys, &ws, l2 * share, &mean, &scale);
             if let Ok((t, _, _)) = newton(&sub, theta.clone(), max_iter, tol, false, None) {
                 if t.iter().all(|v| v.is_finite()) {
@@ -551,15 +565,20 @@ fn fit_logistic_inner(
     let (mean, scale) = match scaling {
         Some(ms) => ms,
         None => {
-            if unchecked {
-                x.validate("X", 1)?;
-            }
+            x.validate("X", 1)?;
             column_scaling(x)
         }
     };
-    let check_first = unchecked && stride >= 8;
+    let check_first = stride >= 8;
     if let Some(t) = start {
         theta = t;
+    }
+    if let Some((coef, b)) = warm {
+        // The raw-scale start on the standardised columns (the inverse of `unscale`).
+        for j in 0..d {
+            theta[j] = coef[j] * scale[j];
+        }
+        theta[d] = b + (0..d).map(|j| coef[j] * mean[j]).sum::<f64>();
     }
     let loss = LogisticLoss::new(x, y, w, l2, &mean, &scale);
     let (theta, it, _) = newton(&loss, theta, max_iter, tol, check_first, None)?;
@@ -584,7 +603,7 @@ const CHORD_DECREMENT: f64 = 1e-6;
 /// 10 per step) for the next step to keep the old Hessian.
 const CHORD_CONTRACTION: f64 = 100.0;
 
-/// Newton's method with backtracking from `theta` (see [`fit_logistic`]); returns the solution,
+/// Newton's method with backtracking from `theta` (see [`fit_logistic_unchecked`]); returns the solution,
 /// the number of steps and the last factorised Hessian used. With `check_first`, a non-finite
 /// objective or gradient at the first pass is reported through [`MatrixView::validate`] when the
 /// input holds a non-finite value. `chord` is a Hessian to start with (chord steps, see
@@ -922,5 +941,64 @@ mod tests {
             g1 += r;
         }
         assert!(g0.abs() < 1e-8 && g1.abs() < 1e-8, "gradient {g0} {g1}");
+    }
+
+    /// Overlapping two-class rows in 3 columns (deterministic), with zero weights on every fifth
+    /// row as in a cross-fitting fold.
+    fn fold_like_problem(n: usize) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
+        let mut x = Vec::with_capacity(3 * n);
+        let mut y = Vec::with_capacity(n);
+        for i in 0..n {
+            let a = ((i * 7919) % 1000) as f64 / 250.0 - 2.0;
+            let b = ((i * 104_729) % 997) as f64 / 300.0 - 1.5;
+            let c = ((i * 31) % 101) as f64 / 50.0 - 1.0;
+            x.extend_from_slice(&[a, b, c]);
+            let s = 0.8 * a - 0.5 * b + 0.2 * c + 0.3;
+            y.push(
+                if ((i * 2_654_435_761) % 1000) as f64 / 1000.0 < sigmoid(s) {
+                    1.0
+                } else {
+                    0.0
+                },
+            );
+        }
+        let w = (0..n).map(|i| if i % 5 == 2 { 0.0 } else { 1.0 }).collect();
+        (x, y, w)
+    }
+
+    #[test]
+    fn warm_start_reaches_the_same_optimum_as_the_usual_start() {
+        // Strict convexity (l2 > 0): the optimum does not depend on the start, so a start near it
+        // (as cross-fitting gives) and a start far from it must agree to the tolerance. 420,000
+        // rows take the large-input path (start subsample, scaling from the subsample).
+        for n in [3_000usize, 420_000] {
+            let (x, y, w) = fold_like_problem(n);
+            let xv = MatrixView::new(&x, n, 3).unwrap();
+            let (c0, b0, _) = fit_logistic_unchecked(xv, &y, &w, 1.0, 100, 1e-10).unwrap();
+            for start in [
+                (vec![0.0, 0.0, 0.0], 0.0),
+                (vec![5.0, -3.0, 1.0], -2.0),
+                (c0.iter().map(|c| c * 1.01).collect(), b0 - 0.01),
+            ] {
+                let (c1, b1, _) =
+                    fit_logistic_warm(xv, &y, &w, 1.0, 100, 1e-10, (&start.0, start.1)).unwrap();
+                for (a, b) in c0.iter().zip(&c1).chain([(&b0, &b1)]) {
+                    assert!(
+                        (a - b).abs() <= 1e-7 * (1.0 + a.abs()),
+                        "n = {n}, start {start:?}: {c0:?} {b0} vs {c1:?} {b1}"
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn warm_start_of_the_wrong_length_or_not_finite_is_rejected() {
+        let (x, y, w) = fold_like_problem(100);
+        let xv = MatrixView::new(&x, 100, 3).unwrap();
+        for (c, b) in [(vec![0.0, 0.0], 0.0), (vec![0.0, f64::NAN, 0.0], 0.0)] {
+            let e = fit_logistic_warm(xv, &y, &w, 1.0, 100, 1e-10, (&c, b)).unwrap_err();
+            assert!(e.to_string().contains("warm start"), "{e}");
+        }
     }
 }
