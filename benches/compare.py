@@ -61,6 +61,8 @@ def parse_args(argv=None):
     p.add_argument("--mmd-perms", type=int, default=1_000)
     p.add_argument("--score-n", type=int, default=1_000_000, help="rows scored")
     p.add_argument("--l2", type=float, default=1.0, help="penalty of the logistic models (sklearn C = 1/l2)")
+    p.add_argument("--settle", type=float, default=0.0,
+                   help="seconds to pause before every timed call (default 0; see SETTLE_S)")
     args = p.parse_args(argv)
     if args.quick:
         args.ulsif_n, args.kliep_n, args.clf_n, args.logit_n = 2_000, 1_000, 20_000, 50_000
@@ -161,13 +163,29 @@ def median_distance(z, seed, subsample=1000):
     return float(np.median(pdist(z)))
 
 
+# Pause before every timed call (`--settle SECONDS`, default 0: none). OpenBLAS's worker threads
+# keep spinning for a while after a BLAS call returns, which slows whatever runs next on a 2-core
+# machine: measured here (MMD workload), a shiftweight call started right after a numpy product
+# took 0.200 s against 0.169 s after a 0.3 s pause, while numpy's own time did not depend on what
+# ran before it (0.324 s vs 0.320 s). Pauses have their own cost on this virtual machine: the
+# reference MMD computation alone, repeated with pauses of 0 / 0.3 / 1.0 s, had medians
+# 0.50-0.52 / 0.52-0.53 / 0.70 s (single runs 0.48-1.01 s). The default runs back to back, which
+# can only understate shiftweight's ratio; both figures are in benches/README.md.
+SETTLE_S = ARGS.settle
+
+
 def alternate(sw_fn, ref_fn, repeats):
-    """Runs sw, ref, sw, ref, ... ``repeats`` times each; returns (sw_times, ref_times, sw_out, ref_out)."""
+    """Runs sw, ref, sw, ref, ... ``repeats`` times each, pausing SETTLE_S before each call;
+    returns (sw_times, ref_times, sw_out, ref_out)."""
     ts, tr, out_s, out_r = [], [], None, None
     for _ in range(repeats):
+        if SETTLE_S > 0:
+            time.sleep(SETTLE_S)
         t0 = time.perf_counter()
         out_s = sw_fn()
         ts.append(time.perf_counter() - t0)
+        if SETTLE_S > 0:
+            time.sleep(SETTLE_S)
         t0 = time.perf_counter()
         out_r = ref_fn()
         tr.append(time.perf_counter() - t0)
@@ -177,6 +195,8 @@ def alternate(sw_fn, ref_fn, repeats):
 def timed(fn, repeats):
     ts, out = [], None
     for _ in range(repeats):
+        if SETTLE_S > 0:
+            time.sleep(SETTLE_S)
         t0 = time.perf_counter()
         out = fn()
         ts.append(time.perf_counter() - t0)
