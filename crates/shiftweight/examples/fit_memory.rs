@@ -1,8 +1,10 @@
-//! Peak memory of a large uLSIF fit and of scoring many rows, for `/usr/bin/time -v`.
+//! Peak memory of a large uLSIF or classifier-ratio fit and of scoring many rows, for
+//! `/usr/bin/time -v`.
 //!
 //! ```text
 //! cargo build --release -p shiftweight --example fit_memory
 //! /usr/bin/time -v target/release/examples/fit_memory fit 1000000 20000 20
+//! /usr/bin/time -v target/release/examples/fit_memory classifier 1000000 20000 20
 //! /usr/bin/time -v target/release/examples/fit_memory score 1000000 20
 //! /usr/bin/time -v target/release/examples/fit_memory score 4000000 20
 //! ```
@@ -10,11 +12,13 @@
 //! `fit N_SOURCE N_TARGET D` generates seeded Gaussian rows (the target shifted in the first
 //! feature), fits uLSIF with LOOCV over the default 5 x 5 grid and 200 centres, and prints the
 //! input size and the time taken; compare the input size with "Maximum resident set size".
+//! `classifier N_SOURCE N_TARGET D` does the same with `ClassifierRatio` (linear features, l2 = 1,
+//! 5-fold cross-fitting).
 //! `score N D` fits a small model, then scores N rows streamed in blocks of 65,536 rows read into
 //! one reused buffer (as a service reading a file would), so the peak should not grow with N.
 
 use rand_distr::{Distribution, Normal};
-use shiftweight::{kernel::rng, LeastSquaresRatio, Matrix, RatioEstimator};
+use shiftweight::{kernel::rng, ClassifierRatio, LeastSquaresRatio, Matrix, RatioEstimator};
 use std::time::Instant;
 
 fn gaussian_into(buf: &mut [f64], d: usize, shift: f64, r: &mut impl rand::Rng) {
@@ -55,6 +59,22 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 model.selection.chosen["lam"]
             );
         }
+        "classifier" => {
+            let (n_s, n_t, d) = (arg(2, 1_000_000), arg(3, 20_000), arg(4, 20));
+            let s = gaussian(n_s, d, 0.0, 1);
+            let t = gaussian(n_t, d, 0.5, 2);
+            let input_mb = ((n_s + n_t) * d * 8) as f64 / 1e6;
+            let start = Instant::now();
+            let model = ClassifierRatio::new()
+                .l2(Some(1.0))
+                .fit(s.view(), t.view())?;
+            let mean_w = model.source_weights.iter().sum::<f64>() / n_s as f64;
+            println!(
+                "fit ClassifierRatio (linear, 5 folds) on {n_s}+{n_t} rows x {d}: {:.2} s; \
+                 input {input_mb:.1} MB; mean source weight {mean_w:.4}",
+                start.elapsed().as_secs_f64(),
+            );
+        }
         "score" => {
             let (n, d) = (arg(2, 1_000_000), arg(3, 20));
             let s = gaussian(5_000, d, 0.0, 1);
@@ -83,7 +103,9 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 total / n as f64
             );
         }
-        other => return Err(format!("unknown mode {other:?}; use fit or score").into()),
+        other => {
+            return Err(format!("unknown mode {other:?}; use fit, classifier or score").into())
+        }
     }
     Ok(())
 }

@@ -287,32 +287,7 @@ pub(crate) fn solve_kliep_batch(
         let (obj, grad, dead) = par::reduce_chunks(
             n,
             (vec![0.0f64; m], vec![0.0f64; m * b], vec![false; m]),
-            |start, end| {
-                kernel::with_wide_simd(|| {
-                    let mut o = vec![0.0f64; m];
-                    let mut g = vec![0.0f64; m * b];
-                    let mut dd = vec![false; m];
-                    for t in start..end {
-                        let row = &a[t * b..(t + 1) * b];
-                        for k in 0..m {
-                            if !in_problem(t, skips[k]) {
-                                continue;
-                            }
-                            let u = dot(row, points[k]);
-                            if u <= 0.0 || !u.is_finite() {
-                                dd[k] = true;
-                                continue;
-                            }
-                            o[k] += u.ln();
-                            let inv = 1.0 / u;
-                            for (gl, x) in g[k * b..(k + 1) * b].iter_mut().zip(row) {
-                                *gl += x * inv;
-                            }
-                        }
-                    }
-                    (o, g, dd)
-                })
-            },
+            |start, end| kliep_pass_chunk(a, b, row_fold, &points, &skips, start, end),
             |acc, p| {
                 par::add_into(&mut acc.0, &p.0);
                 par::add_into(&mut acc.1, &p.1);
@@ -333,20 +308,147 @@ pub(crate) fn solve_kliep_batch(
     states.into_iter().map(|s| s.result.flatten()).collect()
 }
 
-/// Dot product with eight independent partial sums, so that the loop vectorises (a single
-/// running sum is a chain of dependent additions that the compiler may not reorder).
-#[inline(always)]
-fn dot(x: &[f64], y: &[f64]) -> f64 {
-    let mut acc = [0.0f64; 8];
-    let (xc, yc) = (x.chunks_exact(8), y.chunks_exact(8));
-    let (xr, yr) = (xc.remainder(), yc.remainder());
-    for (p, q) in xc.zip(yc) {
-        for i in 0..8 {
-            acc[i] += p[i] * q[i];
+/// One chunk of rows `start..end` of a lockstep KLIEP pass: per live problem k (at `points[k]`,
+/// leaving out the rows of fold `skips[k]`), the sum of log u_t, the sum of row_t / u_t, and
+/// whether some row has u_t <= 0 or non-finite. Compiled for AVX2 when the CPU has it (a
+/// separate function, so that the whole loop gets the wider vectors: a closure passed to
+/// [`kernel::with_wide_simd`] is not always inlined into its AVX2 version); the arithmetic is the
+/// same in both versions, so the results are bitwise equal.
+fn kliep_pass_chunk(
+    a: &[f64],
+    b: usize,
+    row_fold: Option<&[usize]>,
+    points: &[&[f64]],
+    skips: &[Option<usize>],
+    start: usize,
+    end: usize,
+) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        #[target_feature(enable = "avx2")]
+        unsafe fn wide(
+            a: &[f64],
+            b: usize,
+            row_fold: Option<&[usize]>,
+            points: &[&[f64]],
+            skips: &[Option<usize>],
+            start: usize,
+            end: usize,
+        ) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
+            // SAFETY (of the calls to dot_avx2): this function only runs on CPUs with AVX2.
+            kliep_pass_chunk_body(a, b, row_fold, points, skips, start, end, |x, y| unsafe {
+                dot_avx2(x, y)
+            })
+        }
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU was just checked to support AVX2, the only feature enabled.
+            return unsafe { wide(a, b, row_fold, points, skips, start, end) };
         }
     }
-    let mut s = ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7]));
+    kliep_pass_chunk_body(a, b, row_fold, points, skips, start, end, dot)
+}
+
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn kliep_pass_chunk_body(
+    a: &[f64],
+    b: usize,
+    row_fold: Option<&[usize]>,
+    points: &[&[f64]],
+    skips: &[Option<usize>],
+    start: usize,
+    end: usize,
+    dot: impl Fn(&[f64], &[f64]) -> f64,
+) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
+    let m = points.len();
+    let mut o = vec![0.0f64; m];
+    let mut g = vec![0.0f64; m * b];
+    let mut dd = vec![false; m];
+    for t in start..end {
+        let row = &a[t * b..(t + 1) * b];
+        for k in 0..m {
+            if let (Some(rf), Some(s)) = (row_fold, skips[k]) {
+                if rf[t] == s {
+                    continue;
+                }
+            }
+            let u = dot(row, points[k]);
+            if u <= 0.0 || !u.is_finite() {
+                dd[k] = true;
+                continue;
+            }
+            o[k] += u.ln();
+            let inv = 1.0 / u;
+            for (gl, x) in g[k * b..(k + 1) * b].iter_mut().zip(row) {
+                *gl += x * inv;
+            }
+        }
+    }
+    (o, g, dd)
+}
+
+/// Dot product with sixteen independent partial sums in four groups of four, so that the loop
+/// becomes four independent chains of 4-lane vector operations (a single running sum is a chain
+/// of dependent additions that the compiler may not reorder; eight sums in one array were
+/// vectorised as 2-lane operations with shuffles). Fixed summation order.
+#[inline(always)]
+fn dot(x: &[f64], y: &[f64]) -> f64 {
+    let mut acc = [[0.0f64; 4]; 4];
+    let (xc, yc) = (x.chunks_exact(16), y.chunks_exact(16));
+    let (xr, yr) = (xc.remainder(), yc.remainder());
+    for (p, q) in xc.zip(yc) {
+        for (j, a) in acc.iter_mut().enumerate() {
+            for (i, v) in a.iter_mut().enumerate() {
+                *v += p[4 * j + i] * q[4 * j + i];
+            }
+        }
+    }
+    let mut lanes = [0.0f64; 4];
+    for (i, l) in lanes.iter_mut().enumerate() {
+        *l = (acc[0][i] + acc[1][i]) + (acc[2][i] + acc[3][i]);
+    }
+    let mut s = (lanes[0] + lanes[2]) + (lanes[1] + lanes[3]);
     for (p, q) in xr.iter().zip(yr) {
+        s += p * q;
+    }
+    s
+}
+
+/// [`dot`] with 4-lane AVX2 vectors: register j holds the partial sums acc[j][0..4], added and
+/// combined in the same order, so the result is bitwise equal to [`dot`]'s.
+///
+/// # Safety
+/// The CPU must support AVX2.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn dot_avx2(x: &[f64], y: &[f64]) -> f64 {
+    use std::arch::x86_64::{
+        _mm256_add_pd, _mm256_loadu_pd, _mm256_mul_pd, _mm256_setzero_pd, _mm256_storeu_pd,
+    };
+    let n = x.len().min(y.len());
+    let n16 = n / 16 * 16;
+    let (px, py) = (x.as_ptr(), y.as_ptr());
+    let mut acc = [_mm256_setzero_pd(); 4];
+    let mut k = 0;
+    while k < n16 {
+        for (j, a) in acc.iter_mut().enumerate() {
+            // SAFETY: k + 4 j + 4 <= n16 <= the length of both slices.
+            let (u, v) = unsafe {
+                (
+                    _mm256_loadu_pd(px.add(k + 4 * j)),
+                    _mm256_loadu_pd(py.add(k + 4 * j)),
+                )
+            };
+            *a = _mm256_add_pd(*a, _mm256_mul_pd(u, v));
+        }
+        k += 16;
+    }
+    let l = _mm256_add_pd(_mm256_add_pd(acc[0], acc[1]), _mm256_add_pd(acc[2], acc[3]));
+    let mut lanes = [0.0f64; 4];
+    // SAFETY: `lanes` holds four f64.
+    unsafe { _mm256_storeu_pd(lanes.as_mut_ptr(), l) };
+    let mut s = (lanes[0] + lanes[2]) + (lanes[1] + lanes[3]);
+    for (p, q) in x[n16..n].iter().zip(&y[n16..n]) {
         s += p * q;
     }
     s
@@ -780,6 +882,26 @@ mod tests {
 
     fn normal_pdf(x: f64, m: f64, s: f64) -> f64 {
         (-(x - m) * (x - m) / (2.0 * s * s)).exp() / (s * (2.0 * std::f64::consts::PI).sqrt())
+    }
+
+    #[test]
+    fn avx2_dot_is_bitwise_equal_to_the_portable_dot() {
+        // Same partial sums in the same order (see `dot_avx2`): equal bits for every length,
+        // including remainders after the 16-wide blocks; and both near an f64 reference sum.
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx2") {
+            for n in [0usize, 1, 7, 15, 16, 17, 33, 200, 203] {
+                let x = gauss(n, 0.0, 1.0, 40 + n as u64);
+                let y = gauss(n, 1.0, 2.0, 80 + n as u64);
+                // SAFETY: AVX2 was just detected.
+                let wide = unsafe { dot_avx2(&x, &y) };
+                let plain = dot(&x, &y);
+                assert_eq!(wide.to_bits(), plain.to_bits(), "n = {n}");
+                let naive: f64 = x.iter().zip(&y).map(|(a, b)| a * b).sum();
+                let scale: f64 = x.iter().zip(&y).map(|(a, b)| (a * b).abs()).sum();
+                assert!((plain - naive).abs() <= 1e-14 * scale.max(1.0), "n = {n}");
+            }
+        }
     }
 
     #[test]
