@@ -283,11 +283,18 @@ pub(crate) fn solve_kliep_batch(
         let points: Vec<&[f64]> = live.iter().map(|&k| states[k].point.as_slice()).collect();
         let skips: Vec<Option<usize>> = live.iter().map(|&k| problems[k].1).collect();
         let m = live.len();
+        let pass = LockstepPass {
+            a,
+            b,
+            row_fold,
+            points: &points,
+            skips: &skips,
+        };
         // Per live problem: sum of log u_t, sum of row_t / u_t, and "some row has u_t <= 0".
         let (obj, grad, dead) = par::reduce_chunks(
             n,
             (vec![0.0f64; m], vec![0.0f64; m * b], vec![false; m]),
-            |start, end| kliep_pass_chunk(a, b, row_fold, &points, &skips, start, end),
+            |start, end| pass.chunk(start, end),
             |acc, p| {
                 par::add_into(&mut acc.0, &p.0);
                 par::add_into(&mut acc.1, &p.1);
@@ -308,83 +315,76 @@ pub(crate) fn solve_kliep_batch(
     states.into_iter().map(|s| s.result.flatten()).collect()
 }
 
-/// One chunk of rows `start..end` of a lockstep KLIEP pass: per live problem k (at `points[k]`,
-/// leaving out the rows of fold `skips[k]`), the sum of log u_t, the sum of row_t / u_t, and
-/// whether some row has u_t <= 0 or non-finite. Compiled for AVX2 when the CPU has it (a
-/// separate function, so that the whole loop gets the wider vectors: a closure passed to
-/// [`kernel::with_wide_simd`] is not always inlined into its AVX2 version); the arithmetic is the
-/// same in both versions, so the results are bitwise equal.
-fn kliep_pass_chunk(
-    a: &[f64],
+/// What one lockstep KLIEP pass reads: the kernel rows `a` (b values each), the fold of each
+/// row (when problems leave folds out), and per live problem its point and the fold it skips.
+struct LockstepPass<'a> {
+    a: &'a [f64],
     b: usize,
-    row_fold: Option<&[usize]>,
-    points: &[&[f64]],
-    skips: &[Option<usize>],
-    start: usize,
-    end: usize,
-) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
-    #[cfg(target_arch = "x86_64")]
-    {
-        #[target_feature(enable = "avx2")]
-        unsafe fn wide(
-            a: &[f64],
-            b: usize,
-            row_fold: Option<&[usize]>,
-            points: &[&[f64]],
-            skips: &[Option<usize>],
-            start: usize,
-            end: usize,
-        ) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
-            // SAFETY (of the calls to dot_avx2): this function only runs on CPUs with AVX2.
-            kliep_pass_chunk_body(a, b, row_fold, points, skips, start, end, |x, y| unsafe {
-                dot_avx2(x, y)
-            })
-        }
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU was just checked to support AVX2, the only feature enabled.
-            return unsafe { wide(a, b, row_fold, points, skips, start, end) };
-        }
-    }
-    kliep_pass_chunk_body(a, b, row_fold, points, skips, start, end, dot)
+    row_fold: Option<&'a [usize]>,
+    points: &'a [&'a [f64]],
+    skips: &'a [Option<usize>],
 }
 
-#[inline(always)]
-#[allow(clippy::too_many_arguments)]
-fn kliep_pass_chunk_body(
-    a: &[f64],
-    b: usize,
-    row_fold: Option<&[usize]>,
-    points: &[&[f64]],
-    skips: &[Option<usize>],
-    start: usize,
-    end: usize,
-    dot: impl Fn(&[f64], &[f64]) -> f64,
-) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
-    let m = points.len();
-    let mut o = vec![0.0f64; m];
-    let mut g = vec![0.0f64; m * b];
-    let mut dd = vec![false; m];
-    for t in start..end {
-        let row = &a[t * b..(t + 1) * b];
-        for k in 0..m {
-            if let (Some(rf), Some(s)) = (row_fold, skips[k]) {
-                if rf[t] == s {
-                    continue;
-                }
+impl LockstepPass<'_> {
+    /// One chunk of rows `start..end` of the pass: per live problem k (at `points[k]`, leaving out
+    /// the rows of fold `skips[k]`), the sum of log u_t, the sum of row_t / u_t, and whether some
+    /// row has u_t <= 0 or non-finite. Compiled for AVX2 when the CPU has it (a separate function,
+    /// so that the whole loop gets the wider vectors: a closure passed to
+    /// [`kernel::with_wide_simd`] is not always inlined into its AVX2 version); the arithmetic is
+    /// the same in both versions, so the results are bitwise equal.
+    fn chunk(&self, start: usize, end: usize) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
+        #[cfg(target_arch = "x86_64")]
+        {
+            #[target_feature(enable = "avx2")]
+            unsafe fn wide(
+                pass: &LockstepPass,
+                start: usize,
+                end: usize,
+            ) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
+                // SAFETY (of the calls to dot_avx2): this function only runs on CPUs with AVX2.
+                pass.chunk_body(start, end, |x, y| unsafe { dot_avx2(x, y) })
             }
-            let u = dot(row, points[k]);
-            if u <= 0.0 || !u.is_finite() {
-                dd[k] = true;
-                continue;
-            }
-            o[k] += u.ln();
-            let inv = 1.0 / u;
-            for (gl, x) in g[k * b..(k + 1) * b].iter_mut().zip(row) {
-                *gl += x * inv;
+            if std::arch::is_x86_feature_detected!("avx2") {
+                // SAFETY: the CPU was just checked to support AVX2, the only feature enabled.
+                return unsafe { wide(self, start, end) };
             }
         }
+        self.chunk_body(start, end, dot)
     }
-    (o, g, dd)
+
+    #[inline(always)]
+    fn chunk_body(
+        &self,
+        start: usize,
+        end: usize,
+        dot: impl Fn(&[f64], &[f64]) -> f64,
+    ) -> (Vec<f64>, Vec<f64>, Vec<bool>) {
+        let (b, m) = (self.b, self.points.len());
+        let mut o = vec![0.0f64; m];
+        let mut g = vec![0.0f64; m * b];
+        let mut dd = vec![false; m];
+        for t in start..end {
+            let row = &self.a[t * b..(t + 1) * b];
+            for k in 0..m {
+                if let (Some(rf), Some(s)) = (self.row_fold, self.skips[k]) {
+                    if rf[t] == s {
+                        continue;
+                    }
+                }
+                let u = dot(row, self.points[k]);
+                if u <= 0.0 || !u.is_finite() {
+                    dd[k] = true;
+                    continue;
+                }
+                o[k] += u.ln();
+                let inv = 1.0 / u;
+                for (gl, x) in g[k * b..(k + 1) * b].iter_mut().zip(row) {
+                    *gl += x * inv;
+                }
+            }
+        }
+        (o, g, dd)
+    }
 }
 
 /// Dot product with sixteen independent partial sums in four groups of four, so that the loop
