@@ -524,62 +524,67 @@ fn fit_logistic_inner(
             });
         }
     }
-    let wsum: f64 = w.iter().sum();
-    let mut theta = vec![0.0; p];
-    // Start the intercept at the weighted log-odds.
-    let wy: f64 = w.iter().zip(y).map(|(a, b)| a * b).sum();
-    let pbar = (wy / wsum).clamp(1e-6, 1.0 - 1e-6);
-    theta[d] = (pbar / (1.0 - pbar)).ln();
-    // On many rows, start from the solution on an evenly spaced subsample (penalty scaled to its
-    // share of the weight): it is within sampling error of the full solution, so the full problem
-    // needs about half the Newton passes. Any failure on the subsample just keeps the plain start.
+    // On many rows, an evenly spaced subsample (copied once, so that the Newton passes on it read
+    // contiguous memory) gives the column scaling and, without a warm start, the start.
     let stride = x.rows() / START_SUBSAMPLE_ROWS;
-    let mut scaling = None;
-    let mut start = None;
-    if stride >= 8 {
-        // The subsample's rows, labels and weights copied together once: the Newton passes on it
-        // then read contiguous memory instead of one row in every `stride`.
+    let sub_rows: Option<Vec<f64>> = (stride >= 8).then(|| {
         let mut xs = Vec::with_capacity(x.rows().div_ceil(stride) * d);
         for i in (0..x.rows()).step_by(stride) {
             xs.extend_from_slice(x.row(i));
         }
-        let ys: Vec<f64> = y.iter().step_by(stride).copied().collect();
-        let ws: Vec<f64> = w.iter().step_by(stride).copied().collect();
-        let xsv = MatrixView::new(&xs, ys.len(), d)?;
-        if xsv.validate("X", 1).is_err() {
-            // The error names the first non-finite value of the whole input.
-            x.validate("X", 1)?;
-        }
-        let (mean, scale) = column_scaling(xsv);
-        let share = ws.iter().sum::<f64>() / wsum;
-        if warm.is_none() && share > 0.0 && share.is_finite() {
-            let sub = LogisticLoss::new(xsv, &ys, &ws, l2 * share, &mean, &scale);
-            if let Ok((t, _, _)) = newton(&sub, theta.clone(), max_iter, tol, false, None) {
-                if t.iter().all(|v| v.is_finite()) {
-                    start = Some(t);
-                }
+        xs
+    });
+    let sub = match &sub_rows {
+        Some(xs) => {
+            let xsv = MatrixView::new(xs, x.rows().div_ceil(stride), d)?;
+            if xsv.validate("X", 1).is_err() {
+                // The error names the first non-finite value of the whole input.
+                x.validate("X", 1)?;
             }
+            Some(xsv)
         }
-        scaling = Some((mean, scale));
-    }
-    let (mean, scale) = match scaling {
-        Some(ms) => ms,
         None => {
             x.validate("X", 1)?;
-            column_scaling(x)
+            None
         }
     };
-    let check_first = stride >= 8;
-    if let Some(t) = start {
-        theta = t;
-    }
-    if let Some((coef, b)) = warm {
-        // The raw-scale start on the standardised columns (the inverse of `unscale`).
-        for j in 0..d {
-            theta[j] = coef[j] * scale[j];
+    let (mean, scale) = column_scaling(sub.unwrap_or(x));
+    let theta = match warm {
+        Some((coef, b)) => {
+            // The raw-scale start on the standardised columns (the inverse of `unscale`).
+            let mut theta: Vec<f64> = (0..d).map(|j| coef[j] * scale[j]).collect();
+            theta.push(b + (0..d).map(|j| coef[j] * mean[j]).sum::<f64>());
+            theta
         }
-        theta[d] = b + (0..d).map(|j| coef[j] * mean[j]).sum::<f64>();
-    }
+        None => {
+            let wsum: f64 = w.iter().sum();
+            let mut theta = vec![0.0; p];
+            // Start the intercept at the weighted log-odds.
+            let wy: f64 = w.iter().zip(y).map(|(a, b)| a * b).sum();
+            let pbar = (wy / wsum).clamp(1e-6, 1.0 - 1e-6);
+            theta[d] = (pbar / (1.0 - pbar)).ln();
+            // Then, on many rows, move to the solution on the subsample (penalty scaled to its
+            // share of the weight): it is within sampling error of the full solution, so the full
+            // problem needs about half the Newton passes. Any failure on the subsample just keeps
+            // the plain start.
+            if let Some(xsv) = sub {
+                let ys: Vec<f64> = y.iter().step_by(stride).copied().collect();
+                let ws: Vec<f64> = w.iter().step_by(stride).copied().collect();
+                let share = ws.iter().sum::<f64>() / wsum;
+                if share > 0.0 && share.is_finite() {
+                    let loss = LogisticLoss::new(xsv, &ys, &ws, l2 * share, &mean, &scale);
+                    if let Ok((t, _, _)) = newton(&loss, theta.clone(), max_iter, tol, false, None)
+                    {
+                        if t.iter().all(|v| v.is_finite()) {
+                            theta = t;
+                        }
+                    }
+                }
+            }
+            theta
+        }
+    };
+    let check_first = sub.is_some();
     let loss = LogisticLoss::new(x, y, w, l2, &mean, &scale);
     let (theta, it, _) = newton(&loss, theta, max_iter, tol, check_first, None)?;
     Ok(unscale(&theta, &mean, &scale, it))
