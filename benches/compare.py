@@ -63,6 +63,9 @@ def parse_args(argv=None):
     p.add_argument("--l2", type=float, default=1.0, help="penalty of the logistic models (sklearn C = 1/l2)")
     p.add_argument("--settle", type=float, default=0.0,
                    help="seconds to pause before every timed call (default 0; see SETTLE_S)")
+    p.add_argument("--blas-thread-timeout", type=int, default=None,
+                   help="set OPENBLAS_THREAD_TIMEOUT (4-30) before numpy loads: OpenBLAS's idle "
+                        "worker threads then spin for 2^N cycles instead of the default (see SETTLE_S)")
     args = p.parse_args(argv)
     if args.quick:
         args.ulsif_n, args.kliep_n, args.clf_n, args.logit_n = 2_000, 1_000, 20_000, 50_000
@@ -79,6 +82,9 @@ if ARGS.threads:
     # Before numpy is imported, so its BLAS pool obeys it too.
     for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "RAYON_NUM_THREADS"):
         os.environ[var] = str(ARGS.threads)
+
+if ARGS.blas_thread_timeout is not None:
+    os.environ["OPENBLAS_THREAD_TIMEOUT"] = str(ARGS.blas_thread_timeout)
 
 import numpy as np  # noqa: E402
 import scipy.linalg  # noqa: E402
@@ -171,6 +177,11 @@ def median_distance(z, seed, subsample=1000):
 # reference MMD computation alone, repeated with pauses of 0 / 0.3 / 1.0 s, had medians
 # 0.50-0.52 / 0.52-0.53 / 0.70 s (single runs 0.48-1.01 s). The default runs back to back, which
 # can only understate shiftweight's ratio; both figures are in benches/README.md.
+# `--blas-thread-timeout 4` addresses the same effect without pausing: OpenBLAS reads
+# OPENBLAS_THREAD_TIMEOUT when it loads, and its idle workers spin for 2^N cycles before they sleep
+# (the default is 2^28 cycles, about 0.1 s at 3 GHz: from memory, OpenBLAS's THREAD_TIMEOUT). With
+# N = 4 they sleep at once. The reference's own time was not changed by it (MMD: 0.585 s with it,
+# 0.582 s without, medians of 7); benches/README.md gives the figures with and without.
 SETTLE_S = ARGS.settle
 
 
@@ -775,7 +786,9 @@ def main(args):
     except Exception:  # threadpoolctl is optional
         blas = ["unknown"]
     print(f"shiftweight {sw.__version__}, numpy {np.__version__}, python {platform.python_version()}, "
-          f"cpus {os.cpu_count()}, threads {args.threads or 'all'}, BLAS {', '.join(blas)}")
+          f"cpus {os.cpu_count()}, threads {args.threads or 'all'}, BLAS {', '.join(blas)}, "
+          f"OPENBLAS_THREAD_TIMEOUT={os.environ.get('OPENBLAS_THREAD_TIMEOUT', 'unset')}, "
+          f"settle {args.settle} s")
     print(f"load average before: {os.getloadavg()}; repeats {args.repeats} per side, alternating")
     for w in chosen:
         print(f"[{w}]", flush=True)
