@@ -157,3 +157,39 @@ def test_cv_table_variants_pickle_and_json():
         sw.KLRatio(cv="sideways").fit(s, t)
     with pytest.raises(sw.ShiftweightError, match="folds"):
         sw.KLRatio(folds=1).fit(s, t)
+
+
+def test_a_tolerance_below_floating_point_reach_ends_with_a_warning_not_max_iter():
+    # With tol far below what f64 can certify, the solver must stop once the objective no longer
+    # moves (not run on to max_iter) and say why. The gap bound it reports must still be a valid
+    # bound, checked against an independent run of the EM update for mixture weights (Cover
+    # 1984), whose objective is a lower bound of the maximum and whose own certified bound
+    # log(max g) caps the maximum from above.
+    rng = np.random.default_rng(0)
+    s, t = rng.normal(0, 1, (300, 1)), rng.normal(0.5, 1, (300, 1))
+    est = sw.KLRatio(sigma=1.0, tol=1e-300, max_iter=10_000).fit(s, t)
+    chosen = est.selection_["chosen"]
+    assert chosen["iterations"] < 100, chosen
+    assert chosen["gap_bound"] > 0.0
+    assert any("floating-point precision" in w for w in est.warnings_), est.warnings_
+    doc = __import__("json").loads(est.to_json())["model"]
+    centres = np.asarray(doc["form"]["centres"]["data"]).reshape(-1, 1)
+    mean = np.concatenate([s, t]).mean(0)
+    sd = np.concatenate([s, t]).std(0, ddof=1)
+    zs, zt = (s - mean) / sd, (t - mean) / sd
+    k = lambda a: np.exp(-((a - centres.T) ** 2) / 2.0)
+    kt, h = k(zt), k(zs).mean(0)
+    m = kt / h  # columns scaled so that p = h * alpha lies on the simplex
+    p = np.full(len(h), 1.0 / len(h))
+    for _ in range(20_000):
+        u = m @ p
+        g = m.T @ (1.0 / u) / len(u)
+        p *= g
+    u = m @ p
+    g = m.T @ (1.0 / u) / len(u)
+    f_em, gap_em = np.mean(np.log(u)), np.log(g.max())
+    f_sw = np.mean(np.log(kt @ np.asarray(doc["form"]["coef"])))
+    # f_em <= max <= f_sw + gap_sw and f_sw <= max <= f_em + gap_em.
+    assert f_em <= f_sw + chosen["gap_bound"] + 1e-12, (f_em, f_sw, chosen["gap_bound"])
+    assert f_sw <= f_em + gap_em + 1e-12, (f_em, f_sw, gap_em)
+    assert gap_em > chosen["gap_bound"]  # 20,000 EM steps certify less than the solver did
