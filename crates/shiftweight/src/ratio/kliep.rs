@@ -418,6 +418,20 @@ struct SqpPoint {
     phi: f64,
 }
 
+impl SqpPoint {
+    /// The solution at this point: alpha normalised onto the constraint (p = x / sum x), its
+    /// objective f(p), the certified gap bound and the iterations taken.
+    fn solution(&self, gap: f64, iterations: usize) -> KliepSolution {
+        let s: f64 = self.x.iter().sum();
+        KliepSolution {
+            alpha: self.alpha.iter().map(|v| v / s).collect(),
+            objective: self.mean_log - s.ln(),
+            gap,
+            iterations,
+        }
+    }
+}
+
 /// One KLIEP problem by sequential quadratic programming (see the module doc).
 fn solve_kliep_sqp(
     rows: ProblemRows,
@@ -464,7 +478,7 @@ fn solve_kliep_sqp(
     let mut free: Vec<usize> = active.clone();
     let mut iterations = 0;
     let mut failed_before = false;
-    let (mut last_phi, mut since_best) = (f64::INFINITY, 0usize);
+    let (mut last_phi, mut flat_steps) = (f64::INFINITY, 0usize);
     loop {
         let s: f64 = cur.x.iter().sum();
         let mmax = active.iter().map(|&l| cur.m[l]).fold(0.0f64, f64::max);
@@ -474,19 +488,13 @@ fn solve_kliep_sqp(
         // passing the line search by a rounding-level decrease of the objective). Five iterations
         // in a row that lower phi by no more than rounding (1e-14 relative) end the solve.
         if last_phi - cur.phi <= 1e-14 * (1.0 + cur.phi.abs()) {
-            since_best += 1;
+            flat_steps += 1;
         } else {
-            since_best = 0;
+            flat_steps = 0;
         }
         last_phi = cur.phi;
-        if gap <= tol || iterations >= max_iter || since_best >= 5 {
-            let alpha = cur.alpha.iter().map(|v| v / s).collect();
-            return Some(KliepSolution {
-                alpha,
-                objective: cur.mean_log - s.ln(),
-                gap,
-                iterations,
-            });
+        if gap <= tol || iterations >= max_iter || flat_steps >= 5 {
+            return Some(cur.solution(gap, iterations));
         }
         iterations += 1;
         let y = sqp_subproblem(&rows, h, &active, &cur, &mut free, nf);
@@ -536,13 +544,7 @@ fn solve_kliep_sqp(
                         p
                     }
                     _ => {
-                        let alpha = cur.alpha.iter().map(|v| v / s).collect();
-                        return Some(KliepSolution {
-                            alpha,
-                            objective: cur.mean_log - s.ln(),
-                            gap,
-                            iterations,
-                        });
+                        return Some(cur.solution(gap, iterations));
                     }
                 }
             }
