@@ -585,6 +585,7 @@ fn sqp_subproblem(
     };
     let mut hff = block(free);
     let max_inner = 4 * b + 20;
+    let mut just_freed: Option<usize> = None;
     for _ in 0..max_inner {
         let k = free.len();
         if k == 0 {
@@ -641,11 +642,21 @@ fn sqp_subproblem(
                     Some((l, lam)) if lam < -1e-10 => {
                         free.push(l);
                         hff = block(free);
+                        just_freed = Some(l);
                     }
                     _ => break,
                 }
             }
             Some((i, tau)) => {
+                // In exact arithmetic a column freed for its negative multiplier moves up on
+                // the next step (Nocedal & Wright 2006, theorem 16.5); if rounding in a nearly
+                // singular block makes it block at once, freeing it again would cycle: stop.
+                if just_freed == Some(free[i]) && tau <= 0.0 {
+                    y[free[i]] = 0.0;
+                    free.remove(i);
+                    break;
+                }
+                just_freed = None;
                 let tau = tau.clamp(0.0, 1.0);
                 for j in 0..k {
                     let l = free[j];
