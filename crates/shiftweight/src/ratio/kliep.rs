@@ -308,6 +308,7 @@ impl ProblemRows<'_> {
         self.a.len() / self.b.max(1)
     }
 
+    #[inline(always)]
     fn uses(&self, t: usize) -> bool {
         match (self.row_fold, self.skip) {
             (Some(rf), Some(s)) => rf[t] != s,
@@ -322,13 +323,7 @@ impl ProblemRows<'_> {
     /// At u = A alpha: the sum of log u_t, the sums sum_t a_t / u_t, and whether some row has
     /// u_t <= 0 or non-finite (then the point is outside the domain). One pass, O(n b).
     fn evaluate(&self, alpha: &[f64]) -> (f64, Vec<f64>, bool) {
-        let pass = LikelihoodPass {
-            a: self.a,
-            b: self.b,
-            row_fold: self.row_fold,
-            alpha,
-            skip: self.skip,
-        };
+        let pass = LikelihoodPass { rows: *self, alpha };
         par::reduce_chunks(
             self.n_all(),
             (0.0f64, vec![0.0f64; self.b], false),
@@ -425,10 +420,15 @@ impl SqpPoint {
         let s: f64 = self.x.iter().sum();
         KliepSolution {
             alpha: self.alpha.iter().map(|v| v / s).collect(),
-            objective: self.mean_log - s.ln(),
+            objective: self.objective(),
             gap,
             iterations,
         }
+    }
+
+    /// The KLIEP objective f(p) at the normalised point p = x / sum x.
+    fn objective(&self) -> f64 {
+        self.mean_log - self.x.iter().sum::<f64>().ln()
     }
 }
 
@@ -536,13 +536,7 @@ fn solve_kliep_sqp(
                 free = active.clone();
                 let stalled = std::mem::replace(&mut failed_before, true);
                 match at(xt) {
-                    Some(p)
-                        if !stalled
-                            && p.mean_log - p.x.iter().sum::<f64>().ln()
-                                >= cur.mean_log - s.ln() =>
-                    {
-                        p
-                    }
+                    Some(p) if !stalled && p.objective() >= cur.objective() => p,
                     _ => {
                         return Some(cur.solution(gap, iterations));
                     }
@@ -677,18 +671,14 @@ fn sqp_subproblem(
     y
 }
 
-/// What one KLIEP pass reads: the kernel rows `a` (b values each), the fold of each row (when the
-/// problem leaves a fold out), the point `alpha` and the fold the problem skips.
+/// What one KLIEP pass reads: the problem's kernel rows and the point `alpha`.
 struct LikelihoodPass<'a> {
-    a: &'a [f64],
-    b: usize,
-    row_fold: Option<&'a [usize]>,
+    rows: ProblemRows<'a>,
     alpha: &'a [f64],
-    skip: Option<usize>,
 }
 
 impl LikelihoodPass<'_> {
-    /// One chunk of rows `start..end` of the pass (leaving out the rows of fold `skip`): the sum
+    /// One chunk of rows `start..end` of the pass (only the problem's rows): the sum
     /// of log u_t, the sum of row_t / u_t, and whether some row has u_t <= 0 or non-finite.
     /// Compiled for AVX2 when the CPU has it (a separate function, so that the whole loop gets
     /// the wider vectors: a closure passed to [`kernel::with_wide_simd`] is not always inlined
@@ -721,17 +711,15 @@ impl LikelihoodPass<'_> {
         end: usize,
         dot: impl Fn(&[f64], &[f64]) -> f64,
     ) -> (f64, Vec<f64>, bool) {
-        let b = self.b;
+        let (a, b) = (self.rows.a, self.rows.b);
         let mut o = 0.0f64;
         let mut g = vec![0.0f64; b];
         let mut dead = false;
         for t in start..end {
-            if let (Some(rf), Some(s)) = (self.row_fold, self.skip) {
-                if rf[t] == s {
-                    continue;
-                }
+            if !self.rows.uses(t) {
+                continue;
             }
-            let row = &self.a[t * b..(t + 1) * b];
+            let row = &a[t * b..(t + 1) * b];
             let u = dot(row, self.alpha);
             if u <= 0.0 || !u.is_finite() {
                 dead = true;
