@@ -89,6 +89,12 @@ def test_binding_eps_constraint_matches_scipy():
     assert abs(beta.sum() - n) <= n * 0.01 + 1e-6
 
 
+# Measured over 20 seeds per size (2026-12-02; NMSE as a fraction of uniform weights' NMSE on the
+# same rows): with the held-out choice, medians 0.078, 0.034, 0.054, 0.056 at n = 100, 200, 400,
+# 800 (800 runs as two seeded blocks of 400). Choosing per seed, with the truth, the best of a 3 x 3
+# grid (sigma 1/4, 1/2, 1 x the median distance; ridge 0.01, 0.1, 1): medians 0.031, 0.025, 0.025,
+# 0.035. Even that hindsight choice stops improving after n = 200 on this case, so the plateau
+# belongs to the estimator and its grids, not only to the held-out selection.
 @pytest.mark.xfail(
     strict=True,
     reason="known open problem (measured 2026-12-02): with the held-out (sigma, ridge) choice NMSE is 0.006 "

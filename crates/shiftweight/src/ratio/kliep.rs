@@ -93,7 +93,6 @@ use crate::data::{kfold_assignment, validate_pair, MatrixView};
 use crate::error::{Error, Result};
 use crate::kernel;
 use crate::par;
-use faer::prelude::*;
 use faer::{Accum, Mat, MatRef};
 
 const TARGET_FOLD_TAG: u64 = 0x6b6c_6965_7074;
@@ -631,62 +630,66 @@ fn sqp_subproblem(
         BlockMode::Whole => true,
         BlockMode::Grown => false,
     };
-    let full = if whole {
+    let mut curv = if whole {
         let mut pos = vec![usize::MAX; b];
         for (i, &l) in active.iter().enumerate() {
             pos[l] = i;
         }
-        Some((block(active), pos))
+        FreeCurvature::Whole {
+            m: block(active),
+            pos,
+        }
     } else {
-        None
-    };
-    let slice = |f: &[usize], (m, pos): &(Mat<f64>, Vec<usize>)| -> Mat<f64> {
-        Mat::from_fn(f.len(), f.len(), |i, j| m[(pos[f[i]], pos[f[j]])])
-    };
-    let mut hff = match &full {
-        Some(fp) => slice(free, fp),
-        None => block(free),
+        FreeCurvature::Grown(block(free))
     };
     let max_inner = 4 * b + 20;
     let mut just_freed: Option<usize> = None;
+    let mut fac: Option<Cholesky> = None;
     for _ in 0..max_inner {
         let k = free.len();
         if k == 0 {
             break;
         }
         // Minimiser of q on the free set: H_FF z = -c_F (a tiny ridge guards near-singular
-        // blocks of wide kernels).
-        let dmax = (0..k).map(|i| hff[(i, i)]).fold(0.0f64, f64::max);
-        let rhs = Mat::from_fn(k, 1, |i, _| -c[free[i]]);
-        let mut z = None;
-        let mut ridge = 1e-12 * dmax.max(f64::MIN_POSITIVE);
-        for _ in 0..8 {
-            let reg = Mat::from_fn(k, k, |i, j| hff[(i, j)] + if i == j { ridge } else { 0.0 });
-            if let Ok(llt) = reg.llt(faer::Side::Lower) {
-                let sol = llt.solve(rhs.as_ref());
-                if (0..k).all(|i| sol[(i, 0)].is_finite()) {
-                    z = Some(sol);
-                    break;
+        // blocks of wide kernels). The factor follows the free set by updates; it is formed
+        // afresh at the start, after a failed update and if its solution is not finite.
+        let rhs: Vec<f64> = free.iter().map(|&l| -c[l]).collect();
+        let mut z = fac.as_ref().map(|f| f.solve(&rhs));
+        if !z.as_ref().is_some_and(|z| z.iter().all(|v| v.is_finite())) {
+            z = None;
+            fac = None;
+            let dmax = (0..k)
+                .map(|i| curv.entry(free, i, i))
+                .fold(0.0f64, f64::max);
+            let mut ridge = 1e-12 * dmax.max(f64::MIN_POSITIVE);
+            for _ in 0..8 {
+                if let Some(f) = Cholesky::factor(k, |i, j| curv.entry(free, i, j), ridge) {
+                    let sol = f.solve(&rhs);
+                    if sol.iter().all(|v| v.is_finite()) {
+                        z = Some(sol);
+                        fac = Some(f);
+                        break;
+                    }
                 }
+                ridge *= 100.0;
             }
-            ridge *= 100.0;
         }
         let Some(z) = z else { break };
         let blocking = (0..k)
-            .filter(|&i| z[(i, 0)] < 0.0)
+            .filter(|&i| z[i] < 0.0)
             .map(|i| {
                 let yi = y[free[i]];
-                (i, yi / (yi - z[(i, 0)]))
+                (i, yi / (yi - z[i]))
             })
             .min_by(|p, q| p.1.total_cmp(&q.1));
         match blocking {
             None => {
                 for i in 0..k {
-                    y[free[i]] = z[(i, 0)];
+                    y[free[i]] = z[i];
                 }
                 // Multipliers of the fixed columns: (H y + c)_l >= 0 at the QP's optimum.
-                let hy: Vec<f64> = match &full {
-                    Some((m, pos)) => (0..b)
+                let hy: Vec<f64> = match &curv {
+                    FreeCurvature::Whole { m, pos } => (0..b)
                         .map(|l| {
                             if pos[l] == usize::MAX {
                                 return 0.0;
@@ -694,7 +697,7 @@ fn sqp_subproblem(
                             free.iter().map(|&j| m[(pos[l], pos[j])] * y[j]).sum()
                         })
                         .collect(),
-                    None => {
+                    FreeCurvature::Grown(_) => {
                         let dir: Vec<f64> = (0..b)
                             .map(|l| if h[l] > 0.0 { y[l] / h[l] } else { 0.0 })
                             .collect();
@@ -726,13 +729,18 @@ fn sqp_subproblem(
                     Some((l, lam)) if lam < -1e-10 => {
                         // H_FF grows by one row and column.
                         free.push(l);
-                        hff = match &full {
-                            Some(fp) => slice(free, fp),
-                            None => {
-                                let col = rows.curvature_times(&inv_u, Direction::Unit(l));
-                                grow_block(&hff, free, &col, h, nf)
+                        if let FreeCurvature::Grown(hff) = &mut curv {
+                            let col = rows.curvature_times(&inv_u, Direction::Unit(l));
+                            *hff = grow_block(hff, free, &col, h, nf);
+                        }
+                        if let Some(f) = fac.as_mut() {
+                            let last = free.len() - 1;
+                            let col: Vec<f64> =
+                                (0..last).map(|i| curv.entry(free, last, i)).collect();
+                            if !f.append(&col, curv.entry(free, last, last)) {
+                                fac = None;
                             }
-                        };
+                        }
                         just_freed = Some(l);
                     }
                     _ => break,
@@ -751,12 +759,17 @@ fn sqp_subproblem(
                 let tau = tau.clamp(0.0, 1.0);
                 for j in 0..k {
                     let l = free[j];
-                    y[l] += tau * (z[(j, 0)] - y[l]);
+                    y[l] += tau * (z[j] - y[l]);
                 }
                 y[free[i]] = 0.0;
                 free.remove(i);
-                let keep: Vec<usize> = (0..k).filter(|&j| j != i).collect();
-                hff = Mat::from_fn(k - 1, k - 1, |p, q| hff[(keep[p], keep[q])]);
+                if let Some(f) = fac.as_mut() {
+                    f.remove(i);
+                }
+                if let FreeCurvature::Grown(hff) = &mut curv {
+                    let keep: Vec<usize> = (0..k).filter(|&j| j != i).collect();
+                    *hff = Mat::from_fn(k - 1, k - 1, |p, q| hff[(keep[p], keep[q])]);
+                }
             }
         }
     }
@@ -766,6 +779,113 @@ fn sqp_subproblem(
         }
     }
     y
+}
+
+/// Where the entries of H_FF come from in one QP subproblem (see [`sqp_subproblem`]).
+enum FreeCurvature {
+    /// The whole block `m` over the active columns, formed once; `pos[l]` is column l's index
+    /// in it (usize::MAX for inactive columns).
+    Whole { m: Mat<f64>, pos: Vec<usize> },
+    /// H_FF itself, in the order of the free set, grown and cut with it.
+    Grown(Mat<f64>),
+}
+
+impl FreeCurvature {
+    /// Entry (i, j) of H_FF, for positions i, j in the free set `free`.
+    fn entry(&self, free: &[usize], i: usize, j: usize) -> f64 {
+        match self {
+            FreeCurvature::Whole { m, pos } => m[(pos[free[i]], pos[free[j]])],
+            FreeCurvature::Grown(hff) => hff[(i, j)],
+        }
+    }
+}
+
+/// The Cholesky factor L (lower triangular, row-major) of A + ridge I for the free block of the
+/// active-set method, kept in step with the free set: freeing a column appends a row to L
+/// (one forward substitution, O(k^2)), fixing one deletes its row and restores the triangle with
+/// Givens rotations (O(k^2); Golub & Van Loan 2013, section 6.5.4), so each step of the method
+/// costs O(k^2) instead of a fresh O(k^3) factorisation (measured: 6,650 factorisations of
+/// blocks up to 200 x 200 in one 1-D fit of 300 + 300 rows). Single-threaded: the blocks are at
+/// most b x b.
+struct Cholesky {
+    /// Rows of L; row i holds its first i + 1 entries.
+    rows: Vec<Vec<f64>>,
+    ridge: f64,
+}
+
+impl Cholesky {
+    /// Factorises A + ridge I for the k x k matrix with entries `a(i, j)` (only i >= j is read);
+    /// None at a pivot that is not positive.
+    fn factor(k: usize, a: impl Fn(usize, usize) -> f64, ridge: f64) -> Option<Self> {
+        let mut f = Cholesky {
+            rows: Vec::with_capacity(k),
+            ridge,
+        };
+        for i in 0..k {
+            let col: Vec<f64> = (0..i).map(|j| a(i, j)).collect();
+            if !f.append(&col, a(i, i)) {
+                return None;
+            }
+        }
+        Some(f)
+    }
+
+    /// Appends a last row and column with off-diagonal entries `col` (against the current
+    /// rows, in order) and diagonal `diag`; false (factor unchanged) if the new pivot is not
+    /// positive.
+    fn append(&mut self, col: &[f64], diag: f64) -> bool {
+        let k = self.rows.len();
+        debug_assert_eq!(col.len(), k);
+        let mut w = Vec::with_capacity(k + 1);
+        for (i, row) in self.rows.iter().enumerate() {
+            let s: f64 = row[..i].iter().zip(&w).map(|(l, w)| l * w).sum();
+            w.push((col[i] - s) / row[i]);
+        }
+        let d2 = diag + self.ridge - w.iter().map(|v| v * v).sum::<f64>();
+        if !(d2 > 0.0 && d2.is_finite()) {
+            return false;
+        }
+        w.push(d2.sqrt());
+        self.rows.push(w);
+        true
+    }
+
+    /// Deletes row and column `i` of A.
+    fn remove(&mut self, i: usize) {
+        self.rows.remove(i);
+        // Rows i.. now have one entry past the diagonal (column p + 1 for row p); rotate
+        // columns (p, p + 1) to zero it, top to bottom.
+        for p in i..self.rows.len() {
+            let (a, b) = (self.rows[p][p], self.rows[p][p + 1]);
+            let r = a.hypot(b);
+            let (c, s) = if r > 0.0 { (a / r, b / r) } else { (1.0, 0.0) };
+            for row in self.rows[p..].iter_mut() {
+                let (x, y) = (row[p], row[p + 1]);
+                row[p] = c * x + s * y;
+                row[p + 1] = -s * x + c * y;
+            }
+            self.rows[p][p] = r;
+            self.rows[p].truncate(p + 1);
+        }
+    }
+
+    /// Solves (A + ridge I) z = rhs: L v = rhs, then L' z = v. O(k^2).
+    fn solve(&self, rhs: &[f64]) -> Vec<f64> {
+        let k = self.rows.len();
+        let mut v = Vec::with_capacity(k);
+        for (i, row) in self.rows.iter().enumerate() {
+            let s: f64 = row[..i].iter().zip(&v).map(|(l, v)| l * v).sum();
+            v.push((rhs[i] - s) / row[i]);
+        }
+        for i in (0..k).rev() {
+            let vi = v[i] / self.rows[i][i];
+            v[i] = vi;
+            for (j, l) in self.rows[i][..i].iter().enumerate() {
+                v[j] -= l * vi;
+            }
+        }
+        v
+    }
 }
 
 /// Where a QP subproblem takes its curvature blocks from (see [`sqp_subproblem`]).
@@ -1174,6 +1294,7 @@ impl RatioEstimator for KLRatio {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use faer::prelude::*;
     use rand_distr::{Distribution, Normal};
 
     fn gauss(n: usize, mean: f64, sd: f64, seed: u64) -> Vec<f64> {
@@ -1303,6 +1424,71 @@ mod tests {
                 "sigma {sigma}: sqp {f_sqp} em {f_em}"
             );
         }
+    }
+
+    #[test]
+    fn updated_cholesky_factor_matches_a_fresh_faer_factorisation() {
+        // Reference: faer's own Cholesky factorisation (Mat::llt) of the same submatrix, formed
+        // afresh after every update; and L L' = A entry by entry.
+        let n = 30;
+        let g = gauss(n * (n + 5), 0.0, 1.0, 21);
+        let gm = MatRef::from_row_major_slice(&g, n, n + 5);
+        let a = gm * gm.transpose();
+        let ridge = 1e-9;
+        let mut idx: Vec<usize> = (0..20).collect();
+        let mut f = Cholesky::factor(idx.len(), |i, j| a[(idx[i], idx[j])], ridge).unwrap();
+        // Fix and free columns in a pattern like the active-set method's.
+        let steps: [(bool, usize); 8] = [
+            (false, 3),
+            (true, 25),
+            (false, 0),
+            (false, 17),
+            (true, 21),
+            (true, 29),
+            (false, 5),
+            (true, 3),
+        ];
+        for (add, which) in steps {
+            if add {
+                let col: Vec<f64> = idx.iter().map(|&j| a[(which, j)]).collect();
+                assert!(f.append(&col, a[(which, which)]));
+                idx.push(which);
+            } else {
+                f.remove(which);
+                idx.remove(which);
+            }
+            let k = idx.len();
+            let sub = Mat::from_fn(k, k, |i, j| {
+                a[(idx[i], idx[j])] + if i == j { ridge } else { 0.0 }
+            });
+            for i in 0..k {
+                for j in 0..=i {
+                    let llt: f64 = (0..=j).map(|p| f.rows[i][p] * f.rows[j][p]).sum();
+                    assert!(
+                        (llt - sub[(i, j)]).abs() <= 1e-10 * (1.0 + sub[(i, i)]),
+                        "({i}, {j})"
+                    );
+                }
+            }
+            let rhs: Vec<f64> = (0..k).map(|i| (i as f64 * 0.7).sin()).collect();
+            let z = f.solve(&rhs);
+            let reference =
+                sub.llt(faer::Side::Lower)
+                    .unwrap()
+                    .solve(Mat::from_fn(k, 1, |i, _| rhs[i]));
+            for i in 0..k {
+                assert!((z[i] - reference[(i, 0)]).abs() <= 1e-8 * (1.0 + reference[(i, 0)].abs()));
+            }
+        }
+        // A copy of a column, with its diagonal lowered, would make the block indefinite: it is
+        // refused and the factor is left as it was.
+        let dup: Vec<f64> = idx.iter().map(|&j| a[(idx[0], j)]).collect();
+        let mut g = Cholesky {
+            rows: f.rows.clone(),
+            ridge: 0.0,
+        };
+        assert!(!g.append(&dup, a[(idx[0], idx[0])] - 1e-6));
+        assert_eq!(g.rows, f.rows);
     }
 
     #[test]
