@@ -1303,6 +1303,22 @@ mod tests {
         (0..n).map(|_| g.sample(&mut r)).collect()
     }
 
+    /// A 1-D KLIEP problem: n rows from N(mean, sd^2), the first b of them as centres, the
+    /// n x b kernel matrix at width `sigma`, and the constraint vector h_l = `h(l)`.
+    fn one_d_problem(
+        n: usize,
+        b: usize,
+        (mean, sd): (f64, f64),
+        sigma: f64,
+        seed: u64,
+        h: impl Fn(usize) -> f64,
+    ) -> (Vec<f64>, Vec<f64>) {
+        let t = gauss(n, mean, sd, seed);
+        let tv = MatrixView::new(&t, n, 1).unwrap();
+        let cv = MatrixView::new(&t[..b], b, 1).unwrap();
+        (kernel_matrix(tv, cv, sigma), (0..b).map(h).collect())
+    }
+
     fn normal_pdf(x: f64, m: f64, s: f64) -> f64 {
         (-(x - m) * (x - m) / (2.0 * s * s)).exp() / (s * (2.0 * std::f64::consts::PI).sqrt())
     }
@@ -1370,12 +1386,9 @@ mod tests {
         // maximum, and the solver's certified gap must hold against it.
         for (sigma, seed) in [(0.15, 3u64), (0.5, 4), (1.0, 5)] {
             let (n, b) = (200, 15);
-            let t = gauss(n, 2.0, 0.5, seed);
-            let centres: Vec<f64> = t[..b].to_vec();
-            let tv = MatrixView::new(&t, n, 1).unwrap();
-            let cv = MatrixView::new(&centres, b, 1).unwrap();
-            let a = kernel_matrix(tv, cv, sigma);
-            let h: Vec<f64> = (0..b).map(|l| 0.05 + 0.02 * (l % 7) as f64).collect();
+            let (a, h) = one_d_problem(n, b, (2.0, 0.5), sigma, seed, |l| {
+                0.05 + 0.02 * (l % 7) as f64
+            });
             let sol = solve_kliep_batch(&a, b, None, &[(h.clone(), None)], 1e-9, 10_000)
                 .pop()
                 .flatten()
@@ -1500,12 +1513,9 @@ mod tests {
         // active-set method free and fix many columns, which exercises both curvature sources.
         for (sigma, seed) in [(0.08, 11u64), (0.15, 12), (0.6, 13)] {
             let (n, b) = (300, 40);
-            let t = gauss(n, 0.0, 1.0, seed);
-            let centres: Vec<f64> = t[..b].to_vec();
-            let tv = MatrixView::new(&t, n, 1).unwrap();
-            let cv = MatrixView::new(&centres, b, 1).unwrap();
-            let a = kernel_matrix(tv, cv, sigma);
-            let h: Vec<f64> = (0..b).map(|l| 0.05 + 0.03 * (l % 5) as f64).collect();
+            let (a, h) = one_d_problem(n, b, (0.0, 1.0), sigma, seed, |l| {
+                0.05 + 0.03 * (l % 5) as f64
+            });
             let rows = ProblemRows {
                 a: &a,
                 b,
