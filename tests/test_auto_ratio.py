@@ -87,6 +87,25 @@ def test_breast_cancer_choice_is_within_a_small_factor_of_the_best():
     assert errors[auto.chosen_] <= FACTOR * min(errors.values()), (auto.chosen_, errors, auto.scores_)
 
 
+def test_quadratic_classifier_is_a_default_candidate_only_up_to_20_columns():
+    rng = np.random.default_rng(5)
+    for d, present in ((20, True), (21, False)):
+        s, t = rng.normal(size=(150, d)), rng.normal(size=(150, d))
+        t[:, 0] += 1.0
+        auto = sw.AutoRatio(folds=3).fit(s, t)
+        names = [row["name"] for row in auto.scores_]
+        assert ("classifier_quadratic" in names) == present, (d, names)
+        assert len(names) == (6 if present else 5), names
+        left_out = [w for w in auto.warnings_ if "quadratic classifier is not among the default" in w]
+        assert bool(left_out) == (not present), auto.warnings_
+        if left_out:
+            assert "here 21: 252 quadratic features" in left_out[0]
+    # Passed explicitly, it is scored at any width.
+    auto = sw.AutoRatio(candidates={"quad": sw.ClassifierRatio(features="quadratic")}, folds=3).fit(s, t)
+    assert [row["name"] for row in auto.scores_] == ["uniform", "quad"]
+    assert not any("quadratic classifier" in w for w in auto.warnings_)
+
+
 def test_same_distribution_gives_uniform_weights_with_a_plain_message():
     rng = np.random.default_rng(3)
     s, t = rng.normal(size=(300, 2)), rng.normal(size=(300, 2))
