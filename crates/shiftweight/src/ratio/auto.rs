@@ -47,7 +47,7 @@
 //! rows), plus one refit of the winner. Folds run one after another with the candidates in
 //! parallel; memory is one copy of the rows for the current fold.
 
-use super::classifier::{ClassifierRatio, Features};
+use super::classifier::{ClassifierRatio, FeatureMap, Features};
 use super::{
     fit_meta, mean_and_std_error, params, standardise_pair, EstimatorKind, FittedRatio,
     LeastSquaresRatio, RatioEstimator, RatioForm, ScoreRow, Selection,
@@ -433,7 +433,7 @@ impl RatioEstimator for AutoRatio {
         if self.use_defaults && d > QUADRATIC_DEFAULT_MAX_COLUMNS {
             warnings.push(format!(
                 "the quadratic classifier is not among the default candidates above                  {QUADRATIC_DEFAULT_MAX_COLUMNS} columns (here {d}: {} quadratic features, and each                  Newton step costs O(rows x features^2)); add it as an explicit candidate to score it",
-                d * (d + 3) / 2
+                FeatureMap::Quadratic.dim(d)
             ));
         }
         for s in &scores {

@@ -837,13 +837,8 @@ impl Cholesky {
     /// rows, in order) and diagonal `diag`; false (factor unchanged) if the new pivot is not
     /// positive.
     fn append(&mut self, col: &[f64], diag: f64) -> bool {
-        let k = self.rows.len();
-        debug_assert_eq!(col.len(), k);
-        let mut w = Vec::with_capacity(k + 1);
-        for (i, row) in self.rows.iter().enumerate() {
-            let s: f64 = row[..i].iter().zip(&w).map(|(l, w)| l * w).sum();
-            w.push((col[i] - s) / row[i]);
-        }
+        debug_assert_eq!(col.len(), self.rows.len());
+        let mut w = self.forward(col);
         let d2 = diag + self.ridge - w.iter().map(|v| v * v).sum::<f64>();
         if !(d2 > 0.0 && d2.is_finite()) {
             return false;
@@ -872,14 +867,20 @@ impl Cholesky {
         }
     }
 
-    /// Solves (A + ridge I) z = rhs: L v = rhs, then L' z = v. O(k^2).
-    fn solve(&self, rhs: &[f64]) -> Vec<f64> {
-        let k = self.rows.len();
-        let mut v = Vec::with_capacity(k);
+    /// Solves L v = rhs by forward substitution. O(k^2).
+    fn forward(&self, rhs: &[f64]) -> Vec<f64> {
+        let mut v = Vec::with_capacity(self.rows.len() + 1);
         for (i, row) in self.rows.iter().enumerate() {
             let s: f64 = row[..i].iter().zip(&v).map(|(l, v)| l * v).sum();
             v.push((rhs[i] - s) / row[i]);
         }
+        v
+    }
+
+    /// Solves (A + ridge I) z = rhs: L v = rhs, then L' z = v. O(k^2).
+    fn solve(&self, rhs: &[f64]) -> Vec<f64> {
+        let k = self.rows.len();
+        let mut v = self.forward(rhs);
         for i in (0..k).rev() {
             let vi = v[i] / self.rows[i][i];
             v[i] = vi;
