@@ -61,15 +61,16 @@ def test_one_standard_error_rule_picks_widest_within_margin():
         sw.KLRatio(se_margin=-1.0).fit(s, t)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="known open problem (measured 2026-12-02): NMSE does not fall with n in 5-D at 100 basis "
-    "functions (0.097 at n = 200, 0.101 at n = 1500; uniform 0.209). Both choose width 2.9, the best of the "
-    "grid at both n (per-width refits), so the floor is the 100-centre Gaussian model's bias for an "
-    "exp-linear ratio; at n = 1500 300 centres gave 0.051, 200 gave 0.097.",
-)
 def test_gaussian_5d_mean_shift_nmse_small_and_falls_with_n():
     # Source N(0, I_5), target N(mu, I_5), mu = (0.5, 0, 0, 0, 0): log-ratio mu'x - |mu|^2/2 (analytic).
+    # NMSE is a random quantity whose spread over draws (sd 0.06 at n = 200) is larger than the fall
+    # from n = 200 to 1,500 (about 0.06), so one draw per size cannot show the fall: one draw with
+    # seed n at 100 basis functions gave 0.097 at 200 and 0.101 at 1,500 (another NMSE scale). The
+    # claim is about the expected NMSE, so the test compares means over 12 seeded draws per size.
+    # Measured with these seeds and this file's nmse: mean 0.155 (sd 0.062) at n = 200, 0.098
+    # (sd 0.015) at 1,500; uniform weights 0.264. On 16 other seeds, in the units of
+    # tests/_shift_cases.py's nmse (uniform 0.209): 0.110, 0.078 and 0.073 at n = 200, 1,500 and
+    # 4,000. The fall levels off: the bias of a positive Gaussian-sum model for an exp-linear ratio.
     d = 5
     mu = np.zeros(d)
     mu[0] = 0.5
@@ -79,9 +80,12 @@ def test_gaussian_5d_mean_shift_nmse_small_and_falls_with_n():
     uniform = nmse(np.ones(len(held_out)), truth)
     errs = []
     for n in (200, 1500):
-        rng = np.random.default_rng(n)
-        s, t = rng.normal(0, 1, (n, d)), rng.normal(0, 1, (n, d)) + mu
-        errs.append(nmse(sw.KLRatio(n_basis=100).fit(s, t).ratio(held_out), truth))
+        per_draw = []
+        for seed in range(12):
+            rng = np.random.default_rng([n, seed])
+            s, t = rng.normal(0, 1, (n, d)), rng.normal(0, 1, (n, d)) + mu
+            per_draw.append(nmse(sw.KLRatio().fit(s, t).ratio(held_out), truth))
+        errs.append(float(np.mean(per_draw)))
     assert errs[1] < errs[0], errs
     assert errs[1] < 0.5 * uniform, (errs, uniform)
 
