@@ -519,10 +519,7 @@ impl RatioEstimator for ClassifierRatio {
                         params: params([("l2", l2)]),
                         score: cf.log_loss,
                     });
-                    if best
-                        .as_ref()
-                        .map_or(true, |(_, b)| cf.log_loss < b.log_loss)
-                    {
+                    if best.as_ref().is_none_or(|(_, b)| cf.log_loss < b.log_loss) {
                         best = Some((l2, cf));
                     }
                 }

@@ -303,7 +303,7 @@ pub(crate) fn solve_qp(
     let mut b = Vec::with_capacity(2 * n + 2);
     b.push(nf * (1.0 + eps));
     b.push(-nf * (1.0 - eps));
-    b.extend(std::iter::repeat(bound).take(n));
+    b.extend(std::iter::repeat_n(bound, n));
     b.resize(2 * n + 2, 0.0);
     let cones = [SupportedConeT::NonnegativeConeT(2 * n + 2)];
     let settings = DefaultSettingsBuilder::default()
