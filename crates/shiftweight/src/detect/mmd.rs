@@ -1222,6 +1222,38 @@ mod tests {
     }
 
     #[test]
+    fn relabelled_statistics_do_not_depend_on_the_thread_count() {
+        // Each relabelling's sums run over its rows in a fixed order whatever the batch or
+        // thread, so 1, 2 and 3 threads give the same bits (both routes).
+        let (ns, nt, d, b) = (300, 260, 3, 150);
+        let s = gaussian(ns, d, 0.0, 21);
+        let t = gaussian(nt, d, 0.2, 22);
+        let (sv, tv) = (
+            MatrixView::new(&s, ns, d).unwrap(),
+            MatrixView::new(&t, nt, d).unwrap(),
+        );
+        let (z, _) = pooled_standardized(sv, tv);
+        let kc = centred_kernel(z.view(), 1.3, ns, 7);
+        let seeds: Vec<u64> = (0..b as u64).map(|k| 31 * k + 5).collect();
+        for route in [PermRoute::Product, PermRoute::Masked] {
+            let runs: Vec<Vec<u64>> = [1, 2, 3]
+                .iter()
+                .map(|&threads| {
+                    let pool = rayon::ThreadPoolBuilder::new()
+                        .num_threads(threads)
+                        .build()
+                        .unwrap();
+                    let (_, stats, _) =
+                        pool.install(|| permutation_statistics_by(&kc, ns, &seeds, route));
+                    stats.iter().map(|v| v.to_bits()).collect()
+                })
+                .collect();
+            assert_eq!(runs[0], runs[1], "{route:?}");
+            assert_eq!(runs[0], runs[2], "{route:?}");
+        }
+    }
+
+    #[test]
     fn exact_ties_count_as_ties() {
         // One binary feature: a relabelling's statistic depends only on how many 1s the rows
         // called "source" hold, so relabellings with the observed count tie with the observed
