@@ -31,8 +31,8 @@
 //!
 //!   Precision. The observed statistic, r and 1'K1 are f64 sums. The relabelled statistics use
 //!   f32 for the kernel and the sums along a row (the 0/1 indicators are exact in f32; the masked
-//!   route spreads a row's sum over 16 lanes) and f64 for the sums over rows. MMD^2_u is s_XX times a = 1/(m(m-1)) + 1/(n(n-1)) + 2/(mn) (about
-//!   (1/m + 1/n)^2) plus f64 terms in r'p and 1'K1, so an error e in s_XX moves the statistic by
+//!   route spreads a row's sum over 16 lanes) and f64 for the sums over rows. MMD^2_u is s_XX
+//!   times a = 1/(m(m-1)) + 1/(n(n-1)) + 2/(mn) (about (1/m + 1/n)^2) plus f64 terms in r'p and 1'K1, so an error e in s_XX moves the statistic by
 //!   a e. To keep e small the f32 matrix is the doubly centred K~ = HKH (H = I - 11'/N), using
 //!   p'Kp = p'K~p + 2 (m/N) r'p - (m/N)^2 1'K1 (exact algebra, since 1'p = m): the rows of K~ sum
 //!   to zero, so the partial sums of a row of K~ P grow like a random walk (about
@@ -102,6 +102,7 @@ const TAG_ORDER: u64 = 0x6d6d_645f_6f72_6472;
 const TIE_ERRORS: f64 = 10.0;
 /// Most permutation columns multiplied with the kernel matrix at a time (wider batches amortise
 /// faer's packing of the kernel matrix; 256 was the fastest of 64, 128 and 256 at N = 4,000).
+/// The masked route uses the same batches (128 and 512 were not faster there).
 const PERM_BATCH_MAX: usize = 256;
 /// Fewest batches (when there are at least 32 permutations each), so that a few cores share the
 /// products. Batch widths depend only on the number of permutations, never on the thread count.
@@ -393,11 +394,10 @@ fn permutation_statistics_by(
         .flat_map_iter(|batch| {
             let b = batch.len();
             let mut p = Mat::<f32>::zeros(n, b);
+            let mut idx = Vec::with_capacity(n);
             for (c, &s) in batch.iter().enumerate() {
-                let mut idx: Vec<usize> = (0..n).collect();
-                idx.shuffle(&mut rng(s));
-                for &i in &idx[..ns] {
-                    p[(kc.pos[i], c)] = 1.0;
+                for pos in relabelled_positions(kc, ns, s, &mut idx) {
+                    p[(pos, c)] = 1.0;
                 }
             }
             let mut y = Mat::<f32>::zeros(n, b);
@@ -467,15 +467,11 @@ fn masked_statistics(
             let mut bits = vec![0u16; (b + 1) * words];
             // Per relabelling, the f64 sums of K~_ii and r_i over its selected positions.
             let mut diag_r = vec![(0.0, 0.0); b];
-            let mut idx: Vec<usize> = Vec::with_capacity(n);
+            let mut idx = Vec::with_capacity(n);
             for (c, &s) in batch.iter().enumerate() {
-                idx.clear();
-                idx.extend(0..n);
-                idx.shuffle(&mut rng(s));
                 let mask = &mut bits[c * words..(c + 1) * words];
                 let (mut dp, mut rp) = (0.0, 0.0);
-                for &i in &idx[..ns] {
-                    let p = kc.pos[i];
+                for p in relabelled_positions(kc, ns, s, &mut idx) {
                     mask[p / 16] |= 1 << (p % 16);
                     dp += kc.diag[p];
                     rp += kc.r[p];
@@ -493,6 +489,20 @@ fn masked_statistics(
                 .collect::<Vec<f64>>()
         })
         .collect()
+}
+
+/// The matrix positions of the `ns` pooled rows that the relabelling with seed `seed` calls
+/// "source" (a seeded shuffle of the pooled rows; `idx` is scratch).
+fn relabelled_positions<'a>(
+    kc: &'a CentredKernel,
+    ns: usize,
+    seed: u64,
+    idx: &'a mut Vec<usize>,
+) -> impl Iterator<Item = usize> + 'a {
+    idx.clear();
+    idx.extend(0..kc.n);
+    idx.shuffle(&mut rng(seed));
+    idx[..ns].iter().map(|&i| kc.pos[i])
 }
 
 /// Whether [`masked_pair_sums`] has its vector version on this CPU (AVX-512F).
