@@ -617,17 +617,19 @@ unsafe fn masked_pair_sums_avx512(
         let len = real.div_ceil(MASK_GROUP) * MASK_GROUP;
         sel[real..len].fill(b);
         let sel = &sel[..len];
-        // SAFETY: row i lies inside `lower` (length n * n); every mask index is <= b.
+        // SAFETY: i < n, so row i starts inside `lower` (length n * n).
         let row = unsafe { lower.as_ptr().add(i * n) };
-        for (g, group) in sel.chunks_exact(MASK_GROUP).enumerate() {
+        for group in sel.chunks_exact(MASK_GROUP) {
+            // SAFETY: every index in `sel` is <= b and `bits` holds (b + 1) * words words.
             let masks: [*const u16; MASK_GROUP] =
                 std::array::from_fn(|m| unsafe { bits.as_ptr().add(group[m] * words) });
             // SAFETY: the row has i <= n - 1 values after `row`; every mask has `words` >
             // i / 16 words.
             let sums = unsafe { masked_group_sums(row, i, &masks) };
-            for (m, &c) in group.iter().enumerate() {
-                if g * MASK_GROUP + m < real {
-                    out[c] += f64::from(sums[m]);
+            for (&c, sum) in group.iter().zip(sums) {
+                // Index b is the padding mask.
+                if c < b {
+                    out[c] += f64::from(sum);
                 }
             }
         }
@@ -653,15 +655,19 @@ unsafe fn masked_group_sums(
     let (full, tail) = (len / 16, len % 16);
     let mut acc = [_mm512_setzero_ps(); MASK_GROUP];
     for k in 0..full {
+        // SAFETY: 16 k + 16 <= len values are valid at `row` (caller's contract).
         let piece = unsafe { _mm512_loadu_ps(row.add(16 * k)) };
         for (a, m) in acc.iter_mut().zip(masks) {
+            // SAFETY: k < len.div_ceil(16), the words valid at every mask (caller's contract).
             *a = _mm512_mask_add_ps(*a, unsafe { *m.add(k) }, *a, piece);
         }
     }
     if tail > 0 {
-        // A masked load reads only the `tail` values that exist (no access past the row).
+        // SAFETY: the masked load reads only the `tail` values at 16 full .. len, which are
+        // valid; masked-off lanes are not accessed.
         let piece = unsafe { _mm512_maskz_loadu_ps((1u16 << tail) - 1, row.add(16 * full)) };
         for (a, m) in acc.iter_mut().zip(masks) {
+            // SAFETY: full = len.div_ceil(16) - 1 here, a valid word of every mask.
             *a = _mm512_mask_add_ps(*a, unsafe { *m.add(full) }, *a, piece);
         }
     }
