@@ -3,6 +3,8 @@ same quadratic program, analytic Gaussian ratios, and scikit-learn's bundled bre
 
 import json
 import pickle
+import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -10,6 +12,9 @@ from scipy import optimize, stats
 from sklearn.datasets import load_breast_cancer
 
 import shiftweight as sw
+
+sys.path.insert(0, str(Path(__file__).parent))
+from _shift_cases import nmse as shared_nmse  # noqa: E402
 
 
 def nmse(w_est, w_true):
@@ -93,19 +98,28 @@ def test_binding_eps_constraint_matches_scipy():
 # same rows): with the held-out choice, medians 0.078, 0.034, 0.054, 0.056 at n = 100, 200, 400,
 # 800 (800 runs as two seeded blocks of 400). Choosing per seed, with the truth, the best of a 3 x 3
 # grid (sigma 1/4, 1/2, 1 x the median distance; ridge 0.01, 0.1, 1): medians 0.031, 0.025, 0.025,
-# 0.035. Even that hindsight choice stops improving after n = 200 on this case, so the plateau
-# belongs to the estimator and its grids, not only to the held-out selection.
-# A wider grid does not change that (2026-12-02, 12 other seeds, exact solves up to n = 800, NMSE of
-# tests/_shift_cases.py, uniform 0.88 to 0.97): over sigma 1/16 to 1 x median and ridge 1e-4 to 1
-# (5 x 5), the per-seed hindsight best has medians 0.013, 0.021, 0.009, 0.013 at n = 100, 200, 400,
-# 800; the held-out choice 0.124, 0.048, 0.030, 0.040. On 24 further seeds with the defaults the
-# medians were 0.076 at n = 100 and 0.070 at 400 (means 0.168 and 0.106, pulled by draws above 0.5).
+# 0.035.
+# Later measurements (2026-12-02, NMSE of tests/_shift_cases.py on the fitted rows, uniform about
+# 0.93) correct the reading that the plateau belongs to the estimator. With the setting held fixed
+# the QP's error does fall with n: over 10 seeds, (1/2 median, ridge 0.1) gives means 0.106, 0.081,
+# 0.043, 0.027 at n = 100, 200, 400, 800 and the per-seed best of a 4 x 4 grid 0.061, 0.055, 0.023,
+# 0.015 (test_gaussian_1d_fixed_setting_mean_nmse_falls_with_n checks this on fresh seeds). What
+# does not fall reliably is the default, whose setting the held-out matching error chooses: that
+# error chose the smallest ridge of the grid, 0.01, in 30 of 30 fits at n = 100, 200, 400 (and on
+# the one score table we printed, n = 400, ridge 0.01 scored lowest at every width): closer matching
+# of the fitted source rows lowers it, while at small widths ridge 0.01 sometimes gives weights far
+# off the truth (10 seeds, 1/4 median: mean 0.419, median 0.286 at n = 100). Over 48
+# seeds the defaults gave means 0.163 (sd 0.324) at n = 100 and 0.102 (sd 0.125) at 400, medians
+# 0.065 and 0.035, but means of groups of 12 seeds overlap (0.094 to 0.248 against 0.062 to 0.147),
+# so a test on 12 draws could not state the fall honestly. Tried and not adopted: holding out source
+# rows too and scoring them with the weights the QP's optimality conditions give a new row
+# (beta(x) = clip((kappa(x) - sum_j k(x, x_j) beta_j + nu) / (c sqrt(n)), 0, B)); on 16 seeds the
+# means were 0.110 and 0.076 at n = 100 and 400 against 0.258 and 0.080 for the defaults.
 @pytest.mark.xfail(
     strict=True,
-    reason="known open problem (measured 2026-12-02): with the held-out (sigma, ridge) choice NMSE is 0.006 "
-    "at n = 100 but 0.065 at n = 400 (uniform 0.93); over 5 seeds the means are 0.069 and 0.130. The best "
-    "grid point at n = 400 reaches 0.002 to 0.04, but the held-out MMD scores of the grid differ by less "
-    "than their standard errors; narrower evaluation kernels did not separate them either.",
+    reason="known open problem (measured 2026-12-02): the held-out matching error chooses the smallest "
+    "ridge of the grid every time, and that choice sometimes gives weights far off the truth; on this "
+    "draw NMSE is 0.006 at n = 100 but 0.065 at n = 400 (uniform 0.93). See the comment above.",
 )
 def test_gaussian_1d_nmse_small_and_falls_with_n():
     errs = []
@@ -116,6 +130,33 @@ def test_gaussian_1d_nmse_small_and_falls_with_n():
         errs.append(nmse(sw.KernelMeanMatching().fit(s, t).source_weights_, truth))
     assert errs[1] < errs[0], errs
     assert errs[1] < 0.5, errs
+
+
+def test_gaussian_1d_fixed_setting_mean_nmse_falls_with_n():
+    # With (sigma, ridge) fixed, the QP's weights converge: the mean NMSE over seeded draws falls
+    # from n = 100 to n = 400. One draw cannot show it (the per-draw sd is as large as the fall),
+    # so the claim is about the mean over 12 draws, as for KLIEP. The two settings are the best
+    # fixed grid points of the exploration described above; the seeds below were not used there.
+    for mult, ridge in [(0.5, 0.1), (1.0, 0.01)]:
+        means, uniform = [], []
+        for n in (100, 400):
+            errs, unif = [], []
+            for seed in range(12):
+                rng = np.random.default_rng([n, seed])
+                s, t = rng.normal(1.0, 0.5, (n, 1)), rng.normal(2.0, 0.25, (n, 1))
+                # reference: scipy.stats.norm.pdf (analytic ratio of the two normal densities)
+                truth = stats.norm.pdf(s[:, 0], 2.0, 0.25) / stats.norm.pdf(s[:, 0], 1.0, 0.5)
+                est = sw.KernelMeanMatching(sigma_multiples=(mult,), ridge_grid=(ridge,)).fit(s, t)
+                assert est.cv_scores_ == []  # one candidate: no selection ran
+                errs.append(shared_nmse(est.source_weights_, truth))
+                unif.append(shared_nmse(np.ones(n), truth))
+            means.append(np.mean(errs))
+            uniform.append(np.mean(unif))
+        # Measured at this commit: 0.101 -> 0.054 at (1/2, 0.1) and 0.079 -> 0.054 at (1, 0.01),
+        # uniform weights 0.93.
+        assert means[1] < means[0], (mult, ridge, means)
+        # Small: an order of magnitude below uniform weights (our own bar, not a published one).
+        assert means[1] < 0.1 * uniform[1], (mult, ridge, means, uniform)
 
 
 # Without the ridge (ridge=0, the paper's QP) this case gives NMSE 4.25 against 0.27 for uniform
