@@ -147,8 +147,7 @@ def test_gaussian_1d_fixed_setting_mean_nmse_falls_with_n():
         for n in (100, 400):
             errs, unif = [], []
             for seed in range(12):
-                rng = np.random.default_rng([n, seed])
-                s, t = rng.normal(1.0, 0.5, (n, 1)), rng.normal(2.0, 0.25, (n, 1))
+                s, t = gaussian_1d(n, n, seed=[n, seed])
                 # reference: scipy.stats.norm.pdf (analytic ratio of the two normal densities)
                 truth = stats.norm.pdf(s[:, 0], 2.0, 0.25) / stats.norm.pdf(s[:, 0], 1.0, 0.5)
                 est = sw.KernelMeanMatching(sigma_multiples=(mult,), ridge_grid=(ridge,)).fit(s, t)
