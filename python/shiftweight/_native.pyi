@@ -106,7 +106,6 @@ def fit_kmm(
     ridge: Optional[float],
     sigma_multiples: List[float],
     ridge_grid: List[float],
-    folds: int,
     feature_names: Optional[List[str]] = None,
 ) -> RatioModel: ...
 def fit_classifier(

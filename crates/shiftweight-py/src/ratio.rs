@@ -201,7 +201,7 @@ fn fit_kliep(
 
 /// Fits KMM. See `shiftweight.KernelMeanMatching` for the parameters.
 #[pyfunction]
-#[pyo3(signature = (source, target, sigma, bound, eps, block_rows, seed, ridge, sigma_multiples, ridge_grid, folds, feature_names=None))]
+#[pyo3(signature = (source, target, sigma, bound, eps, block_rows, seed, ridge, sigma_multiples, ridge_grid, feature_names=None))]
 #[allow(clippy::too_many_arguments)]
 fn fit_kmm(
     py: Python<'_>,
@@ -215,7 +215,6 @@ fn fit_kmm(
     ridge: Option<f64>,
     sigma_multiples: Vec<f64>,
     ridge_grid: Vec<f64>,
-    folds: usize,
     feature_names: Option<Vec<String>>,
 ) -> PyResult<RatioModel> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
@@ -227,8 +226,7 @@ fn fit_kmm(
         .seed(seed)
         .ridge(ridge)
         .sigma_multiples(sigma_multiples)
-        .ridge_grid(ridge_grid)
-        .folds(folds);
+        .ridge_grid(ridge_grid);
     detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
 }
 
