@@ -30,15 +30,23 @@ def gaussian_1d(n, m, seed):
     return rng.normal(1.0, 0.5, (n, 1)), rng.normal(2.0, 0.25, (m, 1))
 
 
+def pooled_standardised(s, t):
+    """Both samples standardised with the mean and sd (ddof 1) of the pooled rows, in numpy."""
+    pooled = np.concatenate([s, t])
+    mean, sd = pooled.mean(0), pooled.std(0, ddof=1)
+    return (s - mean) / sd, (t - mean) / sd
+
+
+def gauss_kernel(a, b, sigma):
+    return np.exp(-((a[:, None, :] - b[None, :, :]) ** 2).sum(-1) / (2 * sigma**2))
+
+
 def kmm_problem(s, t, sigma, ridge=0.0):
     """K (+ ridge * sqrt(n) I) and kappa of the KMM QP (Huang et al. 2007) on pooled-standardised
     rows, in numpy."""
-    pooled = np.concatenate([s, t])
-    mean, sd = pooled.mean(0), pooled.std(0, ddof=1)
-    zs, zt = (s - mean) / sd, (t - mean) / sd
-    sq = lambda a, b: ((a[:, None, :] - b[None, :, :]) ** 2).sum(-1)
-    K = np.exp(-sq(zs, zs) / (2 * sigma**2))
-    kappa = len(s) / len(t) * np.exp(-sq(zs, zt) / (2 * sigma**2)).sum(1)
+    zs, zt = pooled_standardised(s, t)
+    K = gauss_kernel(zs, zs, sigma)
+    kappa = len(s) / len(t) * gauss_kernel(zs, zt, sigma).sum(1)
     return K + ridge * np.sqrt(len(s)) * np.eye(len(s)), kappa
 
 
@@ -203,20 +211,16 @@ def test_ridge_zero_is_the_unregularised_qp_and_selection_follows_the_discrepanc
     pairs = {(round(r["sigma"] / est.median_distance_, 6), r["ridge"]) for r in est.cv_scores_}
     assert pairs == {(0.5, 0.0), (0.5, 0.1), (1.0, 0.0), (1.0, 0.1)}
     # Each row's squared MMD D and noise level N, recomputed in numpy from that candidate's weights
-    # (reference: the unbiased MMD/U-statistic estimators of Gretton et al. 2012, JMLR 13, with the
-    # median-heuristic evaluation width; pooled standardisation as in kmm_problem).
+    # at the median-heuristic evaluation width (reference: numpy; the squared MMD of Gretton et al.
+    # 2012, JMLR 13, with the target-target term as the U-statistic of Hoeffding 1948).
     n, m = len(s), len(t)
-    K, _ = kmm_problem(s, t, est.median_distance_)
-    pooled = np.concatenate([s, t])
-    zs = (s - pooled.mean(0)) / pooled.std(0, ddof=1)
-    zt = (t - pooled.mean(0)) / pooled.std(0, ddof=1)
-    h = est.median_distance_
-    kst = np.exp(-((zs[:, None, :] - zt[None, :, :]) ** 2).sum(-1) / (2 * h**2))
-    ktt = np.exp(-((zt[:, None, :] - zt[None, :, :]) ** 2).sum(-1) / (2 * h**2))
+    K, kappa = kmm_problem(s, t, est.median_distance_)
+    _, zt = pooled_standardised(s, t)
+    ktt = gauss_kernel(zt, zt, est.median_distance_)
     u = (ktt.sum() - m) / (m * (m - 1))
     for row in est.cv_scores_:
         b = sw.KernelMeanMatching(sigma=row["sigma"], ridge=row["ridge"]).fit(s, t).source_weights_
-        d = b @ K @ b / n**2 - 2 * b @ kst.sum(1) / (n * m) + u
+        d = b @ K @ b / n**2 - 2 * b @ kappa / n**2 + u
         noise = (np.mean(b**2) - u) / n
         assert row["score"] == pytest.approx(d, rel=1e-6, abs=1e-9), (row, d)
         assert row["noise_level"] == pytest.approx(noise, rel=1e-6, abs=1e-9), (row, noise)
