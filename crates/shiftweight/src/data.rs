@@ -260,6 +260,38 @@ pub fn kfold_assignment(n: usize, k: usize, seed: u64) -> Result<Vec<usize>> {
     Ok(fold)
 }
 
+/// As [`kfold_assignment`], but stratified by class: the rows of each class (`labels`, codes
+/// 0..) are shuffled (seeded) and dealt to the folds in turn, continuing from where the previous
+/// class stopped, so every fold holds each class's share up to one row and fold sizes differ by at
+/// most one. Errors when k < 2 or k > n.
+pub fn stratified_kfold_assignment(labels: &[usize], k: usize, seed: u64) -> Result<Vec<usize>> {
+    use rand::seq::SliceRandom;
+    check_folds(k)?;
+    let n = labels.len();
+    if k > n {
+        return Err(Error::param(
+            "folds",
+            format!("{k} folds need at least {k} rows, got {n}"),
+        ));
+    }
+    let classes = labels.iter().max().map_or(0, |m| m + 1);
+    let mut by_class: Vec<Vec<usize>> = vec![Vec::new(); classes];
+    for (i, &y) in labels.iter().enumerate() {
+        by_class[y].push(i);
+    }
+    let mut r = crate::kernel::rng(seed ^ 0x0066_6f6c_6473);
+    let mut fold = vec![0; n];
+    let mut next = 0;
+    for rows in by_class.iter_mut() {
+        rows.shuffle(&mut r);
+        for &i in rows.iter() {
+            fold[i] = next % k;
+            next += 1;
+        }
+    }
+    Ok(fold)
+}
+
 /// Per-feature centring and scaling, fitted on the pooled source and target rows.
 ///
 /// A column that is constant in the pooled data carries no information about the shift; it keeps

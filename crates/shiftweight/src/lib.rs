@@ -15,6 +15,9 @@
 //!   [`diagnostics`]: Kish ESS, Pareto k and its verdict, concentration, the clipping trade-off,
 //!   support overlap.
 //! - [`learn`]: importance-weighted logistic and ridge regression.
+//! - [`label`]: label shift (the class mix changes, p(x | y) does not): target class proportions
+//!   from a classifier's probabilities (BBSE, and EM on calibrated probabilities), class weights,
+//!   prior-adjusted probabilities, and a test of the predicted-class mix.
 //! - [`metrics`]: weighted losses, IWCV aggregation, the weighted-versus-unweighted comparison and
 //!   weighted metrics with confidence intervals.
 //! - [`conformal`]: weighted split conformal prediction intervals and sets valid on the target.
@@ -51,6 +54,7 @@ pub mod detect;
 pub mod diagnostics;
 pub mod error;
 pub mod kernel;
+pub mod label;
 pub mod learn;
 pub mod metrics;
 pub mod model;
