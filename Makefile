@@ -19,7 +19,7 @@ venv: $(PY)
 # Builds the extension (dev profile: dependencies are optimised, see Cargo.toml) and installs the
 # package with its test extras into the virtual environment.
 develop: $(PY)
-	$(VENV)/bin/maturin develop --quiet --extras test
+	$(VENV)/bin/maturin develop --quiet --extras test --features test-hooks
 
 test-rust:
 	cargo test --workspace --exclude shiftweight-py

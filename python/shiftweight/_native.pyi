@@ -22,7 +22,6 @@ class InternalError(RuntimeError): ...
 
 def set_threads(n: int) -> None: ...
 def get_threads() -> int: ...
-def _provoke_internal_failure() -> None: ...
 
 # ratio.rs
 class _SelectionRequired(TypedDict):
@@ -68,58 +67,14 @@ class RatioModel:
     def from_json(text: str) -> RatioModel: ...
     def __reduce__(self) -> Tuple[Any, Tuple[str]]: ...
 
-def fit_least_squares(
+def fit_ratio(
     source: _F64,
     target: _F64,
-    sigma: Optional[float],
-    lam: Optional[float],
-    n_basis: int,
-    alpha: float,
-    seed: int,
-    sigma_multiples: List[float],
-    lambda_grid: List[float],
-    max_cv_rows: int,
+    kind: str,
+    params: Dict[str, Any],
     feature_names: Optional[List[str]] = None,
 ) -> RatioModel: ...
-def fit_kliep(
-    source: _F64,
-    target: _F64,
-    sigma: Optional[float],
-    n_basis: int,
-    folds: int,
-    seed: int,
-    cv: str,
-    sigma_multiples: List[float],
-    tol: float,
-    max_iter: int,
-    se_margin: float,
-    feature_names: Optional[List[str]] = None,
-) -> RatioModel: ...
-def fit_kmm(
-    source: _F64,
-    target: _F64,
-    sigma: Optional[float],
-    bound: float,
-    eps: Optional[float],
-    block_rows: int,
-    seed: int,
-    ridge: Optional[float],
-    sigma_multiples: List[float],
-    ridge_grid: List[float],
-    feature_names: Optional[List[str]] = None,
-) -> RatioModel: ...
-def fit_classifier(
-    source: _F64,
-    target: _F64,
-    l2: Optional[float],
-    features: str,
-    n_fourier: int,
-    fourier_sigma: Optional[float],
-    folds: int,
-    seed: int,
-    l2_grid: List[float],
-    feature_names: Optional[List[str]] = None,
-) -> RatioModel: ...
+def estimator_defaults() -> Dict[str, Any]: ...
 def fit_auto(
     source: _F64,
     target: _F64,

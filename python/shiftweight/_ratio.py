@@ -205,7 +205,7 @@ class LeastSquaresRatio(RatioEstimatorBase):
         )
 
     def _fit_native(self, source, target, names):
-        return _native.fit_least_squares(source, target, **self._native_params(), feature_names=names)
+        return _native.fit_ratio(source, target, self._native_kind, self._native_params(), names)
 
     def _extract(self, model):
         chosen = model.selection["chosen"]
@@ -321,7 +321,7 @@ class KLRatio(RatioEstimatorBase):
         )
 
     def _fit_native(self, source, target, names):
-        return _native.fit_kliep(source, target, **self._native_params(), feature_names=names)
+        return _native.fit_ratio(source, target, self._native_kind, self._native_params(), names)
 
     def _extract(self, model):
         chosen = model.selection["chosen"]
@@ -369,7 +369,8 @@ class KernelMeanMatching(RatioEstimatorBase):
     Parameters
     ----------
     sigma : float or None
-        Kernel width in standardised units; None uses the median pairwise distance.
+        Kernel width in standardised units; None chooses it, with the ridge, by the discrepancy
+        principle among ``sigma_multiples`` x (median pairwise distance).
     bound : float
         Upper bound B on every weight (default 1000).
     eps : float or None
@@ -426,20 +427,23 @@ class KernelMeanMatching(RatioEstimatorBase):
         self.sigma_multiples = sigma_multiples
         self.ridge_grid = ridge_grid
 
-    def _fit_native(self, source, target, names):
-        return _native.fit_kmm(
-            source,
-            target,
-            None if self.sigma is None else float(self.sigma),
-            float(self.bound),
-            None if self.eps is None else float(self.eps),
-            as_count(self.block_rows, "block_rows"),
-            as_seed(self.seed),
-            None if self.ridge is None else float(self.ridge),
-            [float(v) for v in self.sigma_multiples],
-            [float(v) for v in self.ridge_grid],
-            names,
+    _native_kind = "kmm"
+
+    def _native_params(self) -> Dict[str, Any]:
+        """The parameters of the native fit, one entry per field of the core configuration."""
+        return dict(
+            sigma=None if self.sigma is None else float(self.sigma),
+            bound=float(self.bound),
+            eps=None if self.eps is None else float(self.eps),
+            block_rows=as_count(self.block_rows, "block_rows"),
+            seed=as_seed(self.seed),
+            ridge=None if self.ridge is None else float(self.ridge),
+            sigma_multiples=[float(v) for v in self.sigma_multiples],
+            ridge_grid=[float(v) for v in self.ridge_grid],
         )
+
+    def _fit_native(self, source, target, names):
+        return _native.fit_ratio(source, target, self._native_kind, self._native_params(), names)
 
     def _extract(self, model):
         chosen = model.selection["chosen"]
@@ -547,7 +551,7 @@ class ClassifierRatio(RatioEstimatorBase):
         )
 
     def _fit_native(self, source, target, names):
-        return _native.fit_classifier(source, target, **self._native_params(), feature_names=names)
+        return _native.fit_ratio(source, target, self._native_kind, self._native_params(), names)
 
     def _extract(self, model):
         chosen = model.selection["chosen"]
@@ -632,7 +636,7 @@ class AutoRatio(RatioEstimatorBase):
         specs = []
         for item in items:
             name, est = item if isinstance(item, tuple) else (repr(item), item)
-            if not hasattr(est, "_native_params") or not hasattr(est, "_native_kind"):
+            if not hasattr(est, "_native_params") or getattr(est, "_native_kind", "kmm") == "kmm":
                 raise _native.ShiftweightError(
                     f"candidate {name!r} ({type(est).__name__}) cannot enter AutoRatio: a candidate must be a "
                     "shiftweight ratio estimator that scores held-out rows (KMM is transductive and cannot)"

@@ -42,7 +42,7 @@ pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
             message: "--chunk-rows must be at least 1".into(),
         });
     }
-    let block = shiftweight::kernel::CHUNK_ROWS;
+    let block = shiftweight::CHUNK_ROWS;
     let chunk_rows = args.chunk_rows.div_ceil(block) * block;
     let text = std::fs::read_to_string(&args.model).map_err(|e| Failure {
         code: exit::IO,

@@ -49,11 +49,14 @@ pub struct EstimatorArgs {
     /// Ridge strength (lsif/rulsif; default: chosen by leave-one-out cross-validation).
     #[arg(long)]
     pub lambda: Option<f64>,
-    /// Number of kernel centres drawn from the target rows.
-    #[arg(long, default_value_t = 200)]
+    /// Number of kernel centres drawn from the target rows (lsif, rulsif, kliep).
+    #[arg(long, default_value_t = LeastSquaresRatio::default().n_basis)]
     pub n_basis: usize,
-    /// RuLSIF mixing alpha in (0, 1): the relative ratio is bounded by 1/alpha [default: 0.1].
-    #[arg(long)]
+    /// RuLSIF mixing alpha in (0, 1): the relative ratio is bounded by 1/alpha.
+    #[arg(long, help = format!(
+        "RuLSIF mixing alpha in (0, 1): the relative ratio is bounded by 1/alpha [default: {}]",
+        LeastSquaresRatio::RULSIF_ALPHA
+    ))]
     pub alpha: Option<f64>,
 }
 
@@ -89,7 +92,7 @@ pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator
             least_squares(0.0)
         }
         EstimatorName::Rulsif => {
-            let alpha = args.alpha.unwrap_or(0.1);
+            let alpha = args.alpha.unwrap_or(LeastSquaresRatio::RULSIF_ALPHA);
             if !(alpha > 0.0 && alpha < 1.0) {
                 return Err(Failure {
                     code: exit::BAD_INPUT,
@@ -113,5 +116,31 @@ pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator
             Ok(Box::new(e))
         }
         EstimatorName::Classifier => Ok(Box::new(ClassifierRatio::new().l2(None).seed(seed))),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn one_centre_count_serves_every_kernel_estimator() {
+        // `--n-basis` takes uLSIF's default and passes it to KLIEP too: their defaults must agree
+        // for the option's default to be each estimator's own.
+        assert_eq!(
+            LeastSquaresRatio::default().n_basis,
+            KLRatio::default().n_basis
+        );
+    }
+
+    #[test]
+    fn method_help_states_the_core_row_limits() {
+        // The `--method` help text (steps.rs) names 5,000 pooled rows as the switch to the large
+        // route of both tests; it must change with the core defaults.
+        assert_eq!(
+            shiftweight::ClassifierShiftTest::default().max_permutation_rows,
+            5_000
+        );
+        assert_eq!(shiftweight::MmdShiftTest::default().max_kernel_rows, 5_000);
     }
 }

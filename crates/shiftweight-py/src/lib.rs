@@ -159,6 +159,8 @@ fn get_threads() -> PyResult<usize> {
 }
 
 /// Provokes an internal failure (a panic inside the core) to test that it becomes InternalError.
+/// Only in builds with the `test-hooks` feature (`make develop`), never in a release wheel.
+#[cfg(feature = "test-hooks")]
 #[pyfunction]
 fn _provoke_internal_failure(py: Python<'_>) -> PyResult<()> {
     detached(py, || -> shiftweight::Result<()> {
@@ -180,6 +182,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("InternalError", py.get_type::<InternalError>())?;
     m.add_function(wrap_pyfunction!(set_threads, m)?)?;
     m.add_function(wrap_pyfunction!(get_threads, m)?)?;
+    #[cfg(feature = "test-hooks")]
     m.add_function(wrap_pyfunction!(_provoke_internal_failure, m)?)?;
     ratio::register(m)?;
     learn::register(m)?;

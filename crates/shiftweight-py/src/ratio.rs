@@ -5,7 +5,7 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use shiftweight::ratio::auto::UniformRatio;
-use shiftweight::ratio::{FittedRatio, RatioEstimator};
+use shiftweight::ratio::{Features, FittedRatio, RatioEstimator};
 use shiftweight::{
     AutoRatio, ClassifierRatio, KLRatio, KernelMeanMatching, KliepCv, LeastSquaresRatio,
 };
@@ -135,154 +135,15 @@ pub(crate) fn with_names(mut m: FittedRatio, names: Option<Vec<String>>) -> Fitt
     m
 }
 
-/// Fits uLSIF / RuLSIF. See `shiftweight.LeastSquaresRatio` for the parameters.
-#[pyfunction]
-#[pyo3(signature = (source, target, sigma, lam, n_basis, alpha, seed, sigma_multiples, lambda_grid, max_cv_rows, feature_names=None))]
-#[allow(clippy::too_many_arguments)]
-fn fit_least_squares(
-    py: Python<'_>,
-    source: PyReadonlyArray2<'_, f64>,
-    target: PyReadonlyArray2<'_, f64>,
-    sigma: Option<f64>,
-    lam: Option<f64>,
-    n_basis: usize,
-    alpha: f64,
-    seed: u64,
-    sigma_multiples: Vec<f64>,
-    lambda_grid: Vec<f64>,
-    max_cv_rows: usize,
-    feature_names: Option<Vec<String>>,
-) -> PyResult<RatioModel> {
-    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
-    let est = LeastSquaresRatio::new()
-        .sigma(sigma)
-        .lam(lam)
-        .n_basis(n_basis)
-        .alpha(alpha)
-        .seed(seed)
-        .sigma_multiples(sigma_multiples)
-        .lambda_grid(lambda_grid)
-        .max_cv_rows(max_cv_rows);
-    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
-}
-
-/// Fits KLIEP. See `shiftweight.KLRatio` for the parameters.
-#[pyfunction]
-#[pyo3(signature = (source, target, sigma, n_basis, folds, seed, cv, sigma_multiples, tol, max_iter, se_margin, feature_names=None))]
-#[allow(clippy::too_many_arguments)]
-fn fit_kliep(
-    py: Python<'_>,
-    source: PyReadonlyArray2<'_, f64>,
-    target: PyReadonlyArray2<'_, f64>,
-    sigma: Option<f64>,
-    n_basis: usize,
-    folds: usize,
-    seed: u64,
-    cv: String,
-    sigma_multiples: Vec<f64>,
-    tol: f64,
-    max_iter: usize,
-    se_margin: f64,
-    feature_names: Option<Vec<String>>,
-) -> PyResult<RatioModel> {
-    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
-    let est = KLRatio::new()
-        .sigma(sigma)
-        .n_basis(n_basis)
-        .folds(folds)
-        .seed(seed)
-        .cv(KliepCv::from_name(&cv).map_err(to_py)?)
-        .sigma_multiples(sigma_multiples)
-        .tol(tol)
-        .max_iter(max_iter)
-        .se_margin(se_margin);
-    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
-}
-
-/// Fits KMM. See `shiftweight.KernelMeanMatching` for the parameters.
-#[pyfunction]
-#[pyo3(signature = (source, target, sigma, bound, eps, block_rows, seed, ridge, sigma_multiples, ridge_grid, feature_names=None))]
-#[allow(clippy::too_many_arguments)]
-fn fit_kmm(
-    py: Python<'_>,
-    source: PyReadonlyArray2<'_, f64>,
-    target: PyReadonlyArray2<'_, f64>,
-    sigma: Option<f64>,
-    bound: f64,
-    eps: Option<f64>,
-    block_rows: usize,
-    seed: u64,
-    ridge: Option<f64>,
-    sigma_multiples: Vec<f64>,
-    ridge_grid: Vec<f64>,
-    feature_names: Option<Vec<String>>,
-) -> PyResult<RatioModel> {
-    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
-    let est = KernelMeanMatching::new()
-        .sigma(sigma)
-        .bound(bound)
-        .eps(eps)
-        .block_rows(block_rows)
-        .seed(seed)
-        .ridge(ridge)
-        .sigma_multiples(sigma_multiples)
-        .ridge_grid(ridge_grid);
-    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
-}
-
 pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<RatioModel>()?;
-    m.add_function(wrap_pyfunction!(fit_least_squares, m)?)?;
-    m.add_function(wrap_pyfunction!(fit_kliep, m)?)?;
-    m.add_function(wrap_pyfunction!(fit_kmm, m)?)?;
+    m.add_function(wrap_pyfunction!(fit_ratio, m)?)?;
+    m.add_function(wrap_pyfunction!(estimator_defaults, m)?)?;
     register_more(m)
 }
 
-/// Builds the probabilistic-classifier estimator (shared by `fit_classifier` and `fit_auto`).
-#[allow(clippy::too_many_arguments)]
-fn classifier(
-    l2: Option<f64>,
-    features: &str,
-    n_fourier: usize,
-    fourier_sigma: Option<f64>,
-    folds: usize,
-    seed: u64,
-    l2_grid: Vec<f64>,
-) -> PyResult<ClassifierRatio> {
-    let f = shiftweight::ratio::Features::parse(features).map_err(to_py)?;
-    Ok(ClassifierRatio::new()
-        .l2(l2)
-        .features(f)
-        .n_fourier(n_fourier)
-        .fourier_sigma(fourier_sigma)
-        .folds(folds)
-        .seed(seed)
-        .l2_grid(l2_grid))
-}
-
-/// Fits the probabilistic-classifier ratio. See `shiftweight.ClassifierRatio` for the parameters.
-#[pyfunction]
-#[pyo3(signature = (source, target, l2, features, n_fourier, fourier_sigma, folds, seed, l2_grid, feature_names=None))]
-#[allow(clippy::too_many_arguments)]
-fn fit_classifier(
-    py: Python<'_>,
-    source: PyReadonlyArray2<'_, f64>,
-    target: PyReadonlyArray2<'_, f64>,
-    l2: Option<f64>,
-    features: &str,
-    n_fourier: usize,
-    fourier_sigma: Option<f64>,
-    folds: usize,
-    seed: u64,
-    l2_grid: Vec<f64>,
-    feature_names: Option<Vec<String>>,
-) -> PyResult<RatioModel> {
-    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
-    let est = classifier(l2, features, n_fourier, fourier_sigma, folds, seed, l2_grid)?;
-    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
-}
-
-/// Reads a required entry of a candidate's parameter dict.
+/// Reads entry `key` of an estimator's parameter dict, naming the parameter when it is missing or
+/// of the wrong type.
 fn arg<'py, T: FromPyObjectOwned<'py>>(
     p: &Bound<'py, PyDict>,
     kind: &str,
@@ -292,58 +153,103 @@ fn arg<'py, T: FromPyObjectOwned<'py>>(
         Some(v) => v.extract::<T>().map_err(|e| {
             let e: PyErr = e.into();
             ShiftweightError::new_err(format!(
-                "candidate of kind {kind:?}: parameter `{key}` has the wrong type ({e})"
+                "estimator {kind:?}: parameter `{key}` has the wrong type ({e})"
             ))
         }),
         None => Err(ShiftweightError::new_err(format!(
-            "candidate of kind {kind:?} lacks parameter `{key}`"
+            "estimator {kind:?} lacks parameter `{key}`"
         ))),
     }
 }
 
-/// Turns a candidate description (estimator kind and the parameters of its fit function) into a
-/// core estimator. Conversion only: each kind maps to the same builder as its fit function.
-fn candidate(kind: &str, p: &Bound<'_, PyDict>) -> PyResult<Box<dyn RatioEstimator + Send + Sync>> {
+/// The one conversion from a Python estimator's parameters (its `_native_params()`: every field of
+/// the core configuration, by name) to the core estimator, used by `fit_ratio` and by AutoRatio's
+/// candidates. Each configuration is written as a struct literal, so a field added to a core
+/// estimator fails to compile here until it is passed through.
+fn estimator(kind: &str, p: &Bound<'_, PyDict>) -> PyResult<Box<dyn RatioEstimator + Send + Sync>> {
     Ok(match kind {
-        "least_squares" => Box::new(
-            LeastSquaresRatio::new()
-                .sigma(arg(p, kind, "sigma")?)
-                .lam(arg(p, kind, "lam")?)
-                .n_basis(arg(p, kind, "n_basis")?)
-                .alpha(arg(p, kind, "alpha")?)
-                .seed(arg(p, kind, "seed")?)
-                .sigma_multiples(arg(p, kind, "sigma_multiples")?)
-                .lambda_grid(arg(p, kind, "lambda_grid")?)
-                .max_cv_rows(arg(p, kind, "max_cv_rows")?),
-        ),
-        "classifier" => Box::new(classifier(
-            arg(p, kind, "l2")?,
-            &arg::<String>(p, kind, "features")?,
-            arg(p, kind, "n_fourier")?,
-            arg(p, kind, "fourier_sigma")?,
-            arg(p, kind, "folds")?,
-            arg(p, kind, "seed")?,
-            arg(p, kind, "l2_grid")?,
-        )?),
-        "kliep" => Box::new(
-            KLRatio::new()
-                .sigma(arg(p, kind, "sigma")?)
-                .n_basis(arg(p, kind, "n_basis")?)
-                .folds(arg(p, kind, "folds")?)
-                .seed(arg(p, kind, "seed")?)
-                .cv(KliepCv::from_name(&arg::<String>(p, kind, "cv")?).map_err(to_py)?)
-                .sigma_multiples(arg(p, kind, "sigma_multiples")?)
-                .tol(arg(p, kind, "tol")?)
-                .max_iter(arg(p, kind, "max_iter")?)
-                .se_margin(arg(p, kind, "se_margin")?),
-        ),
+        "least_squares" => Box::new(LeastSquaresRatio {
+            sigma: arg(p, kind, "sigma")?,
+            lam: arg(p, kind, "lam")?,
+            n_basis: arg(p, kind, "n_basis")?,
+            alpha: arg(p, kind, "alpha")?,
+            seed: arg(p, kind, "seed")?,
+            sigma_multiples: arg(p, kind, "sigma_multiples")?,
+            lambda_grid: arg(p, kind, "lambda_grid")?,
+            max_cv_rows: arg(p, kind, "max_cv_rows")?,
+        }),
+        "kliep" => Box::new(KLRatio {
+            sigma: arg(p, kind, "sigma")?,
+            n_basis: arg(p, kind, "n_basis")?,
+            folds: arg(p, kind, "folds")?,
+            seed: arg(p, kind, "seed")?,
+            cv: KliepCv::from_name(&arg::<String>(p, kind, "cv")?).map_err(to_py)?,
+            sigma_multiples: arg(p, kind, "sigma_multiples")?,
+            tol: arg(p, kind, "tol")?,
+            max_iter: arg(p, kind, "max_iter")?,
+            se_margin: arg(p, kind, "se_margin")?,
+        }),
+        "kmm" => Box::new(KernelMeanMatching {
+            sigma: arg(p, kind, "sigma")?,
+            bound: arg(p, kind, "bound")?,
+            eps: arg(p, kind, "eps")?,
+            block_rows: arg(p, kind, "block_rows")?,
+            seed: arg(p, kind, "seed")?,
+            ridge: arg(p, kind, "ridge")?,
+            sigma_multiples: arg(p, kind, "sigma_multiples")?,
+            ridge_grid: arg(p, kind, "ridge_grid")?,
+        }),
+        "classifier" => Box::new(ClassifierRatio {
+            l2: arg(p, kind, "l2")?,
+            features: Features::parse(&arg::<String>(p, kind, "features")?).map_err(to_py)?,
+            n_fourier: arg(p, kind, "n_fourier")?,
+            fourier_sigma: arg(p, kind, "fourier_sigma")?,
+            folds: arg(p, kind, "folds")?,
+            seed: arg(p, kind, "seed")?,
+            l2_grid: arg(p, kind, "l2_grid")?,
+        }),
         "uniform" => Box::new(UniformRatio),
         other => {
             return Err(ShiftweightError::new_err(format!(
-                "estimator kind {other:?} cannot be a candidate of AutoRatio (it must score held-out rows)"
+                "unknown estimator kind {other:?}"
             )))
         }
     })
+}
+
+/// Fits the estimator of `kind` ("least_squares", "kliep", "kmm" or "classifier") with the
+/// parameters `params` (see the Python class of each kind for their meaning).
+#[pyfunction]
+#[pyo3(signature = (source, target, kind, params, feature_names=None))]
+fn fit_ratio(
+    py: Python<'_>,
+    source: PyReadonlyArray2<'_, f64>,
+    target: PyReadonlyArray2<'_, f64>,
+    kind: &str,
+    params: Bound<'_, PyDict>,
+    feature_names: Option<Vec<String>>,
+) -> PyResult<RatioModel> {
+    let (s, t) = (view(&source, "source")?, view(&target, "target")?);
+    let est = estimator(kind, &params)?;
+    detached(py, move || est.fit(s, t)).map(|m| RatioModel::wrap(with_names(m, feature_names)))
+}
+
+/// The default configuration of every estimator (see `shiftweight::ratio::estimator_defaults`),
+/// as a dict of dicts.
+#[pyfunction]
+fn estimator_defaults(py: Python<'_>) -> PyResult<Bound<'_, PyAny>> {
+    let text = shiftweight::ratio::estimator_defaults().to_string();
+    py.import("json")?.call_method1("loads", (text,))
+}
+
+/// AutoRatio's candidate of `kind`: any estimator that scores held-out rows (not KMM).
+fn candidate(kind: &str, p: &Bound<'_, PyDict>) -> PyResult<Box<dyn RatioEstimator + Send + Sync>> {
+    if kind == "kmm" {
+        return Err(ShiftweightError::new_err(format!(
+            "estimator kind {kind:?} cannot be a candidate of AutoRatio (it must score held-out rows)"
+        )));
+    }
+    estimator(kind, p)
 }
 
 /// Fits AutoRatio. `candidates`: None for the defaults, else a list of (name, kind, params).
@@ -391,7 +297,6 @@ fn weights_from_probabilities<'py>(
 }
 
 fn register_more(m: &Bound<'_, PyModule>) -> PyResult<()> {
-    m.add_function(wrap_pyfunction!(fit_classifier, m)?)?;
     m.add_function(wrap_pyfunction!(fit_auto, m)?)?;
     m.add_function(wrap_pyfunction!(weights_from_probabilities, m)?)?;
     Ok(())

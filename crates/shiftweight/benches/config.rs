@@ -3,7 +3,12 @@
 
 use criterion::Criterion;
 use rand_distr::{Distribution, Normal};
-use shiftweight::{kernel::rng, Matrix};
+use shiftweight::Matrix;
+
+/// The crate's seeded generator (ChaCha8 seeded from a u64), for reproducible test data.
+pub fn rng(seed: u64) -> rand_chacha::ChaCha8Rng {
+    rand::SeedableRng::seed_from_u64(seed)
+}
 use std::time::Duration;
 
 /// n rows, d features, N(shift, 1) in the first feature and N(0, 1) elsewhere; seeded.

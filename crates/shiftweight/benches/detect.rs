@@ -5,15 +5,15 @@
 //! bench: add its name as a filter; shorter runs: `-- --measurement-time 5 --warm-up-time 1`).
 
 use criterion::{criterion_group, criterion_main, Criterion};
+use rand::SeedableRng;
 use rand_distr::{Distribution, StandardNormal};
-use shiftweight::kernel::rng;
 use shiftweight::{ClassifierShiftTest, FeatureShift, MatrixView, MmdShiftTest};
 use std::hint::black_box;
 use std::time::Duration;
 
 /// Seeded Gaussian rows; column 0 shifted by `shift`.
 fn rows(n: usize, d: usize, shift: f64, seed: u64) -> Vec<f64> {
-    let mut r = rng(seed);
+    let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     (0..n * d)
         .map(|k| {
             let v: f64 = StandardNormal.sample(&mut r);

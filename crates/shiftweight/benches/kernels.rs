@@ -11,13 +11,13 @@ use criterion::{criterion_group, criterion_main, Criterion, Throughput};
 use faer::linalg::matmul::matmul;
 use faer::prelude::*;
 use faer::{Accum, Mat, Side};
-use shiftweight::kernel;
+use shiftweight::bench_internals as kernel;
 
 #[path = "config.rs"]
 mod config;
 
 fn kernel_eval(c: &mut Criterion) {
-    let (m, b, d) = (kernel::CHUNK_ROWS, 200, 10);
+    let (m, b, d) = (shiftweight::CHUNK_ROWS, 200, 10);
     let x = config::gaussian(m, d, 0.0, 1);
     let cen = config::gaussian(b, d, 0.0, 2);
     let c_sq = kernel::row_sq_norms(cen.view());

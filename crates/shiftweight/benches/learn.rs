@@ -3,7 +3,7 @@
 //! scikit-learn is `benches/compare_weighted_logistic.py`.
 
 use criterion::{criterion_group, criterion_main, Criterion};
-use rand::Rng;
+use rand::{Rng, SeedableRng};
 use shiftweight::learn::{sigmoid, WeightedLogistic};
 use shiftweight::MatrixView;
 use std::hint::black_box;
@@ -11,7 +11,7 @@ use std::time::Duration;
 
 /// Seeded rows, labels from a logistic model, and exponential-like positive weights.
 fn data(n: usize, d: usize, seed: u64) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
-    let mut r = shiftweight::kernel::rng(seed);
+    let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let beta: Vec<f64> = (0..d)
         .map(|j| if j % 2 == 0 { 0.5 } else { -0.3 })
         .collect();

@@ -4,6 +4,7 @@
 //! Run: `cargo bench -p shiftweight --bench weights`.
 
 use criterion::{criterion_group, criterion_main, Criterion};
+use rand::SeedableRng;
 use rand_distr::{Distribution, LogNormal};
 use shiftweight::diagnostics::{clip_tradeoff, diagnose, effective_sample_size, pareto_k};
 use shiftweight::weights::{stabilize, StabilizeOptions};
@@ -12,7 +13,7 @@ use std::time::Duration;
 
 /// Seeded heavy-ish weights.
 fn weights(n: usize) -> Vec<f64> {
-    let mut r = shiftweight::kernel::rng(0x6265_6e63);
+    let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(0x6265_6e63);
     let d = LogNormal::new(0.0, 1.5).expect("valid lognormal");
     (0..n).map(|_| d.sample(&mut r)).collect()
 }

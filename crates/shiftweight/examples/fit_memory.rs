@@ -18,8 +18,13 @@
 //! one reused buffer (as a service reading a file would), so the peak should not grow with N.
 
 use rand_distr::{Distribution, Normal};
-use shiftweight::{kernel::rng, ClassifierRatio, LeastSquaresRatio, Matrix, RatioEstimator};
+use shiftweight::{ClassifierRatio, LeastSquaresRatio, Matrix, RatioEstimator};
 use std::time::Instant;
+
+/// A seeded generator (ChaCha8), so that every run draws the same rows.
+fn rng(seed: u64) -> rand_chacha::ChaCha8Rng {
+    rand::SeedableRng::seed_from_u64(seed)
+}
 
 fn gaussian_into(buf: &mut [f64], d: usize, shift: f64, r: &mut impl rand::Rng) {
     let nd = Normal::new(0.0, 1.0).expect("unit normal");

@@ -252,7 +252,7 @@ pub fn kfold_assignment(n: usize, k: usize, seed: u64) -> Result<Vec<usize>> {
         ));
     }
     let mut order: Vec<usize> = (0..n).collect();
-    order.shuffle(&mut crate::kernel::rng(seed ^ 0x0066_6f6c_6473));
+    order.shuffle(&mut crate::random::rng(seed ^ 0x0066_6f6c_6473));
     let mut fold = vec![0; n];
     for (pos, &i) in order.iter().enumerate() {
         fold[i] = pos % k;
@@ -279,7 +279,7 @@ pub fn stratified_kfold_assignment(labels: &[usize], k: usize, seed: u64) -> Res
     for (i, &y) in labels.iter().enumerate() {
         by_class[y].push(i);
     }
-    let mut r = crate::kernel::rng(seed ^ 0x0066_6f6c_6473);
+    let mut r = crate::random::rng(seed ^ 0x0066_6f6c_6473);
     let mut fold = vec![0; n];
     let mut next = 0;
     for rows in by_class.iter_mut() {
@@ -456,7 +456,7 @@ impl Standardizer {
         if d == 0 {
             return;
         }
-        let rows = crate::kernel::CHUNK_ROWS;
+        let rows = crate::par::CHUNK_ROWS;
         out.par_chunks_mut(rows * d)
             .enumerate()
             .for_each(|(k, chunk)| {

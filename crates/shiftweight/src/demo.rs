@@ -10,7 +10,7 @@
 //! Every number here is invented for the demo. Data are generated from a fixed seed.
 
 use crate::data::Matrix;
-use crate::kernel::rng;
+use crate::random::rng;
 use rand::Rng;
 use rand_distr::{Distribution, LogNormal, Normal};
 

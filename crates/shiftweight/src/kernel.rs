@@ -8,24 +8,15 @@
 
 use crate::data::{Matrix, MatrixView};
 use crate::error::{Error, Result};
+use crate::random::rng;
+use crate::simd::with_wide_simd;
 use faer::linalg::matmul::matmul;
 use faer::linalg::matmul::triangular::BlockStructure;
 use faer::{Accum, Mat, MatMut, MatRef, Par};
 use rand::seq::index::sample;
-use rand::SeedableRng;
-use rand_chacha::ChaCha8Rng;
-
-/// Rows per block in chunked kernel evaluation. Fixed (not derived from the thread count) so that
-/// results are bitwise identical whatever the number of threads.
-pub const CHUNK_ROWS: usize = 2048;
 
 /// Rows of the pooled sample used by the median heuristic (pairs = rows * (rows - 1) / 2).
 pub const MEDIAN_SUBSAMPLE: usize = 1000;
-
-/// The portable, seeded random generator used for every random choice in the crate.
-pub fn rng(seed: u64) -> ChaCha8Rng {
-    ChaCha8Rng::seed_from_u64(seed)
-}
 
 /// Squared Euclidean distances between every row of `x` (m x d) and every row of `c` (b x d),
 /// written row-major into `out` (m x b). `c_sq` holds the squared norms of the rows of `c`.
@@ -79,25 +70,6 @@ pub fn gaussian_from(sq: &[f64], sigma: f64, out: &mut [f64]) {
             *o = exp_nonpositive(*v * g);
         }
     });
-}
-
-/// Runs `f` compiled for 256-bit vectors (AVX2) when the CPU has them, else as compiled for the
-/// baseline target. Only the vector width differs: Rust never fuses a multiply and an add on its
-/// own, so both versions round identically and give bitwise equal results.
-#[inline(always)]
-pub fn with_wide_simd<R>(f: impl FnOnce() -> R) -> R {
-    #[cfg(target_arch = "x86_64")]
-    {
-        #[target_feature(enable = "avx2")]
-        unsafe fn wide<R>(f: impl FnOnce() -> R) -> R {
-            f()
-        }
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU was just checked to support AVX2, the only feature enabled.
-            return unsafe { wide(f) };
-        }
-    }
-    f()
 }
 
 /// exp(x) for x <= 0 (kernel exponents), written without calls or branches so that loops over

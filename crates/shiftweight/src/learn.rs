@@ -385,7 +385,7 @@ impl<'a> LogisticLoss<'a> {
                         // Branch-free, call-free row loop (vectorised exp and log1p) over the
                         // block; the loss terms are summed afterwards in row order.
                         let (wb, yb) = (&w[b0..b1], &y[b0..b1]);
-                        crate::kernel::with_wide_simd(|| {
+                        crate::simd::with_wide_simd(|| {
                             for ((((et, rs), tm), wi), yi) in eta[..m]
                                 .iter_mut()
                                 .zip(&mut resid[..m])

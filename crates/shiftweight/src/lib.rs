@@ -5,7 +5,6 @@
 //!
 //! A short tour:
 //! - [`data`]: validated row-major matrices ([`MatrixView`]) and the pooled [`data::Standardizer`].
-//! - [`kernel`]: the Gaussian kernel, the median-heuristic width, basis centres, chunked blocks.
 //! - [`ratio`]: importance weights w(x) = p_target(x) / p_source(x). Every estimator implements
 //!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
 //!   memory and saves to a versioned JSON file ([`model`]).
@@ -53,14 +52,19 @@ pub mod demo;
 pub mod detect;
 pub mod diagnostics;
 pub mod error;
-pub mod kernel;
+pub(crate) mod kernel;
 pub mod label;
 pub mod learn;
 pub mod metrics;
 pub mod model;
-pub mod par;
+pub(crate) mod order;
+pub(crate) mod par;
+pub(crate) mod random;
 pub mod ratio;
+pub(crate) mod simd;
 pub mod weights;
+
+pub use par::CHUNK_ROWS;
 
 pub use data::{Matrix, MatrixView, Standardizer};
 pub use detect::{
@@ -75,6 +79,13 @@ pub use ratio::{
     KernelMeanMatching, KliepCv, LeastSquaresRatio, RatioEstimator,
 };
 pub use weights::{stabilize, StabilizeOptions, Stabilized};
+
+/// The kernel routines below the estimators, exported for the crate's own benchmarks
+/// (`benches/kernels.rs`); not part of the supported interface and free to change.
+#[doc(hidden)]
+pub mod bench_internals {
+    pub use crate::kernel::{gaussian_from, gram_of_rows, kernel_block_into, row_sq_norms};
+}
 
 /// Sets the number of threads of the global pool used by the crate (call once, before any work).
 /// Returns an error if the pool was already built.

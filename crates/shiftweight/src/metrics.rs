@@ -32,7 +32,7 @@
 
 use crate::data::{validate_weights, MatrixView};
 use crate::error::{Error, Result};
-use crate::kernel;
+use crate::order::quantile_of_sorted;
 use rand::Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
@@ -380,13 +380,21 @@ pub fn fold_average(per_fold: &[f64]) -> Result<(f64, f64)> {
             value: per_fold[i],
         });
     }
-    let m = per_fold.iter().sum::<f64>() / k as f64;
-    let se = if k < 2 {
-        f64::NAN
-    } else {
-        (per_fold.iter().map(|v| (v - m).powi(2)).sum::<f64>() / (k - 1) as f64 / k as f64).sqrt()
-    };
-    Ok((m, se))
+    Ok(mean_and_std_error(per_fold))
+}
+
+/// Mean of `v` and the standard error of that mean, `s / sqrt(k)` with `s` the sample standard
+/// deviation (denominator k - 1). With fewer than two values the sample standard deviation is
+/// undefined and the standard error is NaN, as `scipy.stats.sem` and `numpy.std(ddof=1)` give.
+/// The one mean-and-standard-error of the crate (per-fold scores of every cross-validation).
+pub(crate) fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
+    let k = v.len() as f64;
+    let mean = v.iter().sum::<f64>() / k;
+    if v.len() < 2 {
+        return (mean, f64::NAN);
+    }
+    let var = v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (k - 1.0);
+    (mean, (var / k).sqrt())
 }
 
 /// What the evidence says about weighting.
@@ -617,7 +625,7 @@ pub fn metric_interval(
             let mut stats: Vec<f64> = (0..n_boot)
                 .into_par_iter()
                 .map(|b| {
-                    let mut r = kernel::rng((seed ^ BOOTSTRAP_TAG).wrapping_add(b as u64));
+                    let mut r = crate::random::rng((seed ^ BOOTSTRAP_TAG).wrapping_add(b as u64));
                     let (mut sw, mut swl) = (0.0, 0.0);
                     for _ in 0..n {
                         let i = r.random_range(0..n);
@@ -640,7 +648,10 @@ pub fn metric_interval(
             }
             stats.sort_by(f64::total_cmp);
             let a = (1.0 - confidence) / 2.0;
-            (quantile_sorted(&stats, a), quantile_sorted(&stats, 1.0 - a))
+            (
+                quantile_of_sorted(&stats, a),
+                quantile_of_sorted(&stats, 1.0 - a),
+            )
         }
     };
     Ok(MetricInterval {
@@ -650,14 +661,6 @@ pub fn metric_interval(
         confidence,
         method,
     })
-}
-
-/// Linear-interpolation quantile of sorted data (numpy's default rule).
-fn quantile_sorted(s: &[f64], q: f64) -> f64 {
-    let h = (s.len() - 1) as f64 * q;
-    let lo = h.floor() as usize;
-    let hi = (lo + 1).min(s.len() - 1);
-    s[lo] + (h - lo as f64) * (s[hi] - s[lo])
 }
 
 #[cfg(test)]
@@ -673,6 +676,20 @@ mod tests {
         assert!((m.ess - 4.0).abs() < 1e-12);
         let scaled = weighted_mean(&[1.0, 2.0, 3.0, 6.0], Some(&[5.0; 4])).unwrap();
         assert!((scaled.std_error - m.std_error).abs() < 1e-14);
+    }
+
+    #[test]
+    fn mean_and_standard_error_match_scipy_sem() {
+        // Reference: numpy.mean and scipy.stats.sem (ddof=1) of [0.3, -1.2, 2.5, 0.7, 1.9] give
+        // 0.8399999999999999 and 0.6462197768561404 (numpy 2, scipy 1.x, run for this test).
+        let (m, se) = mean_and_std_error(&[0.3, -1.2, 2.5, 0.7, 1.9]);
+        assert!((m - 0.84).abs() < 1e-15);
+        assert!((se - 0.6462197768561404).abs() < 1e-15);
+        // One value: scipy.stats.sem([4.0]) is nan (the sample sd is undefined).
+        let (m1, se1) = mean_and_std_error(&[4.0]);
+        assert_eq!(m1, 4.0);
+        assert!(se1.is_nan());
+        assert!(fold_average(&[4.0]).unwrap().1.is_nan());
     }
 
     #[test]

@@ -1,7 +1,9 @@
-//! The versioned JSON model file.
+//! The versioned JSON model file: the envelope every saved object shares (format tag, version,
+//! body). Each kind of object names its own format tag; the ratio models' is
+//! [`crate::ratio::RATIO_MODEL_FORMAT`].
 //!
 //! ```json
-//! {"format": "shiftweight.ratio-model", "version": 1, "model": { ...FittedRatio... }}
+//! {"format": "shiftweight.ratio-model", "version": 1, "model": { ... }}
 //! ```
 //!
 //! Loading checks the format tag and version first and rejects anything else with a clear error,
@@ -10,13 +12,10 @@
 //! refused before parsing, so a hostile file cannot make the loader allocate without bound.
 
 use crate::error::{Error, Result};
-use crate::ratio::FittedRatio;
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
-/// Format tag of ratio-model files.
-pub const RATIO_MODEL_FORMAT: &str = "shiftweight.ratio-model";
 /// The model-file version this library writes and reads.
 pub const MODEL_VERSION: u64 = 1;
 /// Largest model document accepted (bytes).
@@ -86,27 +85,4 @@ pub fn from_json_tagged<T: DeserializeOwned>(format: &str, text: &str) -> Result
         .ok_or_else(|| Error::ModelFile("no \"model\" field".into()))?;
     serde_json::from_value(model)
         .map_err(|e| Error::ModelFile(format!("model body is malformed: {e}")))
-}
-
-/// Writes a fitted ratio model as a JSON document.
-pub fn ratio_to_json(model: &FittedRatio) -> Result<String> {
-    to_json_tagged(RATIO_MODEL_FORMAT, model)
-}
-
-/// Reads and checks a fitted ratio model.
-pub fn ratio_from_json(text: &str) -> Result<FittedRatio> {
-    let m: FittedRatio = from_json_tagged(RATIO_MODEL_FORMAT, text)?;
-    m.check()?;
-    Ok(m)
-}
-
-impl FittedRatio {
-    /// The model file document (see [`crate::model`]).
-    pub fn to_json(&self) -> Result<String> {
-        ratio_to_json(self)
-    }
-    /// Loads a model file document, rejecting other formats, versions and inconsistent models.
-    pub fn from_json(text: &str) -> Result<Self> {
-        ratio_from_json(text)
-    }
 }

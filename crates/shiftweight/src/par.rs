@@ -5,7 +5,10 @@
 //! the thread count, so the floating-point summation order, and therefore every result, is
 //! bitwise identical for any number of threads and across runs.
 
-use crate::kernel::CHUNK_ROWS;
+/// Rows per chunk of every parallel pass (and per block in chunked kernel evaluation). Fixed (not
+/// derived from the thread count) so that results are bitwise identical whatever the number of
+/// threads; scoring rows in blocks of this size gives the same results as scoring them at once.
+pub const CHUNK_ROWS: usize = 2048;
 use rayon::prelude::*;
 
 /// Chunks mapped in parallel per batch (bounds memory to BATCH_CHUNKS partials at a time).

@@ -258,7 +258,7 @@ pub fn stabilize(w: &[f64], options: &StabilizeOptions) -> Result<Stabilized> {
     }
 
     if let Some(q) = options.upper_quantile {
-        let bound = quantile(&v, q);
+        let bound = crate::order::quantile_by_selection(&v, q);
         if bound <= 0.0 {
             return Err(Error::param(
                 "upper_quantile",
@@ -297,23 +297,6 @@ pub fn stabilize(w: &[f64], options: &StabilizeOptions) -> Result<Stabilized> {
             smoothing_tail,
         },
     })
-}
-
-/// Linear-interpolation quantile (numpy's default) by selection on a copy. O(n).
-fn quantile(v: &[f64], q: f64) -> f64 {
-    let n = v.len();
-    let h = (n - 1) as f64 * q;
-    let lo = h.floor() as usize;
-    let f = h - lo as f64;
-    let mut a = v.to_vec();
-    let (_, x, right) = a.select_nth_unstable_by(lo, f64::total_cmp);
-    let x = *x;
-    if f > 0.0 && !right.is_empty() {
-        let y = right.iter().copied().fold(f64::INFINITY, f64::min);
-        x + f * (y - x)
-    } else {
-        x
-    }
 }
 
 /// Records the rows moved to each bound.
@@ -607,7 +590,7 @@ pub(crate) fn pareto_smooth(v: &mut [f64]) -> (usize, TailFit) {
 mod tests {
     use super::*;
     use crate::diagnostics::tail_size;
-    use crate::kernel::rng;
+    use crate::random::rng;
     use rand::Rng;
 
     const TAG: u64 = 0x7374_6162;
@@ -800,7 +783,7 @@ mod props {
             let perm = {
                 use rand::seq::SliceRandom;
                 let mut p: Vec<usize> = (0..w.len()).collect();
-                p.shuffle(&mut crate::kernel::rng(seed));
+                p.shuffle(&mut crate::random::rng(seed));
                 p
             };
             let wp: Vec<f64> = perm.iter().map(|&i| w[i]).collect();
@@ -824,7 +807,7 @@ mod props {
             let mut wp = w.clone();
             {
                 use rand::seq::SliceRandom;
-                wp.shuffle(&mut crate::kernel::rng(seed));
+                wp.shuffle(&mut crate::random::rng(seed));
             }
             let (d, dp) = (diagnose(&w, None).unwrap(), diagnose(&wp, None).unwrap());
             for x in [d.ess, d.ess_fraction, d.top1_share, d.max_over_mean, d.mean] {

@@ -2,7 +2,12 @@
 #![allow(dead_code)]
 
 use rand_distr::{Distribution, Normal};
-use shiftweight::{kernel::rng, Matrix};
+use shiftweight::Matrix;
+
+/// The crate's seeded generator (ChaCha8 seeded from a u64), for reproducible test data.
+pub fn rng(seed: u64) -> rand_chacha::ChaCha8Rng {
+    rand::SeedableRng::seed_from_u64(seed)
+}
 
 /// n rows of independent N(mean_j, sd^2) features.
 pub fn gaussian(n: usize, means: &[f64], sd: f64, seed: u64) -> Matrix {

@@ -4,8 +4,8 @@
 mod common;
 
 use common::gaussian;
+use common::rng;
 use serde_json::{json, Value};
-use shiftweight::kernel::rng;
 use shiftweight::ratio::{Features, UniformRatio};
 use shiftweight::{
     ClassifierRatio, Error, FittedRatio, KLRatio, KernelMeanMatching, LeastSquaresRatio,

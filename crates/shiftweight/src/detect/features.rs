@@ -32,8 +32,8 @@ use super::stats::{
 use super::{pooled_standardized, FEATURE_SHIFT_FORMAT};
 use crate::data::{kfold_assignment, validate_pair, MatrixView};
 use crate::error::{Error, Result};
-use crate::kernel::rng;
 use crate::model;
+use crate::random::rng;
 use rand::seq::index::sample;
 use rand::seq::SliceRandom;
 use rayon::prelude::*;

@@ -26,7 +26,7 @@
 use super::calibrate::Calibration;
 use crate::data::Matrix;
 use crate::error::Result;
-use crate::kernel::rng;
+use crate::random::rng;
 use rand::Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
@@ -142,14 +142,6 @@ pub fn fixed_point(posteriors: &Matrix, priors: &[f64], start: &[f64], max_iter:
     }
 }
 
-/// Quantile with linear interpolation between order statistics (numpy's default), of sorted `v`.
-fn quantile_sorted(v: &[f64], prob: f64) -> f64 {
-    let h = (v.len() - 1) as f64 * prob;
-    let lo = h.floor() as usize;
-    let hi = (lo + 1).min(v.len() - 1);
-    v[lo] + (h - lo as f64) * (v[hi] - v[lo])
-}
-
 /// Calibrates on the source, runs EM on the target, and bootstraps the interval.
 pub fn estimate(
     ps: &Matrix,
@@ -222,8 +214,8 @@ pub fn estimate(
             for j in 0..k {
                 let mut v: Vec<f64> = ok.iter().map(|q| q[j]).collect();
                 v.sort_by(f64::total_cmp);
-                lo[j] = quantile_sorted(&v, alpha);
-                hi[j] = quantile_sorted(&v, 1.0 - alpha);
+                lo[j] = crate::order::quantile_of_sorted(&v, alpha);
+                hi[j] = crate::order::quantile_of_sorted(&v, 1.0 - alpha);
                 let m = v.iter().sum::<f64>() / v.len() as f64;
                 sd[j] = (v.iter().map(|x| (x - m) * (x - m)).sum::<f64>() / (v.len() - 1) as f64)
                     .sqrt();

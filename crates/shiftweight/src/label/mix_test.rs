@@ -20,8 +20,8 @@ use super::{check_probabilities, predicted_classes, CLASS_MIX_TEST_FORMAT};
 use crate::data::MatrixView;
 use crate::detect::chi_square_two_rows;
 use crate::error::{Error, Result};
-use crate::kernel::rng;
 use crate::model;
+use crate::random::rng;
 use rand::seq::SliceRandom;
 use serde::{Deserialize, Serialize};
 

@@ -123,7 +123,7 @@ fn absent_class_and_bad_rows_are_errors_naming_the_argument() {
 /// Seeded soft probabilities: rows drawn from a 3-class problem with overlapping classes.
 fn soft_case(n_s: usize, n_t: usize, q: [f64; 3], seed: u64) -> (Matrix, Vec<usize>, Matrix) {
     use rand::Rng;
-    let mut r = crate::kernel::rng(seed);
+    let mut r = crate::random::rng(seed);
     let centre = [[2.0, 0.0, 0.0], [0.0, 2.0, 0.0], [0.0, 0.0, 2.0]];
     let draw = |y: usize, r: &mut rand_chacha::ChaCha8Rng| -> Vec<f64> {
         let z: Vec<f64> = (0..3)

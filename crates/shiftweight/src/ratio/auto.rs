@@ -49,8 +49,8 @@
 
 use super::classifier::{ClassifierRatio, FeatureMap, Features};
 use super::{
-    fit_meta, mean_and_std_error, params, standardise_pair, EstimatorKind, FittedRatio,
-    LeastSquaresRatio, RatioEstimator, RatioForm, ScoreRow, Selection,
+    fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, LeastSquaresRatio,
+    RatioEstimator, RatioForm, ScoreRow, Selection,
 };
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
 use crate::error::{Error, Result};
@@ -361,7 +361,7 @@ impl AutoRatio {
             let (mean, std_error) = if error.is_some() {
                 (f64::INFINITY, f64::NAN)
             } else {
-                mean_and_std_error(&per_fold)
+                crate::metrics::mean_and_std_error(&per_fold)
             };
             let pareto_k = if error.is_none() {
                 crate::diagnostics::pareto_k(&ws).ok().and_then(|f| f.k)
@@ -496,11 +496,10 @@ impl RatioEstimator for AutoRatio {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::kernel;
     use rand_distr::{Distribution, Normal};
 
     fn gaussian(n: usize, d: usize, mean: f64, seed: u64) -> Vec<f64> {
-        let mut r = kernel::rng(seed);
+        let mut r = crate::random::rng(seed);
         let g = Normal::new(mean, 1.0).unwrap();
         (0..n * d).map(|_| g.sample(&mut r)).collect()
     }

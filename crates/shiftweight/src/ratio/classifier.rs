@@ -54,8 +54,9 @@ use super::{
 };
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
 use crate::error::{Error, Result};
-use crate::kernel::{self, CHUNK_ROWS};
+use crate::kernel;
 use crate::learn::{fit_logistic_unchecked, fit_logistic_warm, log1pexp};
+use crate::par::CHUNK_ROWS;
 use rand::Rng;
 use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
@@ -69,7 +70,8 @@ const MAX_ITER: usize = 100;
 const TOL: f64 = 1e-10;
 
 /// Which feature map the classifier uses (configuration; see the module docs).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
 pub enum Features {
     /// The standardised features themselves.
     Linear,
@@ -187,7 +189,7 @@ impl FeatureMap {
 
     /// Draws a Fourier map: D frequencies ~ N(0, I / sigma^2), offsets ~ U[0, 2 pi) (seeded).
     pub fn fourier(d: usize, n_features: usize, sigma: f64, seed: u64) -> Self {
-        let mut r = kernel::rng(seed ^ 0x7266_6672_6571);
+        let mut r = crate::random::rng(seed ^ 0x7266_6672_6571);
         let freq: Vec<f64> = (0..n_features * d)
             .map(|_| {
                 let g: f64 = StandardNormal.sample(&mut r);
@@ -246,7 +248,7 @@ pub fn weight_from_logit(eta: f64, log_prior_ratio: f64) -> f64 {
 }
 
 /// Probabilistic-classifier ratio configuration. Build with [`ClassifierRatio::new`] and setters.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct ClassifierRatio {
     /// Penalty strength (> 0) on the coefficients, intercept unpenalised (default `Some(1.0)`;
     /// scikit-learn's `C = 1/l2`). `None` chooses it from `l2_grid` by out-of-fold log-loss.
@@ -461,6 +463,107 @@ struct FoldFit {
     intercept: f64,
 }
 
+impl ClassifierRatio {
+    /// The feature map of the classifier and the parameters it adds to the model's record (the
+    /// Fourier width, by the median heuristic over `zs` and `zt` unless given, and the feature
+    /// count).
+    fn feature_map(
+        &self,
+        zs: MatrixView,
+        zt: MatrixView,
+        d: usize,
+    ) -> (FeatureMap, Vec<(&'static str, f64)>) {
+        let mut extra = Vec::new();
+        let map = match self.features {
+            Features::Linear => FeatureMap::Linear,
+            Features::Quadratic => FeatureMap::Quadratic,
+            Features::Fourier => {
+                let sigma = match self.fourier_sigma {
+                    Some(s) => s,
+                    None => kernel::median_distance(&[zs, zt], self.seed),
+                };
+                extra.push(("fourier_sigma", sigma));
+                extra.push(("n_fourier", self.n_fourier as f64));
+                FeatureMap::fourier(d, self.n_fourier, sigma, self.seed)
+            }
+        };
+        (map, extra)
+    }
+}
+
+/// The penalty of `grid` with the lowest out-of-fold log-loss, its cross-fit, the table of every
+/// penalty's score, and the penalties whose fit failed numerically (skipped, with the reason,
+/// when the grid has more than one; otherwise the error is returned). One [`cross_fit`] per
+/// penalty.
+fn choose_penalty(
+    phi: MatrixView,
+    y: &[f64],
+    fold: &[usize],
+    n_s: usize,
+    k: usize,
+    grid: &[f64],
+) -> Result<(f64, CrossFit, Vec<ScoreRow>, Vec<String>)> {
+    let mut table = Vec::new();
+    let mut best: Option<(f64, CrossFit)> = None;
+    let mut failures = Vec::new();
+    for &l2 in grid {
+        match cross_fit(phi, y, fold, n_s, k, l2) {
+            Ok(cf) => {
+                table.push(ScoreRow {
+                    params: params([("l2", l2)]),
+                    score: cf.log_loss,
+                });
+                if best.as_ref().is_none_or(|(_, b)| cf.log_loss < b.log_loss) {
+                    best = Some((l2, cf));
+                }
+            }
+            Err(e @ Error::Numerical { .. }) if grid.len() > 1 => {
+                table.push(ScoreRow {
+                    params: params([("l2", l2)]),
+                    score: f64::INFINITY,
+                });
+                failures.push(format!("l2 = {l2}: {e}"));
+            }
+            Err(e) => return Err(e),
+        }
+    }
+    let (l2, cf) = best.ok_or_else(|| Error::Numerical {
+        context: "classifier ratio".into(),
+        reason: format!(
+            "no penalty of the grid could be fitted: {}",
+            failures.join("; ")
+        ),
+    })?;
+    Ok((l2, cf, table, failures))
+}
+
+/// Warnings about the chosen cross-fit: a held-out log-loss no better than the constant guess
+/// n_t / n (chance level), and source log-weights capped at [`LOG_WEIGHT_CAP`].
+fn fit_warnings(cf: &CrossFit, n_s: usize, n_t: usize) -> Vec<String> {
+    let mut warnings = Vec::new();
+    let n = (n_s + n_t) as f64;
+    let chance = -(n_s as f64 / n * (n_s as f64 / n).ln() + n_t as f64 / n * (n_t as f64 / n).ln());
+    if cf.log_loss >= chance {
+        warnings.push(format!(
+            "the classifier tells target from source rows no better than chance on held-out rows \
+             (log-loss {:.4} vs {:.4} for a constant guess): no shift is detectable with these features",
+            cf.log_loss, chance
+        ));
+    }
+    let capped = cf
+        .source_log_w
+        .iter()
+        .filter(|v| **v > LOG_WEIGHT_CAP)
+        .count();
+    if capped > 0 {
+        warnings.push(format!(
+            "{capped} source row(s) had log-weights above {LOG_WEIGHT_CAP} and were capped: \
+             the source barely covers the target there"
+        ));
+    }
+    warnings
+}
+
 impl RatioEstimator for ClassifierRatio {
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         self.check()?;
@@ -477,20 +580,7 @@ impl RatioEstimator for ClassifierRatio {
         let z = Matrix::new(zbuf, n_s + n_t, d)?;
         let zs = MatrixView::new(&z.as_slice()[..n_s * d], n_s, d)?;
         let zt = MatrixView::new(&z.as_slice()[n_s * d..], n_t, d)?;
-        let mut extra = Vec::new();
-        let map = match self.features {
-            Features::Linear => FeatureMap::Linear,
-            Features::Quadratic => FeatureMap::Quadratic,
-            Features::Fourier => {
-                let sigma = match self.fourier_sigma {
-                    Some(s) => s,
-                    None => kernel::median_distance(&[zs, zt], self.seed),
-                };
-                extra.push(("fourier_sigma", sigma));
-                extra.push(("n_fourier", self.n_fourier as f64));
-                FeatureMap::fourier(d, self.n_fourier, sigma, self.seed)
-            }
-        };
+        let (map, extra) = self.feature_map(zs, zt, d);
         // Pooled mapped rows: source first, then target; y = 1 marks target rows. The linear map
         // is the identity on standardised rows: no mapped copy is made.
         let phi = match map {
@@ -509,64 +599,13 @@ impl RatioEstimator for ClassifierRatio {
             Some(l) => vec![l],
             None => self.l2_grid.clone(),
         };
-        let mut table = Vec::new();
-        let mut best: Option<(f64, CrossFit)> = None;
-        let mut failures = Vec::new();
-        for &l2 in &grid {
-            match cross_fit(phi.view(), &y, &fold, n_s, k, l2) {
-                Ok(cf) => {
-                    table.push(ScoreRow {
-                        params: params([("l2", l2)]),
-                        score: cf.log_loss,
-                    });
-                    if best.as_ref().is_none_or(|(_, b)| cf.log_loss < b.log_loss) {
-                        best = Some((l2, cf));
-                    }
-                }
-                Err(e @ Error::Numerical { .. }) if grid.len() > 1 => {
-                    table.push(ScoreRow {
-                        params: params([("l2", l2)]),
-                        score: f64::INFINITY,
-                    });
-                    failures.push(format!("l2 = {l2}: {e}"));
-                }
-                Err(e) => return Err(e),
-            }
-        }
-        let (l2, cf) = best.ok_or_else(|| Error::Numerical {
-            context: "classifier ratio".into(),
-            reason: format!(
-                "no penalty of the grid could be fitted: {}",
-                failures.join("; ")
-            ),
-        })?;
+        let (l2, cf, table, failures) = choose_penalty(phi.view(), &y, &fold, n_s, k, &grid)?;
         for f in failures {
             warnings.push(format!(
                 "the logistic fit failed for {f}; that penalty was skipped"
             ));
         }
-        // Chance level: the log-loss of the constant prediction n_t / n.
-        let n = (n_s + n_t) as f64;
-        let chance =
-            -(n_s as f64 / n * (n_s as f64 / n).ln() + n_t as f64 / n * (n_t as f64 / n).ln());
-        if cf.log_loss >= chance {
-            warnings.push(format!(
-                "the classifier tells target from source rows no better than chance on held-out rows \
-                 (log-loss {:.4} vs {:.4} for a constant guess): no shift is detectable with these features",
-                cf.log_loss, chance
-            ));
-        }
-        let capped = cf
-            .source_log_w
-            .iter()
-            .filter(|v| **v > LOG_WEIGHT_CAP)
-            .count();
-        if capped > 0 {
-            warnings.push(format!(
-                "{capped} source row(s) had log-weights above {LOG_WEIGHT_CAP} and were capped: \
-                 the source barely covers the target there"
-            ));
-        }
+        warnings.extend(fit_warnings(&cf, n_s, n_t));
 
         let ones = vec![1.0; n_s + n_t];
         // The fit on all rows starts from the mean of the fold solutions (within sampling error
@@ -682,7 +721,7 @@ mod tests {
     use rand_distr::Normal;
 
     fn gaussian_1d(n: usize, mean: f64, sd: f64, seed: u64) -> Vec<f64> {
-        let mut r = kernel::rng(seed);
+        let mut r = crate::random::rng(seed);
         let g = Normal::new(mean, sd).unwrap();
         (0..n).map(|_| g.sample(&mut r)).collect()
     }

@@ -15,14 +15,10 @@
 //! (with c = 0, the squared maximum mean discrepancy between the weighted source and the target,
 //! up to the factor 1/n^2 and a constant) with the interior-point solver clarabel, through its
 //! supernodal sparse LDL back end built on faer (the `faer-sparse` feature): the kernel block of
-//! the KKT system is dense, and the supernodal factorisation runs it through dense kernels. On a
-//! 2,000 + 2,000 x 10 problem it solved the same QP in 13.0 s against 68.8 s for clarabel's
-//! default QDLDL back end (dev build with optimised dependencies, both under load).
+//! the KKT system is dense, and the supernodal factorisation runs it through dense kernels.
 //!
-//! Ridge. The exact matching (c = 0) fits the sampling noise of the target's kernel mean: it
-//! drives many weights to 0 and was measured worse than uniform weights (5-D mean shift, n = 300:
-//! NMSE 4.25 against 0.27 at the median-heuristic width; every width from 1/4 to 4 medians was
-//! worse than uniform). The ridge c sqrt(n) ||beta||^2 / 2 (Tikhonov regularisation; relative to
+//! Ridge. The exact matching (c = 0) fits the sampling noise of the target's kernel mean and
+//! drives many weights to 0. The ridge c sqrt(n) ||beta||^2 / 2 (Tikhonov regularisation; relative to
 //! the O(n^2) quadratic term it shrinks like 1/sqrt(n), so the estimator stays consistent)
 //! trades matching accuracy for weight variance.
 //!
@@ -50,30 +46,8 @@
 //! most `NOISE_ROWS` seeded target rows. Above `block_rows` source rows the selection runs on the
 //! first seeded block (n = its size) against all target rows.
 //!
-//! Measured (NMSE of tests/_shift_cases.py on the fitted rows; uniform weights about 0.93 on the
-//! 1-D pair, 0.26 on the 5-D shift, 0.22 on breast cancer), the discrepancy principle against the
-//! held-out matching score it replaced (KMM solved on target folds, scored by the squared MMD to
-//! the held-out fold):
-//! - 1-D pair N(1, 0.5^2) -> N(2, 0.25^2), 24 seeds: mean 0.134 at n = 100 and 0.070 at n = 400
-//!   (largest 0.302 and 0.160), against 0.150 and 0.104 (largest at n = 400: 0.403). The held-out
-//!   score chose the smallest ridge of the grid in 30 of 30 fits: closer matching of the same
-//!   source rows always scores better, since it judges only the kernel mean, not the weights.
-//! - 5-D mean shift (mu = (0.5, 0.25, 0, 0, 0), n = 300), 12 seeds: 0.058 against 0.107; the
-//!   per-seed best grid point, chosen with the truth, 0.054.
-//! - Bundled breast-cancer data with a known selection (30 columns), 8 seeds: 0.121 against 0.29,
-//!   which was worse than uniform weights; the rule's choice beat uniform weights in 8 of 8.
-//!
-//! Also tried: the widest width first, then the largest ridge. With the default grid it did better
-//! on the 1-D pair (0.077 -> 0.027 over 12 seeds, against 0.121 -> 0.054), but it took the grid's
-//! widest width nearly every time, and with 4 x median added to the grid it fell to 0.140 -> 0.076.
-//! Ridge first gave 0.121 -> 0.054 with that wider width grid too, and 0.119 -> 0.054 with a finer
-//! ridge grid (0.01, 0.03, 0.1, 0.3, 1), so it is the default. The held-out score with a
-//! one-standard-error rule (widest width, then largest ridge) was in between: 1-D 0.104 -> 0.054
-//! over 24 seeds but up to 0.35 at n = 400; 5-D 0.082; breast cancer 0.164.
-//!
 //! The selection solves |sigma grid| x |ridge grid| QPs; when the source is one block, the chosen
-//! candidate's solution is the fit (no further solve). A default fit of 400 + 400 rows took 1.2 s
-//! (release build), against 3.9 s for the held-out score's 3 x 12 + 1 solves.
+//! candidate's solution is the fit (no further solve).
 //!
 //! Defaults: `B = 1000` and `eps = (sqrt(n) - 1) / sqrt(n)`, the settings of the experiments of
 //! Huang et al. (2007) (from memory; the paper's analysis asks for eps of order B / sqrt(n)).
@@ -104,7 +78,8 @@ use super::{
 };
 use crate::data::{validate_pair, MatrixView};
 use crate::error::{Error, Result};
-use crate::kernel::{self, CHUNK_ROWS};
+use crate::kernel;
+use crate::par::CHUNK_ROWS;
 use clarabel::algebra::CscMatrix;
 use clarabel::solver::{
     DefaultSettingsBuilder, DefaultSolver, IPSolver, SolverStatus, SupportedConeT,
@@ -121,7 +96,7 @@ const NOISE_TAG: u64 = 0x6b6d_6d6e_6f69;
 pub const NOISE_ROWS: usize = 10_000;
 
 /// KMM configuration. Build with [`KernelMeanMatching::new`] and the setters.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct KernelMeanMatching {
     /// Kernel width in standardised units; `None` (default) uses the median pairwise distance.
     pub sigma: Option<f64>,
@@ -411,7 +386,7 @@ pub(crate) fn blocks(n: usize, max: usize, seed: u64) -> Vec<Vec<usize>> {
     }
     let k = n.div_ceil(max);
     let mut order: Vec<usize> = (0..n).collect();
-    order.shuffle(&mut kernel::rng(seed ^ BLOCK_TAG));
+    order.shuffle(&mut crate::random::rng(seed ^ BLOCK_TAG));
     let mut out: Vec<Vec<usize>> = (0..k).map(|_| Vec::with_capacity(n / k + 1)).collect();
     for (pos, &i) in order.iter().enumerate() {
         out[pos % k].push(i);
@@ -429,7 +404,12 @@ fn target_mean_norm_sq(t: MatrixView, sigma: f64, seed: u64, max_rows: usize) ->
     let sub;
     let rows = if t.rows() > max_rows {
         use rand::seq::index::sample;
-        let mut idx = sample(&mut kernel::rng(seed ^ NOISE_TAG), t.rows(), max_rows).into_vec();
+        let mut idx = sample(
+            &mut crate::random::rng(seed ^ NOISE_TAG),
+            t.rows(),
+            max_rows,
+        )
+        .into_vec();
         idx.sort_unstable();
         sub = t.select_rows(&idx);
         sub.view()
@@ -479,12 +459,125 @@ fn choose_candidate(cands: &[Candidate]) -> Option<(usize, bool)> {
     })
 }
 
+/// The outcome of the (sigma, ridge) selection: the chosen candidate, the table of every
+/// candidate's discrepancy, and a warning when no candidate was within its noise level.
+struct Chosen {
+    best: Candidate,
+    table: Vec<ScoreRow>,
+    warning: Option<String>,
+}
+
+impl KernelMeanMatching {
+    /// Chooses (sigma, ridge) among `sigmas` x `ridges` by the discrepancy principle (see the
+    /// module doc) on the source rows `rows` (the first block: a seeded random subset of the
+    /// source, so it has the source distribution), evaluating every candidate at the
+    /// median-heuristic width `median`. Per width: one O(n n_t d) pass for the target kernel sums,
+    /// then one QP per ridge (in parallel).
+    fn select(
+        &self,
+        zs: MatrixView,
+        zt: MatrixView,
+        rows: &[usize],
+        median: f64,
+        sigmas: &[f64],
+        ridges: &[f64],
+    ) -> Result<Chosen> {
+        let xs = zs.select_rows(rows);
+        let n = xs.rows();
+        let nf = n as f64;
+        let n_t = zt.rows();
+        let eval_gram = kernel::kernel_block(xs.view(), xs.view(), median);
+        let eval_cross = target_kernel_sums(xs.view(), zt, median);
+        let u = target_mean_norm_sq(zt, median, self.seed, NOISE_ROWS);
+        let eps = self.eps_for(n);
+        let mut table = Vec::new();
+        let mut cands = Vec::new();
+        for &sg in sigmas {
+            // At the evaluation width (1 x median on the default grid) the sums are known.
+            let ksum = if sg == median {
+                eval_cross.clone()
+            } else {
+                target_kernel_sums(xs.view(), zt, sg)
+            };
+            // Same expression as in `solve_blocks`, so that a reused solution is bit-identical.
+            let scale = nf / n_t as f64;
+            let kappa: Vec<f64> = ksum.iter().map(|v| v * scale).collect();
+            let solved: Vec<(f64, Result<Vec<f64>>)> = ridges
+                .par_iter()
+                .map(|&rg| (rg, solve_qp(xs.view(), &kappa, sg, rg, self.bound, eps)))
+                .collect();
+            for (rg, sol) in solved {
+                let Ok(beta) = sol else {
+                    table.push(ScoreRow {
+                        params: params([("sigma", sg), ("ridge", rg), ("noise_level", f64::NAN)]),
+                        score: f64::INFINITY,
+                    });
+                    continue;
+                };
+                let (discrepancy, noise_level) =
+                    discrepancy_and_noise(&beta, &eval_gram, &eval_cross, n_t, u);
+                table.push(ScoreRow {
+                    params: params([("sigma", sg), ("ridge", rg), ("noise_level", noise_level)]),
+                    score: discrepancy,
+                });
+                cands.push(Candidate {
+                    sigma: sg,
+                    ridge: rg,
+                    discrepancy,
+                    noise_level,
+                    beta,
+                });
+            }
+        }
+        let Some((best, within_noise)) = choose_candidate(&cands) else {
+            return Err(Error::Numerical {
+                context: "KMM selection".into(),
+                reason:
+                    "no (sigma, ridge) candidate could be solved; give sigma and ridge explicitly"
+                        .into(),
+            });
+        };
+        let warning = (!within_noise).then(|| {
+            "no (sigma, ridge) candidate matched the target within its noise level; the one with the smallest excess was chosen. Try a smaller ridge or a wider sigma grid, and check the overlap of source and target".to_string()
+        });
+        Ok(Chosen {
+            best: cands.swap_remove(best),
+            table,
+            warning,
+        })
+    }
+}
+
+/// The squared MMD D(beta) between the selection rows weighted by `beta` and the target, at the
+/// evaluation width (`gram` the n x n kernel of the selection rows, `cross` their kernel sums over
+/// the `n_t` target rows, `u` the mean squared norm term of the target), and its noise level
+/// N = (mean(beta^2) - u) / n. O(n^2).
+fn discrepancy_and_noise(
+    beta: &[f64],
+    gram: &[f64],
+    cross: &[f64],
+    n_t: usize,
+    u: f64,
+) -> (f64, f64) {
+    let n = beta.len();
+    let nf = n as f64;
+    let mut quad = 0.0;
+    for i in 0..n {
+        let row = &gram[i * n..(i + 1) * n];
+        quad += beta[i] * row.iter().zip(beta).map(|(a, b)| a * b).sum::<f64>();
+    }
+    let cross: f64 = beta.iter().zip(cross).map(|(b, s)| b * s).sum();
+    let discrepancy = quad / (nf * nf) - 2.0 * cross / (nf * n_t as f64) + u;
+    let mean_sq = beta.iter().map(|b| b * b).sum::<f64>() / nf;
+    (discrepancy, (mean_sq - u) / nf)
+}
+
 impl RatioEstimator for KernelMeanMatching {
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         self.check()?;
         validate_pair(&source, &target, 2)?;
         let (st, zs, zt, warnings) = standardise_pair(source, target);
-        let (n_s, n_t) = (zs.rows(), zt.rows());
+        let n_s = zs.rows();
         let median = kernel::median_distance(&[zs.view(), zt.view()], self.seed);
         let parts = blocks(n_s, self.block_rows, self.seed);
         let sigmas: Vec<f64> = match self.sigma {
@@ -495,91 +588,20 @@ impl RatioEstimator for KernelMeanMatching {
             Some(r) => vec![r],
             None => self.ridge_grid.clone(),
         };
-        let mut table = Vec::new();
-        // The chosen candidate's solution on the selection rows, when they are the whole source.
-        let mut reuse: Option<Vec<f64>> = None;
-        let mut selection_warning: Option<String> = None;
-        let (sigma, ridge) = if sigmas.len() * ridges.len() > 1 {
-            // Selection on the first block (all rows when unblocked): a seeded random subset
-            // of the source, so it has the source distribution.
-            let xs = zs.view().select_rows(&parts[0]);
-            let n = xs.rows();
-            let nf = n as f64;
-            let eval_gram = kernel::kernel_block(xs.view(), xs.view(), median);
-            let eval_cross = target_kernel_sums(xs.view(), zt.view(), median);
-            let u = target_mean_norm_sq(zt.view(), median, self.seed, NOISE_ROWS);
-            let eps = self.eps_for(n);
-            let mut cands = Vec::new();
-            for &sg in &sigmas {
-                // At the evaluation width (1 x median on the default grid) the sums are known.
-                let ksum = if sg == median {
-                    eval_cross.clone()
-                } else {
-                    target_kernel_sums(xs.view(), zt.view(), sg)
-                };
-                // Same expression as in `solve_blocks`, so that a reused solution is bit-identical.
-                let scale = nf / n_t as f64;
-                let kappa: Vec<f64> = ksum.iter().map(|v| v * scale).collect();
-                let solved: Vec<(f64, Result<Vec<f64>>)> = ridges
-                    .par_iter()
-                    .map(|&rg| (rg, solve_qp(xs.view(), &kappa, sg, rg, self.bound, eps)))
-                    .collect();
-                for (rg, sol) in solved {
-                    let Ok(beta) = sol else {
-                        table.push(ScoreRow {
-                            params: params([
-                                ("sigma", sg),
-                                ("ridge", rg),
-                                ("noise_level", f64::NAN),
-                            ]),
-                            score: f64::INFINITY,
-                        });
-                        continue;
-                    };
-                    let mut quad = 0.0;
-                    for i in 0..n {
-                        let row = &eval_gram[i * n..(i + 1) * n];
-                        quad += beta[i] * row.iter().zip(&beta).map(|(a, b)| a * b).sum::<f64>();
-                    }
-                    let cross: f64 = beta.iter().zip(&eval_cross).map(|(b, s)| b * s).sum();
-                    let discrepancy = quad / (nf * nf) - 2.0 * cross / (nf * n_t as f64) + u;
-                    let mean_sq = beta.iter().map(|b| b * b).sum::<f64>() / nf;
-                    let noise_level = (mean_sq - u) / nf;
-                    table.push(ScoreRow {
-                        params: params([
-                            ("sigma", sg),
-                            ("ridge", rg),
-                            ("noise_level", noise_level),
-                        ]),
-                        score: discrepancy,
-                    });
-                    cands.push(Candidate {
-                        sigma: sg,
-                        ridge: rg,
-                        discrepancy,
-                        noise_level,
-                        beta,
-                    });
-                }
-            }
-            let Some((best, within_noise)) = choose_candidate(&cands) else {
-                return Err(Error::Numerical {
-                    context: "KMM selection".into(),
-                    reason: "no (sigma, ridge) candidate could be solved; give sigma and ridge explicitly".into(),
-                });
-            };
-            if !within_noise {
-                selection_warning = Some(
-                    "no (sigma, ridge) candidate matched the target within its noise level; the one with the smallest excess was chosen. Try a smaller ridge or a wider sigma grid, and check the overlap of source and target".to_string(),
-                );
-            }
-            let chosen = cands.swap_remove(best);
-            if parts.len() == 1 {
-                reuse = Some(chosen.beta);
-            }
-            (chosen.sigma, chosen.ridge)
+        let (sigma, ridge, table, reuse, selection_warning) = if sigmas.len() * ridges.len() > 1 {
+            let chosen = self.select(zs.view(), zt.view(), &parts[0], median, &sigmas, &ridges)?;
+            // The chosen candidate's solution on the selection rows is the fit when they are
+            // the whole source.
+            let reuse = (parts.len() == 1).then_some(chosen.best.beta);
+            (
+                chosen.best.sigma,
+                chosen.best.ridge,
+                chosen.table,
+                reuse,
+                chosen.warning,
+            )
         } else {
-            (sigmas[0], ridges[0])
+            (sigmas[0], ridges[0], Vec::new(), None, None)
         };
         let beta = match reuse {
             Some(b) => b,
@@ -637,7 +659,7 @@ mod tests {
     use rand_distr::{Distribution, Normal};
 
     fn gauss(n: usize, mean: f64, sd: f64, seed: u64) -> Vec<f64> {
-        let mut r = kernel::rng(seed);
+        let mut r = crate::random::rng(seed);
         let g = Normal::new(mean, sd).unwrap();
         (0..n).map(|_| g.sample(&mut r)).collect()
     }

@@ -41,7 +41,7 @@ use rand::seq::index::sample;
 use rayon::prelude::*;
 
 /// uLSIF / RuLSIF configuration. Build with [`LeastSquaresRatio::new`] and the setters.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct LeastSquaresRatio {
     /// Kernel width in standardised units; `None` (default) chooses it by LOOCV over
     /// `sigma_multiples` x the median pairwise distance.
@@ -60,6 +60,13 @@ pub struct LeastSquaresRatio {
     pub lambda_grid: Vec<f64>,
     /// Most held-out pairs used by LOOCV (default 10,000; at least 2).
     pub max_cv_rows: usize,
+}
+
+impl LeastSquaresRatio {
+    /// The mixing weight alpha used when RuLSIF is asked for without one (the command line's
+    /// `--estimator rulsif`, and the RuLSIF candidate of [`super::AutoRatio`]): the relative
+    /// ratio is then bounded by 1 / alpha = 10.
+    pub const RULSIF_ALPHA: f64 = 0.1;
 }
 
 impl Default for LeastSquaresRatio {
@@ -381,7 +388,7 @@ fn loo_scores(
 /// one lambda (`dinv` = 1 / (eigenvalue + lambda)): the 1 x 1 (uLSIF) or 2 x 2 (RuLSIF) Woodbury
 /// system of each pair, then tt_i = D (e_i + z0 g_i + z1 f_i). Returns true when some pair's
 /// system is singular. Compiled for AVX2 when the CPU has it (the body is too large for
-/// [`kernel::with_wide_simd`]'s closure to be inlined into its wide version; the arithmetic is the
+/// [`crate::simd::with_wide_simd`]'s closure to be inlined into its wide version; the arithmetic is the
 /// same in both, so results are bitwise equal).
 #[allow(clippy::too_many_arguments)]
 fn held_out_coefficients(
@@ -671,7 +678,7 @@ impl RatioEstimator for LeastSquaresRatio {
         let (mut best_s, mut best_l) = (0usize, 0usize);
         if sigmas.len() * lambdas.len() > 1 {
             let m = n_s.min(n_t).min(self.max_cv_rows);
-            let mut r = kernel::rng(self.seed ^ 0x006c_6f6f_6376);
+            let mut r = crate::random::rng(self.seed ^ 0x006c_6f6f_6376);
             let mut is = sample(&mut r, n_s, m).into_vec();
             let mut it = sample(&mut r, n_t, m).into_vec();
             is.sort_unstable();
@@ -779,7 +786,7 @@ mod tests {
     use rand_distr::{Distribution, Normal};
 
     fn gaussian_rows(n: usize, d: usize, mean: f64, seed: u64) -> Matrix {
-        let mut r = kernel::rng(seed);
+        let mut r = crate::random::rng(seed);
         let nd = Normal::new(mean, 1.0).unwrap();
         Matrix::new((0..n * d).map(|_| nd.sample(&mut r)).collect(), n, d).unwrap()
     }

@@ -14,7 +14,8 @@ pub mod lsif;
 
 use crate::data::{Matrix, MatrixView, Standardizer};
 use crate::error::{Error, Result};
-use crate::kernel::{self, CHUNK_ROWS};
+use crate::kernel;
+use crate::par::CHUNK_ROWS;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
@@ -236,7 +237,22 @@ pub struct FittedRatio {
     pub warnings: Vec<String>,
 }
 
+/// Format tag of ratio-model files (inside the envelope of [`crate::model`]).
+pub const RATIO_MODEL_FORMAT: &str = "shiftweight.ratio-model";
+
 impl FittedRatio {
+    /// The model file document (see [`crate::model`]).
+    pub fn to_json(&self) -> Result<String> {
+        crate::model::to_json_tagged(RATIO_MODEL_FORMAT, self)
+    }
+
+    /// Loads a model file document, rejecting other formats, versions and inconsistent models.
+    pub fn from_json(text: &str) -> Result<Self> {
+        let m: FittedRatio = crate::model::from_json_tagged(RATIO_MODEL_FORMAT, text)?;
+        m.check()?;
+        Ok(m)
+    }
+
     /// Number of features the model expects.
     pub fn n_features(&self) -> usize {
         self.standardizer.n_features()
@@ -543,18 +559,6 @@ pub(crate) fn params<const N: usize>(pairs: [(&str, f64); N]) -> BTreeMap<String
     pairs.iter().map(|(k, v)| (k.to_string(), *v)).collect()
 }
 
-/// Mean and standard error (sample sd / sqrt(k)) of per-fold scores.
-pub(crate) fn mean_and_std_error(v: &[f64]) -> (f64, f64) {
-    let k = v.len() as f64;
-    let mean = v.iter().sum::<f64>() / k;
-    let var = if v.len() > 1 {
-        v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (k - 1.0)
-    } else {
-        0.0
-    };
-    (mean, (var / k).sqrt())
-}
-
 /// Rejects an empty candidate grid or one with a value that is not finite and > 0 (>= 0 when
 /// `allow_zero`), naming the option.
 pub(crate) fn check_grid(name: &str, values: &[f64], allow_zero: bool) -> Result<()> {
@@ -567,4 +571,24 @@ pub(crate) fn check_grid(name: &str, values: &[f64], allow_zero: bool) -> Result
         ));
     }
     Ok(())
+}
+
+/// The default configuration of every estimator, keyed by the kind name the bindings use
+/// (`least_squares`, `kliep`, `kmm`, `classifier`, `auto`), each a JSON object of its parameters
+/// (unset options are `null`), plus `rulsif_alpha` ([`LeastSquaresRatio::RULSIF_ALPHA`]).
+/// Serialised from each estimator's `Default`, so it cannot drift from it: the Python
+/// constructors and the command line are tested against it.
+pub fn estimator_defaults() -> serde_json::Value {
+    let auto = AutoRatio::default();
+    let value = |v: std::result::Result<serde_json::Value, serde_json::Error>| {
+        v.expect("estimator configurations hold only numbers, lists and names")
+    };
+    serde_json::json!({
+        "least_squares": value(serde_json::to_value(LeastSquaresRatio::default())),
+        "kliep": value(serde_json::to_value(KLRatio::default())),
+        "kmm": value(serde_json::to_value(KernelMeanMatching::default())),
+        "classifier": value(serde_json::to_value(ClassifierRatio::default())),
+        "auto": {"folds": auto.folds, "seed": auto.seed, "se_margin": auto.se_margin},
+        "rulsif_alpha": LeastSquaresRatio::RULSIF_ALPHA,
+    })
 }
