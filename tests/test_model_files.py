@@ -95,7 +95,7 @@ def test_structural_corruption(kind):
 
 
 @pytest.mark.parametrize("kind", list(KINDS))
-@pytest.mark.parametrize("version", [0, 2, "1", 1.5, -1, None])
+@pytest.mark.parametrize("version", [0, 3, "1", 1.5, -1, None])
 def test_wrong_version(kind, version):
     def set_version(d):
         d["version"] = version

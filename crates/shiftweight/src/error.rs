@@ -59,6 +59,12 @@ pub enum Error {
     /// A numerical routine failed (singular system, no convergence).
     #[error("numerical failure in {context}: {reason}")]
     Numerical { context: String, reason: String },
+    /// A table has no column of the given name.
+    #[error("`{argument}` has no column named `{column}`")]
+    MissingColumn { argument: String, column: String },
+    /// A table column cannot be used as it is (wrong type, bad value, repeated name, ...).
+    #[error("column `{column}` {reason}")]
+    BadColumn { column: String, reason: String },
     /// A model document is malformed, of another format, or of an unsupported version.
     #[error("model file rejected: {0}")]
     ModelFile(String),

@@ -4,6 +4,8 @@
 //! (the *target*, an unlabelled sample of the inputs it will really see).
 //!
 //! A short tour:
+//! - [`table`]: typed tables (numeric and categorical columns, missing values), their inference
+//!   rules and the one encoding into the matrix the estimators use, stored in the model file.
 //! - [`data`]: validated row-major matrices ([`MatrixView`]) and the pooled [`data::Standardizer`].
 //! - [`ratio`]: importance weights w(x) = p_target(x) / p_source(x). Every estimator implements
 //!   [`RatioEstimator`] and fits into a [`FittedRatio`], which scores any number of rows in bounded
@@ -62,6 +64,7 @@ pub(crate) mod par;
 pub(crate) mod random;
 pub mod ratio;
 pub(crate) mod simd;
+pub mod table;
 pub mod weights;
 
 pub use par::CHUNK_ROWS;
@@ -78,6 +81,7 @@ pub use ratio::{
     ratio_from_probabilities, AutoRatio, ClassifierRatio, EstimatorKind, FittedRatio, KLRatio,
     KernelMeanMatching, KliepCv, LeastSquaresRatio, RatioEstimator,
 };
+pub use table::{Column, ColumnKind, Table, TableEncoding};
 pub use weights::{stabilize, StabilizeOptions, Stabilized};
 
 /// The kernel routines below the estimators, exported for the crate's own benchmarks

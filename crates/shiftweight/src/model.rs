@@ -3,8 +3,12 @@
 //! [`crate::ratio::RATIO_MODEL_FORMAT`].
 //!
 //! ```json
-//! {"format": "shiftweight.ratio-model", "version": 1, "model": { ... }}
+//! {"format": "shiftweight.ratio-model", "version": 2, "model": { ... }}
 //! ```
+//!
+//! Versions are per format. Ratio models are at version 2, which added the typed-table encoding
+//! ([`crate::table::TableEncoding`], optional in the body); version-1 ratio models have no
+//! encoding and still load, scoring exactly as before. Every other format is at version 1.
 //!
 //! Loading checks the format tag and version first and rejects anything else with a clear error,
 //! then checks the internal consistency of the model (shapes, finiteness, feature counts). A model
@@ -16,7 +20,8 @@ use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
-/// The model-file version this library writes and reads.
+/// The model-file version of every format except the ratio model (see
+/// [`crate::ratio::RATIO_MODEL_VERSION`]).
 pub const MODEL_VERSION: u64 = 1;
 /// Largest model document accepted (bytes).
 pub const MAX_MODEL_BYTES: usize = 512 * 1024 * 1024;
@@ -35,11 +40,16 @@ struct EnvelopeIn {
     model: Option<Value>,
 }
 
-/// Serialises any model under a format tag.
+/// Serialises any model under a format tag, at [`MODEL_VERSION`].
 pub fn to_json_tagged<T: Serialize>(format: &str, model: &T) -> Result<String> {
+    to_json_versioned(format, MODEL_VERSION, model)
+}
+
+/// Serialises any model under a format tag and version.
+pub fn to_json_versioned<T: Serialize>(format: &str, version: u64, model: &T) -> Result<String> {
     serde_json::to_string(&EnvelopeOut {
         format,
-        version: MODEL_VERSION,
+        version,
         model,
     })
     .map_err(|e| Error::ModelFile(format!("could not serialise: {e}")))
@@ -47,6 +57,17 @@ pub fn to_json_tagged<T: Serialize>(format: &str, model: &T) -> Result<String> {
 
 /// Parses a document written by [`to_json_tagged`] with the given format tag.
 pub fn from_json_tagged<T: DeserializeOwned>(format: &str, text: &str) -> Result<T> {
+    from_json_versioned(format, &[MODEL_VERSION], text)
+}
+
+/// Parses a document with the given format tag whose version is one of `versions` (the last one
+/// is the newest, named in the error).
+pub fn from_json_versioned<T: DeserializeOwned>(
+    format: &str,
+    versions: &[u64],
+    text: &str,
+) -> Result<T> {
+    let newest = versions.last().copied().unwrap_or(MODEL_VERSION);
     if text.len() > MAX_MODEL_BYTES {
         return Err(Error::ModelFile(format!(
             "document is {} bytes, more than the {MAX_MODEL_BYTES}-byte limit",
@@ -72,10 +93,12 @@ pub fn from_json_tagged<T: DeserializeOwned>(format: &str, text: &str) -> Result
         }
     }
     match env.version {
-        Some(Value::Number(n)) if n.as_u64() == Some(MODEL_VERSION) => {}
+        Some(Value::Number(n)) if n.as_u64().is_some_and(|v| versions.contains(&v)) => {}
         Some(other) => {
+            let list: Vec<String> = versions.iter().map(u64::to_string).collect();
             return Err(Error::ModelFile(format!(
-                "version {other} is not supported; this library reads version {MODEL_VERSION}"
+                "version {other} is not supported; this library reads version {} of \"{format}\" (newest {newest})",
+                list.join(" or ")
             )));
         }
         None => return Err(Error::ModelFile("no \"version\" field".into())),

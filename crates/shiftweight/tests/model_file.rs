@@ -102,7 +102,7 @@ fn truncated_documents_are_refused() {
 fn wrong_format_and_version_are_refused() {
     for (name, doc) in documents() {
         for bad in [
-            json!(2),
+            json!(3),
             json!(0),
             json!("1"),
             json!(1.5),

@@ -49,8 +49,10 @@ const TAG_SUB: u64 = 0x6673_685f_7375_6273;
 pub enum FeatureKind {
     /// Many distinct values: Kolmogorov-Smirnov test.
     Continuous,
-    /// Few distinct values: chi-square test on counts.
+    /// Few distinct values, or a categorical table column: chi-square test on counts.
     Categorical,
+    /// The share of missing values of a table column: two-proportion z-test.
+    MissingRate,
 }
 
 /// One feature's shift summary.
@@ -82,6 +84,67 @@ pub struct FeatureShiftRow {
     pub wasserstein_sd: Option<f64>,
     /// AUC of the classifier minus its AUC with this column permuted.
     pub auc_drop: f64,
+    /// Categorical table columns: total variation distance between the level frequencies of
+    /// the present values, 1/2 sum_l |q_l - p_l|.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub tv_distance: Option<f64>,
+    /// Categorical table columns: the level whose share changed most.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top_level: Option<String>,
+    /// Its share among the present source values.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top_level_source: Option<f64>,
+    /// Its share among the present target values.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top_level_target: Option<f64>,
+    /// Categorical table columns: sparse levels pooled into one cell of the chi-square table.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pooled_levels: Option<usize>,
+    /// Missing-rate rows: share of missing values in the source.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub missing_source: Option<f64>,
+    /// Missing-rate rows: share of missing values in the target.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub missing_target: Option<f64>,
+}
+
+impl FeatureShiftRow {
+    pub(super) fn blank() -> Self {
+        Self {
+            feature: String::new(),
+            index: 0,
+            kind: FeatureKind::Continuous,
+            test: String::new(),
+            statistic: 0.0,
+            p_value: 1.0,
+            p_adjusted: 1.0,
+            ks_mode: None,
+            dof: None,
+            n_distinct: 0,
+            smd: None,
+            wasserstein_sd: None,
+            auc_drop: 0.0,
+            tv_distance: None,
+            top_level: None,
+            top_level_source: None,
+            top_level_target: None,
+            pooled_levels: None,
+            missing_source: None,
+            missing_target: None,
+        }
+    }
+
+    /// The effect size used to order rows of equal p-value: the standardised Wasserstein
+    /// distance, the total variation distance, or the change in missing rate.
+    fn effect(&self) -> f64 {
+        self.wasserstein_sd
+            .or(self.tv_distance)
+            .or(match (self.missing_source, self.missing_target) {
+                (Some(a), Some(b)) => Some((b - a).abs()),
+                _ => None,
+            })
+            .unwrap_or(0.0)
+    }
 }
 
 /// Per-feature shift summaries, most-shifted first.
@@ -186,16 +249,7 @@ impl FeatureShift {
         target: MatrixView,
         names: Option<&[String]>,
     ) -> Result<FeatureShiftTable> {
-        crate::data::check_folds(self.folds)?;
-        if !(self.l2.is_finite() && self.l2 >= 0.0) {
-            return Err(Error::param(
-                "l2",
-                format!("must be finite and >= 0, got {}", self.l2),
-            ));
-        }
-        if self.repeats == 0 {
-            return Err(Error::param("repeats", "must be at least 1"));
-        }
+        self.check()?;
         validate_pair(&source, &target, 2)?;
         let d = source.cols();
         if let Some(nm) = names {
@@ -235,36 +289,18 @@ impl FeatureShift {
             r.p_adjusted = a;
         }
         let mut notes = Vec::new();
-        let (classifier_auc, drops) = self.importance(source, target, &mut notes)?;
+        let groups: Vec<Vec<usize>> = (0..d).map(|j| vec![j]).collect();
+        let (classifier_auc, drops) = self.importance(source, target, &groups, &mut notes)?;
         for r in rows.iter_mut() {
             r.auc_drop = drops[r.index];
         }
-        rows.sort_by(|a, b| {
-            a.p_value
-                .total_cmp(&b.p_value)
-                .then(
-                    b.wasserstein_sd
-                        .unwrap_or(0.0)
-                        .total_cmp(&a.wasserstein_sd.unwrap_or(0.0)),
-                )
-                .then(a.index.cmp(&b.index))
-        });
+        sort_most_shifted(&mut rows);
         if ns.max(nt) > KS_EXACT_MAX_N && rows.iter().any(|r| r.kind == FeatureKind::Continuous) {
             notes.push(format!(
                 "more than {KS_EXACT_MAX_N} rows in a sample: Kolmogorov-Smirnov p-values are asymptotic"
             ));
         }
-        let small: Vec<&str> = rows
-            .iter()
-            .filter(|r| small_expected.get(&r.index).is_some_and(|e| *e < 5.0))
-            .map(|r| r.feature.as_str())
-            .collect();
-        if !small.is_empty() {
-            notes.push(format!(
-                "expected counts below 5 in the chi-square tables of {small:?}: their p-values are rough \
-                 (common practice: merge rare categories)"
-            ));
-        }
+        small_expected_note(&rows, &small_expected, &mut notes);
         Ok(FeatureShiftTable {
             rows,
             classifier_auc,
@@ -275,6 +311,21 @@ impl FeatureShift {
         })
     }
 
+    /// Checks the options.
+    pub(super) fn check(&self) -> Result<()> {
+        crate::data::check_folds(self.folds)?;
+        if !(self.l2.is_finite() && self.l2 >= 0.0) {
+            return Err(Error::param(
+                "l2",
+                format!("must be finite and >= 0, got {}", self.l2),
+            ));
+        }
+        if self.repeats == 0 {
+            return Err(Error::param("repeats", "must be at least 1"));
+        }
+        Ok(())
+    }
+
     fn column(
         &self,
         source: MatrixView,
@@ -282,8 +333,20 @@ impl FeatureShift {
         j: usize,
         name: String,
     ) -> Result<(FeatureShiftRow, Option<f64>)> {
-        let mut a: Vec<f64> = (0..source.rows()).map(|i| source.row(i)[j]).collect();
-        let mut b: Vec<f64> = (0..target.rows()).map(|i| target.row(i)[j]).collect();
+        let a: Vec<f64> = (0..source.rows()).map(|i| source.row(i)[j]).collect();
+        let b: Vec<f64> = (0..target.rows()).map(|i| target.row(i)[j]).collect();
+        self.numeric_row(a, b, j, name)
+    }
+
+    /// The test and effect sizes of one numeric column from its values in each sample (no
+    /// missing values), as described in the module documentation.
+    pub(super) fn numeric_row(
+        &self,
+        mut a: Vec<f64>,
+        mut b: Vec<f64>,
+        j: usize,
+        name: String,
+    ) -> Result<(FeatureShiftRow, Option<f64>)> {
         a.sort_unstable_by(f64::total_cmp);
         b.sort_unstable_by(f64::total_cmp);
         // Distinct pooled values and their counts in each sample.
@@ -332,6 +395,7 @@ impl FeatureShift {
             smd,
             wasserstein_sd,
             auc_drop: 0.0,
+            ..FeatureShiftRow::blank()
         };
         if categorical {
             let c = chi_square_two_rows(&values_a, &values_b)?;
@@ -368,12 +432,14 @@ impl FeatureShift {
         }
     }
 
-    /// Out-of-fold AUC of the linear classifier and, per column, the mean AUC drop when that
-    /// column is permuted within each fold.
-    fn importance(
+    /// Out-of-fold AUC of the linear classifier and, per group of columns, the mean AUC drop
+    /// when the columns of that group are permuted together (one permutation of the rows) within
+    /// each fold.
+    pub(super) fn importance(
         &self,
         source: MatrixView,
         target: MatrixView,
+        groups: &[Vec<usize>],
         notes: &mut Vec<String>,
     ) -> Result<(f64, Vec<f64>)> {
         let (z_all, y_all) = pooled_standardized(source, target);
@@ -398,7 +464,6 @@ impl FeatureShift {
             (z_all, y_all)
         };
         let n = z.rows();
-        let d = z.cols();
         if n < self.folds {
             return Err(Error::TooFewRows {
                 argument: "source and target together".into(),
@@ -429,11 +494,12 @@ impl FeatureShift {
             .map(|f| (0..n).filter(|&i| fold[i] == f).collect())
             .collect();
         let zv = z.view();
-        let drops: Vec<Result<f64>> = (0..d)
-            .into_par_iter()
-            .map(|j| {
+        let drops: Vec<Result<f64>> = groups
+            .par_iter()
+            .enumerate()
+            .map(|(g, cols)| {
                 let mut r =
-                    rng(self.seed ^ TAG_PERM ^ (j as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15));
+                    rng(self.seed ^ TAG_PERM ^ (g as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15));
                 let mut total = 0.0;
                 for _ in 0..self.repeats {
                     let mut s = scores.clone();
@@ -442,7 +508,9 @@ impl FeatureShift {
                         let mut perm = rows.clone();
                         perm.shuffle(&mut r);
                         for (&i, &p) in rows.iter().zip(&perm) {
-                            s[i] += m.coef[j] * (zv.row(p)[j] - zv.row(i)[j]);
+                            for &j in cols {
+                                s[i] += m.coef[j] * (zv.row(p)[j] - zv.row(i)[j]);
+                            }
                         }
                     }
                     let (pp, nn) = split(&s);
@@ -453,6 +521,39 @@ impl FeatureShift {
             .collect();
         Ok((base, drops.into_iter().collect::<Result<Vec<f64>>>()?))
     }
+}
+
+/// The note on chi-square tables with expected counts below 5 (common practice: the
+/// approximation is rough there).
+pub(super) fn small_expected_note(
+    rows: &[FeatureShiftRow],
+    small_expected: &std::collections::BTreeMap<usize, f64>,
+    notes: &mut Vec<String>,
+) {
+    let small: Vec<&str> = rows
+        .iter()
+        .filter(|r| r.kind == FeatureKind::Categorical)
+        .filter(|r| small_expected.get(&r.index).is_some_and(|e| *e < 5.0))
+        .map(|r| r.feature.as_str())
+        .collect();
+    if !small.is_empty() {
+        notes.push(format!(
+            "expected counts below 5 in the chi-square tables of {small:?}: their p-values are rough \
+             (common practice: merge rare categories)"
+        ));
+    }
+}
+
+/// Sorts rows most-shifted first: by raw p-value, ties broken by the larger effect size, then
+/// by column index and kind.
+pub(super) fn sort_most_shifted(rows: &mut [FeatureShiftRow]) {
+    rows.sort_by(|a, b| {
+        a.p_value
+            .total_cmp(&b.p_value)
+            .then(b.effect().total_cmp(&a.effect()))
+            .then(a.index.cmp(&b.index))
+            .then((a.kind == FeatureKind::MissingRate).cmp(&(b.kind == FeatureKind::MissingRate)))
+    });
 }
 
 #[cfg(test)]

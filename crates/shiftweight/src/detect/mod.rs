@@ -27,6 +27,7 @@ mod features;
 mod kolmogorov;
 mod mmd;
 mod stats;
+mod typed;
 
 pub use classifier::ClassifierShiftTest;
 pub use features::{FeatureKind, FeatureShift, FeatureShiftRow, FeatureShiftTable};
@@ -37,6 +38,7 @@ pub use stats::{
     mann_whitney_greater, standardized_mean_difference, wasserstein1, AucSummary, ChiSquareResult,
     KsMode, KsResult,
 };
+pub use typed::{two_proportion_test, TwoProportions};
 
 use crate::error::Result;
 use crate::model;

@@ -32,9 +32,37 @@ pub struct OverlapReport {
     pub source: String,
     /// Plain-language findings and the standing caution.
     pub warnings: Vec<String>,
+    /// Values of the target that the source never has (from typed tables; see
+    /// [`OverlapReport::with_support_gaps`]).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub support_gaps: Vec<crate::table::SupportGap>,
+    /// Target rows with at least one such value.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub n_outside_support: usize,
+}
+
+fn is_zero(n: &usize) -> bool {
+    *n == 0
 }
 
 impl OverlapReport {
+    /// Adds the support gaps of typed tables ([`crate::table::support_gaps`]) and the number of
+    /// target rows they touch ([`crate::table::rows_with_gaps`]): one warning per gap, placed
+    /// before the standing caution, and `flagged` is also set when the share of those rows
+    /// exceeds the tolerance.
+    pub fn with_support_gaps(mut self, gaps: Vec<crate::table::SupportGap>, rows: usize) -> Self {
+        let at = self.warnings.len().saturating_sub(1);
+        for (k, g) in gaps.iter().enumerate() {
+            self.warnings.insert(at + k, g.describe(self.n_target));
+        }
+        if rows as f64 / self.n_target as f64 > self.tolerance {
+            self.flagged = true;
+        }
+        self.support_gaps = gaps;
+        self.n_outside_support = rows;
+        self
+    }
+
     /// The JSON document (format `shiftweight.overlap-report`).
     pub fn to_json(&self) -> Result<String> {
         model::to_json_tagged(OVERLAP_FORMAT, self)
@@ -180,5 +208,7 @@ pub(super) fn overlap_report(
         flagged,
         source: source.into(),
         warnings,
+        support_gaps: Vec::new(),
+        n_outside_support: 0,
     }
 }

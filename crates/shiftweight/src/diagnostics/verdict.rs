@@ -108,9 +108,27 @@ pub struct Diagnosis {
     pub warnings: Vec<String>,
     /// Per-group effective sample sizes (empty unless groups were given).
     pub groups: Vec<GroupEss>,
+    /// Values of the target that the source never has (from typed tables; see
+    /// [`Diagnosis::with_support_gaps`]).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub support_gaps: Vec<crate::table::SupportGap>,
 }
 
 impl Diagnosis {
+    /// Adds the support gaps of typed tables ([`crate::table::support_gaps`]) for a target of
+    /// `n_target` rows: one warning per gap, first among the warnings, since no weighting of the
+    /// source rows can cover target rows with a value the source never has.
+    pub fn with_support_gaps(
+        mut self,
+        gaps: Vec<crate::table::SupportGap>,
+        n_target: usize,
+    ) -> Self {
+        let mut w: Vec<String> = gaps.iter().map(|g| g.describe(n_target)).collect();
+        w.append(&mut self.warnings);
+        self.warnings = w;
+        self.support_gaps = gaps;
+        self
+    }
     /// The JSON document (format `shiftweight.weight-diagnosis`).
     pub fn to_json(&self) -> Result<String> {
         model::to_json_tagged(DIAGNOSIS_FORMAT, self)
@@ -264,6 +282,7 @@ pub fn diagnose(w: &[f64], groups: Option<Groups>) -> Result<Diagnosis> {
         n_zero,
         warnings: Vec::new(),
         groups: group_rows,
+        support_gaps: Vec::new(),
     };
     d.warnings = warnings_for(&d);
     Ok(d)

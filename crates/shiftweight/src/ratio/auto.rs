@@ -75,6 +75,7 @@ impl RatioEstimator for UniformRatio {
             },
             meta: fit_meta(&source, &target, 0),
             warnings,
+            encoding: None,
         })
     }
 }

@@ -649,6 +649,7 @@ impl RatioEstimator for KernelMeanMatching {
             },
             meta: fit_meta(&source, &target, self.seed),
             warnings,
+            encoding: None,
         })
     }
 }

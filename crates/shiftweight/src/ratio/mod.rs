@@ -16,6 +16,7 @@ use crate::data::{Matrix, MatrixView, Standardizer};
 use crate::error::{Error, Result};
 use crate::kernel;
 use crate::par::CHUNK_ROWS;
+use crate::table::{Table, TableEncoding, UnseenValues};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
@@ -30,6 +31,35 @@ pub use lsif::LeastSquaresRatio;
 pub trait RatioEstimator {
     /// Fits on `source` (rows the model is trained on) and `target` (rows it will be used on).
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio>;
+
+    /// Fits on typed tables: the [`TableEncoding`] is fitted on the pooled rows of `source` and
+    /// `target` (see [`crate::table`]), both are encoded, the estimator is fitted on the encoded
+    /// matrices, and the encoding is stored in the fitted model (which then scores tables by
+    /// column name with [`FittedRatio::ratio_table`]). The encoded column names become the
+    /// model's feature names.
+    fn fit_table(&self, source: &Table, target: &Table) -> Result<FittedRatio> {
+        let (encoding, s, t, mut warnings) = crate::table::encode_pair(source, target)?;
+        let mut model = self.fit(s.view(), t.view())?;
+        model.meta.feature_names = Some(encoding.feature_names());
+        warnings.append(&mut model.warnings);
+        model.warnings = warnings;
+        model.encoding = Some(encoding);
+        Ok(model)
+    }
+}
+
+/// Rows encoded at a time by [`FittedRatio::ratio_table`], so that memory stays flat in the
+/// number of rows.
+const TABLE_BLOCK_ROWS: usize = 32 * CHUNK_ROWS;
+
+/// The ratio at the rows of a typed table, and the values the model never saw.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TableScores {
+    /// w(x) at every row, in row order.
+    pub weights: Vec<f64>,
+    /// Values of the table that never occurred in the rows the model was fitted on (see
+    /// [`crate::table::TableEncoding`]), per column and level; their rows are scored anyway.
+    pub unseen: Vec<UnseenValues>,
 }
 
 /// Rows per cache-sized block when scoring (kernel values of one block stay in L2).
@@ -235,22 +265,118 @@ pub struct FittedRatio {
     /// Plain-language warnings raised during the fit (e.g. constant columns).
     #[serde(default)]
     pub warnings: Vec<String>,
+    /// The typed-table encoding when the model was fitted on tables ([`RatioEstimator::fit_table`]);
+    /// absent for models fitted on matrices (and in every version-1 model file).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub encoding: Option<TableEncoding>,
 }
 
 /// Format tag of ratio-model files (inside the envelope of [`crate::model`]).
 pub const RATIO_MODEL_FORMAT: &str = "shiftweight.ratio-model";
+/// Version of the ratio-model files this library writes (2: adds the optional table encoding).
+pub const RATIO_MODEL_VERSION: u64 = 2;
+/// Versions of ratio-model files this library reads.
+pub const RATIO_MODEL_VERSIONS_READ: [u64; 2] = [1, 2];
 
 impl FittedRatio {
-    /// The model file document (see [`crate::model`]).
+    /// The model file document (see [`crate::model`]), at [`RATIO_MODEL_VERSION`].
     pub fn to_json(&self) -> Result<String> {
-        crate::model::to_json_tagged(RATIO_MODEL_FORMAT, self)
+        crate::model::to_json_versioned(RATIO_MODEL_FORMAT, RATIO_MODEL_VERSION, self)
     }
 
-    /// Loads a model file document, rejecting other formats, versions and inconsistent models.
+    /// Loads a model file document of any version in [`RATIO_MODEL_VERSIONS_READ`], rejecting
+    /// other formats, versions and inconsistent models.
     pub fn from_json(text: &str) -> Result<Self> {
-        let m: FittedRatio = crate::model::from_json_tagged(RATIO_MODEL_FORMAT, text)?;
+        let m: FittedRatio = crate::model::from_json_versioned(
+            RATIO_MODEL_FORMAT,
+            &RATIO_MODEL_VERSIONS_READ,
+            text,
+        )?;
         m.check()?;
         Ok(m)
+    }
+
+    /// The ratio at every row of a typed table, with the counts of values the model never saw.
+    ///
+    /// A model fitted on tables finds its columns by name (any order; extra columns ignored; a
+    /// missing column is an error naming it) and encodes them with its stored encoding; rows
+    /// with a level or a missing value never seen when fitting are scored as the encoding
+    /// documents and counted in [`TableScores::unseen`]. A model fitted on a matrix takes the
+    /// columns named by its feature names (or, without names, the table's columns in order),
+    /// which must be numeric without missing values. Rows are encoded in blocks, so memory beyond
+    /// the output is flat in the number of rows.
+    pub fn ratio_table(&self, table: &Table) -> Result<TableScores> {
+        let n = table.rows();
+        let mut weights = vec![0.0; n];
+        let mut unseen: Vec<UnseenValues> = Vec::new();
+        match &self.encoding {
+            Some(enc) => {
+                let mut start = 0;
+                while start < n {
+                    let end = (start + TABLE_BLOCK_ROWS).min(n);
+                    let e = enc.encode_rows(table, "X", start, end)?;
+                    self.ratio_into(e.matrix.view(), &mut weights[start..end])?;
+                    for u in e.unseen {
+                        match unseen
+                            .iter_mut()
+                            .find(|v| v.column == u.column && v.level == u.level)
+                        {
+                            Some(v) => v.rows += u.rows,
+                            None => unseen.push(UnseenValues {
+                                first_row: u.first_row + start,
+                                ..u
+                            }),
+                        }
+                    }
+                    start = end;
+                }
+            }
+            None => {
+                let d = self.n_features();
+                let columns: Vec<&crate::table::Column> = match &self.meta.feature_names {
+                    Some(names) => names
+                        .iter()
+                        .map(|nm| {
+                            table.column(nm).ok_or_else(|| Error::MissingColumn {
+                                argument: "X".into(),
+                                column: nm.clone(),
+                            })
+                        })
+                        .collect::<Result<_>>()?,
+                    None => {
+                        if table.n_columns() != d {
+                            return Err(Error::FeatureCountMismatch {
+                                argument: "X".into(),
+                                expected: d,
+                                found: table.n_columns(),
+                            });
+                        }
+                        table.columns().iter().collect()
+                    }
+                };
+                let mut x = vec![0.0; n * d];
+                for (j, c) in columns.iter().enumerate() {
+                    match c.data() {
+                        crate::table::ColumnData::Numeric(v) => {
+                            for (i, val) in v.iter().enumerate() {
+                                x[i * d + j] = *val;
+                            }
+                        }
+                        crate::table::ColumnData::Categorical { .. } => {
+                            return Err(Error::BadColumn {
+                                column: c.name().to_string(),
+                                reason:
+                                    "is categorical, but this model was fitted on a numeric matrix \
+                                         without a table encoding; refit it on a table"
+                                        .into(),
+                            })
+                        }
+                    }
+                }
+                self.ratio_into(MatrixView::named(&x, n, d, "X")?, &mut weights)?;
+            }
+        }
+        Ok(TableScores { weights, unseen })
     }
 
     /// Number of features the model expects.
@@ -504,6 +630,22 @@ impl FittedRatio {
                 }
             }
             RatioForm::SourceOnly | RatioForm::Uniform => {}
+        }
+        if let Some(enc) = &self.encoding {
+            enc.check()?;
+            if enc.width() != d {
+                return Err(Error::ModelFile(format!(
+                    "the table encoding gives {} columns but the model has {d} features",
+                    enc.width()
+                )));
+            }
+            if let Some(names) = &self.meta.feature_names {
+                if *names != enc.feature_names() {
+                    return Err(Error::ModelFile(
+                        "feature names differ from the table encoding's column names".into(),
+                    ));
+                }
+            }
         }
         if let (Some(c), false) = (&self.selection.candidate, self.selection.labels.is_empty()) {
             if !self.selection.labels.contains(c) {

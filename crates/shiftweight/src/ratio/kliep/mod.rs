@@ -458,6 +458,7 @@ impl RatioEstimator for KLRatio {
             },
             meta: fit_meta(&source, &target, self.seed),
             warnings,
+            encoding: None,
         };
         fitted.source_weights = fitted.ratio(source)?;
         Ok(fitted)
