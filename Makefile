@@ -1,6 +1,6 @@
 # One task runner. `make test` is the README's test command and what CI runs: on a fresh machine it
 # creates the Python virtual environment, installs the test dependencies, builds the extension
-# once, then runs the Rust and Python test suites.
+# once, runs the lints (Rust formatting and clippy, ruff, mypy), then the Rust and Python test suites.
 VENV ?= .venv
 PY := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
@@ -8,7 +8,7 @@ export PATH := $(abspath $(VENV))/bin:$(PATH)
 
 .PHONY: test test-rust test-python develop develop-release venv lint fmt bench compare compare-quick demo clean
 
-test: test-rust test-python
+test: lint test-rust test-python
 
 $(PY):
 	python3 -m venv $(VENV)
@@ -29,9 +29,12 @@ test-python: develop
 	$(PY) -m mypy.stubtest shiftweight._native --allowlist stubtest-allowlist.txt
 	$(PY) -m pytest
 
-lint:
+# ruff and mypy come with the test extras (installed by `develop`); their settings are in pyproject.toml.
+lint: develop
 	cargo fmt --all --check
 	cargo clippy --workspace --all-targets -- -D warnings
+	$(VENV)/bin/ruff check python tests
+	$(VENV)/bin/mypy
 
 fmt:
 	cargo fmt --all

@@ -34,7 +34,9 @@ def gaussian_mean_shift(n, seed, d=5, shift=0.5):
     t = rng.normal(0.0, 1.0, (n, d)) + mu
     e = rng.normal(0.0, 1.0, (2000, d))
     # reference: scipy.stats.multivariate_normal.logpdf (analytic Gaussian ratio)
-    logw = stats.multivariate_normal.logpdf(e, mu, np.eye(d)) - stats.multivariate_normal.logpdf(e, np.zeros(d), np.eye(d))
+    logw = stats.multivariate_normal.logpdf(e, mu, np.eye(d)) - stats.multivariate_normal.logpdf(
+        e, np.zeros(d), np.eye(d)
+    )
     return s, t, e, np.exp(logw)
 
 

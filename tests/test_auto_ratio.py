@@ -2,16 +2,12 @@
 
 import json
 import pickle
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 
 import shiftweight as sw
-
-sys.path.insert(0, str(Path(__file__).parent))
-from _shift_cases import breast_cancer_selection, gaussian_1d, gaussian_mean_shift, nmse  # noqa: E402
+from _shift_cases import breast_cancer_selection, gaussian_1d, gaussian_mean_shift, nmse
 
 # A "small factor" for how far the automatic choice may be from the best candidate in hindsight
 # (our choice, fixed before running: the criterion is estimated from few folds of small samples).
@@ -48,7 +44,7 @@ def test_gaussian_choice_is_within_a_small_factor_of_the_best():
     # reference: analytic ratio of N(2, 0.25^2) over N(1, 0.5^2) (scipy.stats.norm.pdf; toy from
     # the covariate-shift literature, from memory).
     s, t, e, truth = gaussian_1d(400, 21)
-    auto, errors = _check_choice_close_to_best(s, t, e, truth)
+    auto, _errors = _check_choice_close_to_best(s, t, e, truth)
     assert auto.chosen_ != "uniform"
     rows = {r["name"]: r for r in auto.scores_}
     # The guard, recomputed from the table: nothing with k >= 1 was chosen, and every row marked
@@ -73,7 +69,7 @@ def test_gaussian_choice_beats_uniform_weights_on_ten_samples():
 def test_gaussian_5d_mean_shift_choice_is_within_a_small_factor_of_the_best():
     # reference: analytic ratio of N(mu, I_5) over N(0, I_5) (scipy.stats.multivariate_normal).
     s, t, e, truth = gaussian_mean_shift(400, 22)
-    auto, errors = _check_choice_close_to_best(s, t, e, truth)
+    auto, _errors = _check_choice_close_to_best(s, t, e, truth)
     assert auto.chosen_ != "uniform"
 
 
@@ -114,7 +110,14 @@ def test_same_distribution_gives_uniform_weights_with_a_plain_message():
     np.testing.assert_array_equal(auto.ratio(s[:5]), np.ones(5))
     assert any("no candidate estimator beat uniform" in w for w in auto.warnings_)
     names = [row["name"] for row in auto.scores_]
-    assert names == ["uniform", "ulsif", "rulsif_alpha_0.1", "classifier_linear", "classifier_quadratic", "classifier_fourier"]
+    assert names == [
+        "uniform",
+        "ulsif",
+        "rulsif_alpha_0.1",
+        "classifier_linear",
+        "classifier_quadratic",
+        "classifier_fourier",
+    ]
     assert auto.chosen_estimator_ is None
 
 
@@ -134,7 +137,7 @@ def test_score_table_and_round_trips():
         assert other.chosen_ == auto.chosen_ and other.scores_ == auto.scores_
         np.testing.assert_array_equal(other.ratio(e), auto.ratio(e))
     table = auto.score_table()
-    assert list(table["name"])[0] == auto.chosen_
+    assert next(iter(table["name"])) == auto.chosen_
     doc = json.loads(auto.to_json())
     doc["model"]["selection"]["candidate"] = "no-such-candidate"
     with pytest.raises(sw.ModelFileError, match="candidate"):

@@ -2,17 +2,13 @@
 
 import json
 import pickle
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import stats
 
 import shiftweight as sw
-
-sys.path.insert(0, str(Path(__file__).parent))
-from _shift_cases import breast_cancer_selection, gaussian_1d, gaussian_mean_shift, nmse  # noqa: E402
+from _shift_cases import breast_cancer_selection, gaussian_1d, gaussian_mean_shift, nmse
 
 
 def _mean_nmse(make_case, est, n, seeds=(1, 2, 3)):

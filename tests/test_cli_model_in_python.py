@@ -1,21 +1,10 @@
 """A model file written by the `shiftweight` command loads in Python and gives the same ratios."""
 
-import pathlib
 import subprocess
 
 import numpy as np
-import pytest
 
 import shiftweight as sw
-
-ROOT = pathlib.Path(__file__).resolve().parents[1]
-
-
-@pytest.fixture(scope="module")
-def cli():
-    # `make test` builds the binary in the Rust step; this is a no-op then.
-    subprocess.run(["cargo", "build", "-q", "-p", "shiftweight-cli"], cwd=ROOT, check=True)
-    return ROOT / "target" / "debug" / "shiftweight"
 
 
 def _write(path, names, x):
@@ -27,7 +16,8 @@ def test_cli_model_file_scores_like_the_cli_and_the_library(cli, tmp_path):
     names = d["feature_names"]
     _write(tmp_path / "s.csv", names, d["source"])
     _write(tmp_path / "t.csv", names, d["target"])
-    run = lambda *a: subprocess.run([str(cli), *a], cwd=tmp_path, capture_output=True, text=True)
+    def run(*a):
+        return subprocess.run([str(cli), *a], cwd=tmp_path, capture_output=True, text=True)
     r = run("weigh", "--source", "s.csv", "--target", "t.csv", "--estimator", "lsif",
             "--out", "w.csv", "--model", "m.json")
     assert r.returncode == 0, r.stderr

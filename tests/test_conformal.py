@@ -2,8 +2,6 @@
 misspecified-regression toy, and agreement with ordinary split conformal under equal weights."""
 
 import math
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -13,9 +11,7 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
 import shiftweight as sw
-
-sys.path.insert(0, str(Path(__file__).parent))
-from _shift_cases import sinc_regression_toy as toy  # noqa: E402
+from _shift_cases import sinc_regression_toy as toy
 
 # The toy set-up of the covariate-shift literature (from memory): a straight line fitted to the
 # curved function sinc(x), source inputs N(1, 0.5^2), target inputs N(2, 0.25^2).
@@ -70,7 +66,9 @@ def test_equal_weights_equal_ordinary_split_conformal(n, alpha):
 def test_heavy_weight_gives_an_honest_infinite_interval():
     xs, ys, ws, _, _, _ = toy(3, n_source=200)
     model = sw.WeightedRidge().fit(xs[:100], ys[:100])
-    r = sw.conformal_intervals(model, xs[100:], ys[100:], ws[100:], np.array([[2.0], [1.0]]), np.array([1e6, 1.0]), alpha=0.1)
+    r = sw.conformal_intervals(
+        model, xs[100:], ys[100:], ws[100:], np.array([[2.0], [1.0]]), np.array([1e6, 1.0]), alpha=0.1
+    )
     assert r.n_infinite == 1 and np.isinf(r.upper[0]) and np.isfinite(r.upper[1])
     assert "infinite" in repr(r)
     with pytest.raises(sw.ShiftweightError, match="neither"):

@@ -7,7 +7,7 @@ import pickle
 import numpy as np
 import pytest
 from scipy import stats
-from scipy.spatial.distance import pdist, cdist
+from scipy.spatial.distance import cdist, pdist
 
 import shiftweight as sw
 from shiftweight import _native
@@ -112,7 +112,9 @@ def test_ks_asymptotic_mode_matches_scipy_asymp():
         assert p == pytest.approx(ref.pvalue, rel=1e-9, abs=1e-300)
 
 
-@pytest.mark.parametrize("n1,n2,shift", [(8, 5, 1.0), (30, 45, 0.5), (7, 3_000, 0.8), (400, 350, 0.3), (2_000, 900, 2.0)])
+@pytest.mark.parametrize(
+    "n1,n2,shift", [(8, 5, 1.0), (30, 45, 0.5), (7, 3_000, 0.8), (400, 350, 0.3), (2_000, 900, 2.0)]
+)
 def test_ks_asymptotic_mode_small_effective_n_matches_scipy(n1, n2, shift):
     rng = np.random.default_rng(n1 + n2)
     a = rng.normal(0, 1, n1)
@@ -131,7 +133,7 @@ def test_auc_equals_mann_whitney_u_over_n1n2():
     rng = np.random.default_rng(7)
     pos = np.round(rng.normal(0.5, 1, 83), 1)  # rounding creates ties
     neg = np.round(rng.normal(0.0, 1, 61), 1)
-    auc, u, se, lo, hi = _native.auc_summary(pos, neg)
+    auc, u, _se, lo, hi = _native.auc_summary(pos, neg)
     ref = stats.mannwhitneyu(pos, neg)  # reference: scipy.stats.mannwhitneyu
     assert u == pytest.approx(ref.statistic, abs=1e-9)
     assert auc == pytest.approx(ref.statistic / (83 * 61), abs=1e-12)
@@ -189,8 +191,23 @@ def test_chi_square_matches_scipy(table):
 # ---------------------------------------------------------------- Benjamini-Hochberg
 
 # The fifteen p-values of the worked example of Benjamini & Hochberg (1995, section 4; from memory).
-BH_EXAMPLE = [0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459, 0.3240, 0.4262,
-              0.5719, 0.6528, 0.7590, 1.0000]
+BH_EXAMPLE = [
+    0.0001,
+    0.0004,
+    0.0019,
+    0.0095,
+    0.0201,
+    0.0278,
+    0.0298,
+    0.0344,
+    0.0459,
+    0.3240,
+    0.4262,
+    0.5719,
+    0.6528,
+    0.7590,
+    1.0000,
+]
 
 
 def test_bh_hand_worked_example():
@@ -199,8 +216,23 @@ def test_bh_hand_worked_example():
     # running minimum from the largest p down.
     m = 15
     raw = [m * p / (k + 1) for k, p in enumerate(BH_EXAMPLE)]
-    by_hand = [0.0015, 0.003, 0.0095, 0.035625, 0.0603, raw[6], raw[6], 0.0645, 0.0765, 0.486,
-               raw[10], raw[11], raw[12], raw[13], 1.0]
+    by_hand = [
+        0.0015,
+        0.003,
+        0.0095,
+        0.035625,
+        0.0603,
+        raw[6],
+        raw[6],
+        0.0645,
+        0.0765,
+        0.486,
+        raw[10],
+        raw[11],
+        raw[12],
+        raw[13],
+        1.0,
+    ]
     np.testing.assert_allclose(adj, by_hand, rtol=1e-12)
     assert int((adj <= 0.05).sum()) == 4  # the paper rejects four hypotheses at q = 0.05
 
@@ -231,8 +263,7 @@ def test_mmd2_equals_direct_numpy_formula():
     k = np.exp(-cdist(z, z, "sqeuclidean") / (2 * 1.3**2))
     m, n = 9, 6
     kxx, kyy, kxy = k[:m, :m], k[m:, m:], k[:m, m:]
-    direct = ((kxx.sum() - np.trace(kxx)) / (m * (m - 1)) + (kyy.sum() - np.trace(kyy)) / (n * (n - 1))
-              - 2 * kxy.mean())
+    direct = (kxx.sum() - np.trace(kxx)) / (m * (m - 1)) + (kyy.sum() - np.trace(kyy)) / (n * (n - 1)) - 2 * kxy.mean()
     assert res.mmd2 == pytest.approx(direct, rel=1e-10)
     assert res.statistic == res.mmd2
     assert res.estimator == "quadratic"
@@ -288,8 +319,9 @@ def test_half_sd_shift_in_one_of_five_features_is_found():
         for method in ("classifier", "mmd"):
             found[method] += sw.shift_test(src, tgt, method=method, permutations=39, seed=r).p_value <= 0.05
         # The block MMD estimator (20 blocks of 50 rows) keeps its power here too.
-        found["mmd_block"] += sw.shift_test(src, tgt, method="mmd", max_kernel_rows=0, permutations=39,
-                                            seed=r).p_value <= 0.05
+        found["mmd_block"] += (
+            sw.shift_test(src, tgt, method="mmd", max_kernel_rows=0, permutations=39, seed=r).p_value <= 0.05
+        )
         table = sw.feature_shift(src, tgt, seed=r, repeats=2)
         assert table.features[0] == "2"
         assert table[0]["auc_drop"] == max(row["auc_drop"] for row in table.rows)
@@ -303,16 +335,20 @@ def test_feature_shift_rows_agree_with_scipy_and_numpy():
     pd = pytest.importorskip("pandas")
     rng = np.random.default_rng(12)
     n_s, n_t = 150, 120
-    src = pd.DataFrame({
-        "temperature": rng.normal(12, 4, n_s),
-        "heating": (rng.uniform(size=n_s) < 0.3).astype(float),
-        "occupants": rng.integers(1, 6, n_s).astype(float),
-    })
-    tgt = pd.DataFrame({
-        "temperature": rng.normal(8, 4, n_t),
-        "heating": (rng.uniform(size=n_t) < 0.6).astype(float),
-        "occupants": rng.integers(1, 6, n_t).astype(float),
-    })
+    src = pd.DataFrame(
+        {
+            "temperature": rng.normal(12, 4, n_s),
+            "heating": (rng.uniform(size=n_s) < 0.3).astype(float),
+            "occupants": rng.integers(1, 6, n_s).astype(float),
+        }
+    )
+    tgt = pd.DataFrame(
+        {
+            "temperature": rng.normal(8, 4, n_t),
+            "heating": (rng.uniform(size=n_t) < 0.6).astype(float),
+            "occupants": rng.integers(1, 6, n_t).astype(float),
+        }
+    )
     table = sw.feature_shift(src, tgt)
     frame = table.to_pandas()
     assert list(frame["feature"])[:2] == ["temperature", "heating"]

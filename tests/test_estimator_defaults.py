@@ -4,7 +4,6 @@ difference, naming the parameter."""
 
 import ast
 import inspect
-import os
 import pathlib
 import re
 import subprocess
@@ -67,11 +66,8 @@ def test_the_stub_carries_no_estimator_defaults():
 
 
 @pytest.fixture(scope="module")
-def cli_help():
-    # `make test` builds the binary in the Rust step; this is a no-op then.
-    subprocess.run(["cargo", "build", "-q", "-p", "shiftweight-cli"], cwd=ROOT, check=True)
-    exe = pathlib.Path(os.environ.get("CARGO_TARGET_DIR", ROOT / "target")) / "debug" / "shiftweight"
-    out = subprocess.run([str(exe), "weigh", "--help"], capture_output=True, text=True, check=True)
+def cli_help(cli):
+    out = subprocess.run([str(cli), "weigh", "--help"], capture_output=True, text=True, check=True)
     return out.stdout
 
 

@@ -13,7 +13,6 @@ Sizes are tiny so the whole file runs in seconds.
 
 from __future__ import annotations
 
-import json
 import warnings
 
 import numpy as np
@@ -129,7 +128,9 @@ ESTIMATORS = {
     "kliep": lambda: sw.KLRatio(n_basis=6, folds=2, sigma_multiples=(0.5, 1.0)),
     "kmm": lambda: sw.KernelMeanMatching(),
     "classifier": lambda: sw.ClassifierRatio(folds=2),
-    "classifier_fourier": lambda: sw.ClassifierRatio(folds=2, features="fourier", n_fourier=8, l2=None, l2_grid=(0.1, 1.0)),
+    "classifier_fourier": lambda: sw.ClassifierRatio(
+        folds=2, features="fourier", n_fourier=8, l2=None, l2_grid=(0.1, 1.0)
+    ),
     "auto": lambda: sw.AutoRatio(folds=2),
 }
 
@@ -202,7 +203,11 @@ HYPERPARAMETERS = [
     ("classifier_more_folds_than_rows", lambda: sw.ClassifierRatio(l2=None, folds=100), ("folds", "source")),
     ("classifier_bad_features", lambda: sw.ClassifierRatio(features="cubic"), "features"),
     ("classifier_zero_fourier", lambda: sw.ClassifierRatio(features="fourier", n_fourier=0), "n_fourier"),
-    ("classifier_negative_fourier_sigma", lambda: sw.ClassifierRatio(features="fourier", fourier_sigma=-1.0), "fourier_sigma"),
+    (
+        "classifier_negative_fourier_sigma",
+        lambda: sw.ClassifierRatio(features="fourier", fourier_sigma=-1.0),
+        "fourier_sigma",
+    ),
     ("auto_zero_folds", lambda: sw.AutoRatio(folds=0), "folds"),
     ("auto_more_folds_than_rows", lambda: sw.AutoRatio(folds=100), ("folds", "source")),
     ("auto_negative_margin", lambda: sw.AutoRatio(se_margin=-1.0), "se_margin"),
@@ -231,7 +236,7 @@ SCORING_ROWS = [
     ("three_d", T.reshape(12, 2, 1), ("err", "X")),
 ]
 
-_FITTED = {}
+_FITTED: dict = {}
 
 
 def fitted(est_name):
@@ -299,7 +304,7 @@ DETECTION_PARAMS = [
 ]
 
 
-@pytest.mark.parametrize("case", DETECTION_PARAMS, ids=lambda c: f"{c[0]}-{c[2]}-{list(c[1].values())[0]}")
+@pytest.mark.parametrize("case", DETECTION_PARAMS, ids=lambda c: f"{c[0]}-{c[2]}-{next(iter(c[1].values()))}")
 def test_detection_parameters(case):
     det, kw, name = case
     kw = dict(kw)
@@ -385,8 +390,16 @@ WEIGHT_PARAMS = [
     ("clip_for_ess_above_one", lambda: sw.clip_for_ess(W, 1.5), "ess_fraction"),
     ("overlap_negative_limit", lambda: sw.check_overlap(W, limit=-1.0), "limit"),
     ("overlap_tolerance_above_one", lambda: sw.check_overlap(W, tolerance=2.0), "tolerance"),
-    ("overlap_probability_above_one", lambda: sw.check_overlap(probabilities=[0.5, 1.5], n_source=10, n_target=10), "probabilities"),
-    ("overlap_nan_probability", lambda: sw.check_overlap(probabilities=[0.5, np.nan], n_source=10, n_target=10), "probabilities"),
+    (
+        "overlap_probability_above_one",
+        lambda: sw.check_overlap(probabilities=[0.5, 1.5], n_source=10, n_target=10),
+        "probabilities",
+    ),
+    (
+        "overlap_nan_probability",
+        lambda: sw.check_overlap(probabilities=[0.5, np.nan], n_source=10, n_target=10),
+        "probabilities",
+    ),
     ("overlap_zero_sizes", lambda: sw.check_overlap(probabilities=[0.5], n_source=0, n_target=10), "n_source"),
     ("overlap_negative_sizes", lambda: sw.check_overlap(probabilities=[0.5], n_source=10, n_target=-1), "n_target"),
     ("overlap_both_inputs", lambda: sw.check_overlap(W, probabilities=[0.5]), "target_ratios"),
@@ -527,7 +540,11 @@ CONFORMAL_CASES = [
     ("short_weights", dict(weights=W[:3]), ("err", "weights")),
     ("nan_y_cal", dict(y_cal=np.r_[np.nan, Y_REG[8:]]), ("err", "y_cal")),
     ("nan_X", dict(X=with_value(T, 0, 0, np.nan)), ("err", "X")),
-    ("empty_cal", dict(X_cal=S[:0], y_cal=Y_REG[:0], cal_weights=W[:0]), ("err", ("calibration rows", "X_cal", "y_cal", "cal_weights"))),
+    (
+        "empty_cal",
+        dict(X_cal=S[:0], y_cal=Y_REG[:0], cal_weights=W[:0]),
+        ("err", ("calibration rows", "X_cal", "y_cal", "cal_weights")),
+    ),
     ("huge_weights", dict(cal_weights=W[7:] * 1e300, weights=W[:12] * 1e300), ("either", "weights")),
     ("ok", dict(), ("either", None)),
 ]
@@ -540,7 +557,9 @@ def test_conformal_intervals(case):
     args.update(kw)
 
     def call():
-        r = sw.conformal_intervals(_RIDGE, args["X_cal"], args["y_cal"], args["cal_weights"], args["X"], args["weights"], alpha=args["alpha"])
+        r = sw.conformal_intervals(
+            _RIDGE, args["X_cal"], args["y_cal"], args["cal_weights"], args["X"], args["weights"], alpha=args["alpha"]
+        )
         # Infinite bounds are the documented answer when the calibration weight cannot reach 1 - alpha.
         finite = np.isfinite(r.upper)
         assert r.n_infinite == int((~finite).sum())
@@ -556,9 +575,7 @@ def test_conformal_intervals(case):
 # ------------------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize(
-    "text", ["", "{", "null", "[]", "42", '"text"', "{}", '{"format": 1}', "\x00\x01", "{" * 5000]
-)
+@pytest.mark.parametrize("text", ["", "{", "null", "[]", "42", '"text"', "{}", '{"format": 1}', "\x00\x01", "{" * 5000])
 def test_from_json_rejects_junk(text):
     with pytest.raises(sw.ModelFileError, match="model file"):
         sw.from_json(text)

@@ -1,13 +1,10 @@
 """Importance-weighted cross-validation, the weighted-versus-unweighted comparison and weighted
 metrics with intervals."""
 
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import stats
-from scipy.stats import norm
 from sklearn.datasets import load_breast_cancer
 from sklearn.linear_model import LogisticRegression, Ridge
 from sklearn.metrics import (
@@ -23,9 +20,7 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
 import shiftweight as sw
-
-sys.path.insert(0, str(Path(__file__).parent))
-from _shift_cases import sinc_regression_toy as toy  # noqa: E402
+from _shift_cases import sinc_regression_toy as toy
 
 
 # The toy set-up of the covariate-shift literature (from memory): a straight line fitted to the
@@ -183,14 +178,22 @@ def test_weighted_metric_equals_sklearn_weighted_metrics():
     y = rng.normal(size=n)
     p = y + rng.normal(size=n)
     # reference: sklearn.metrics with sample_weight
-    assert abs(sw.weighted_metric(y, p, w, "squared_error").estimate - mean_squared_error(y, p, sample_weight=w)) < 1e-12
-    assert abs(sw.weighted_metric(y, p, w, "absolute_error").estimate - mean_absolute_error(y, p, sample_weight=w)) < 1e-12
+    assert (
+        abs(sw.weighted_metric(y, p, w, "squared_error").estimate - mean_squared_error(y, p, sample_weight=w)) < 1e-12
+    )
+    assert (
+        abs(sw.weighted_metric(y, p, w, "absolute_error").estimate - mean_absolute_error(y, p, sample_weight=w)) < 1e-12
+    )
     lab = (rng.random(n) < 0.4).astype(int)
     prob = np.clip(0.4 + 0.3 * (lab - 0.4) + 0.2 * rng.normal(size=n), 0.01, 0.99)
     assert abs(sw.weighted_metric(lab, prob, w, "log_loss").estimate - log_loss(lab, prob, sample_weight=w)) < 1e-12
-    assert abs(sw.weighted_metric(lab, prob, w, "brier").estimate - brier_score_loss(lab, prob, sample_weight=w)) < 1e-12
+    assert (
+        abs(sw.weighted_metric(lab, prob, w, "brier").estimate - brier_score_loss(lab, prob, sample_weight=w)) < 1e-12
+    )
     pred = (prob > 0.5).astype(int)
-    assert abs(sw.weighted_metric(lab, pred, w, "accuracy").estimate - accuracy_score(lab, pred, sample_weight=w)) < 1e-12
+    assert (
+        abs(sw.weighted_metric(lab, pred, w, "accuracy").estimate - accuracy_score(lab, pred, sample_weight=w)) < 1e-12
+    )
     P = np.column_stack([1 - prob, prob])
     assert abs(sw.weighted_metric(lab, P, w, "log_loss").estimate - log_loss(lab, P, sample_weight=w)) < 1e-12
 
@@ -224,11 +227,17 @@ def test_bootstrap_interval_matches_an_independent_numpy_bootstrap():
     rng = np.random.default_rng(7)
     x = rng.normal(size=400)
     w = np.exp(0.5 * x - 0.125)
-    r = sw.weighted_metric(x, np.zeros_like(x), w, "squared_error", confidence=0.9, method="bootstrap", n_boot=4000, seed=1)
-    assert r.to_dict() == sw.weighted_metric(x, np.zeros_like(x), w, "squared_error", confidence=0.9,
-                                             method="bootstrap", n_boot=4000, seed=1).to_dict()  # seeded
+    r = sw.weighted_metric(
+        x, np.zeros_like(x), w, "squared_error", confidence=0.9, method="bootstrap", n_boot=4000, seed=1
+    )
+    assert (
+        r.to_dict()
+        == sw.weighted_metric(
+            x, np.zeros_like(x), w, "squared_error", confidence=0.9, method="bootstrap", n_boot=4000, seed=1
+        ).to_dict()
+    )  # seeded
     # reference: a percentile bootstrap of the weighted mean written with numpy (Efron 1979)
-    v = x ** 2
+    v = x**2
     idx = np.random.default_rng(0).integers(0, 400, size=(4000, 400))
     stats_ = (w[idx] * v[idx]).sum(1) / w[idx].sum(1)
     lo, hi = np.quantile(stats_, [0.05, 0.95])

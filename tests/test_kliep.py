@@ -102,10 +102,12 @@ def test_constraint_holds_and_matches_independent_scipy_solve():
     mean = np.concatenate([s, t]).mean(0)
     sd = np.concatenate([s, t]).std(0, ddof=1)
     zs, zt = (s - mean) / sd, (t - mean) / sd
-    k = lambda a, c: np.exp(-((a - c.T) ** 2) / (2 * 0.5**2))
+    def k(a, c):
+        return np.exp(-((a - c.T) ** 2) / (2 * 0.5**2))
     kt, ks = k(zt, centres), k(zs, centres)
     h = ks.mean(0)
-    obj = lambda a: -np.mean(np.log(kt @ a))
+    def obj(a):
+        return -np.mean(np.log(kt @ a))
     res = optimize.minimize(
         obj,
         np.full(len(h), 1.0 / h.sum()),
@@ -181,7 +183,8 @@ def test_a_tolerance_below_floating_point_reach_ends_with_a_warning_not_max_iter
     mean = np.concatenate([s, t]).mean(0)
     sd = np.concatenate([s, t]).std(0, ddof=1)
     zs, zt = (s - mean) / sd, (t - mean) / sd
-    k = lambda a: np.exp(-((a - centres.T) ** 2) / 2.0)
+    def k(a):
+        return np.exp(-((a - centres.T) ** 2) / 2.0)
     kt, h = k(zt), k(zs).mean(0)
     m = kt / h  # columns scaled so that p = h * alpha lies on the simplex
     p = np.full(len(h), 1.0 / len(h))

@@ -3,8 +3,6 @@ same quadratic program, analytic Gaussian ratios, and scikit-learn's bundled bre
 
 import json
 import pickle
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -12,9 +10,7 @@ from scipy import optimize, stats
 from sklearn.datasets import load_breast_cancer
 
 import shiftweight as sw
-
-sys.path.insert(0, str(Path(__file__).parent))
-from _shift_cases import nmse as shared_nmse  # noqa: E402
+from _shift_cases import nmse as shared_nmse
 
 
 def nmse(w_est, w_true):
@@ -60,7 +56,8 @@ def test_qp_solution_matches_independent_scipy_solve_and_constraints_hold(ridge)
     eps = (np.sqrt(n) - 1) / np.sqrt(n)
     assert est.eps_ == pytest.approx(eps)
     K, kappa = kmm_problem(s, t, est.sigma_, est.ridge_)
-    f = lambda b: 0.5 * b @ K @ b - kappa @ b
+    def f(b):
+        return 0.5 * b @ K @ b - kappa @ b
     # reference: scipy.optimize.minimize(method="SLSQP") on the same QP
     res = optimize.minimize(
         f,
@@ -87,7 +84,8 @@ def test_binding_eps_constraint_matches_scipy():
     est = sw.KernelMeanMatching(bound=50.0, eps=0.01).fit(s, t)
     beta, n = est.source_weights_, len(s)
     K, kappa = kmm_problem(s, t, est.sigma_, est.ridge_)
-    f = lambda b: 0.5 * b @ K @ b - kappa @ b
+    def f(b):
+        return 0.5 * b @ K @ b - kappa @ b
     # reference: scipy.optimize.minimize(method="SLSQP")
     res = optimize.minimize(
         f, np.ones(n), jac=lambda b: K @ b - kappa, method="SLSQP", bounds=[(0, 50.0)] * n,

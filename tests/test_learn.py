@@ -2,17 +2,13 @@
 misspecified-regression toy under covariate shift."""
 
 import pickle
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 from sklearn.linear_model import LogisticRegression, Ridge
 
 import shiftweight as sw
-
-sys.path.insert(0, str(Path(__file__).parent))
-from _shift_cases import sinc_regression_toy as toy  # noqa: E402
+from _shift_cases import sinc_regression_toy as toy
 
 
 def _data(seed, n, d, binary):

@@ -47,7 +47,7 @@ def test_coefficients_solve_the_normal_equations_numpy(alpha):
 
 
 def test_learned_attributes_and_selection(fitted):
-    s, t, est = fitted
+    s, _t, est = fitted
     assert est.source_weights_.shape == (len(s),)
     assert est.sigma_ > 0 and est.lam_ > 0
     assert len(est.cv_scores_) == 25
@@ -57,7 +57,7 @@ def test_learned_attributes_and_selection(fitted):
 
 
 def test_pickle_and_json_round_trips_are_bitwise(fitted):
-    s, t, est = fitted
+    _s, _t, est = fitted
     x = _gauss(100, 3, 0.3, 9)
     w = est.ratio(x)
     for other in (pickle.loads(pickle.dumps(est)), sw.from_json(est.to_json())):
@@ -112,7 +112,7 @@ def test_bad_inputs_get_specific_errors(fitted):
 
 
 def test_dataframes_keep_names_and_match_numpy():
-    pd = pytest.importorskip("pandas")
+    pytest.importorskip("pandas")
     d = sw.demo_data(300, 200, seed=2, as_frame=True)
     a = sw.LeastSquaresRatio(n_basis=30).fit(d["source"], d["target"])
     b = sw.LeastSquaresRatio(n_basis=30).fit(d["source"].to_numpy(), d["target"].to_numpy())
@@ -121,7 +121,7 @@ def test_dataframes_keep_names_and_match_numpy():
     with pytest.raises(sw.ShiftweightError, match="another order"):
         a.ratio(d["target"][d["feature_names"][::-1]])
     renamed = d["target"].rename(columns={"occupants": "people"})
-    with pytest.raises(sw.ShiftweightError, match="missing.*occupants"):
+    with pytest.raises(sw.ShiftweightError, match=r"missing.*occupants"):
         sw.LeastSquaresRatio().fit(d["source"], renamed)
     text = d["source"].assign(town="coast")
     with pytest.raises(sw.ShiftweightError, match="'town' is not numeric"):
@@ -129,7 +129,7 @@ def test_dataframes_keep_names_and_match_numpy():
 
 
 def test_float32_and_fortran_order_give_the_float64_result(fitted):
-    s, t, est = fitted
+    _s, _t, est = fitted
     x = _gauss(50, 3, 0.2, 4)
     np.testing.assert_array_equal(est.ratio(np.asfortranarray(x)), est.ratio(x))
     x32 = x.astype(np.float32)
@@ -137,7 +137,7 @@ def test_float32_and_fortran_order_give_the_float64_result(fitted):
 
 
 def test_concurrent_scoring_from_threads(fitted):
-    s, t, est = fitted
+    _s, _t, est = fitted
     x = _gauss(20000, 3, 0.0, 11)
     want = est.ratio(x)
     out = [None] * 6
@@ -172,4 +172,4 @@ def test_sklearn_clone_and_params():
 )
 def test_panics_never_reach_python():
     with pytest.raises(sw.InternalError, match="internal error"):
-        getattr(sw._native, "_provoke_internal_failure")()
+        sw._native._provoke_internal_failure()

@@ -54,7 +54,7 @@ def test_weights_histogram_annotates_kish_ess_and_pareto_k():
 
 
 def test_weights_histogram_reports_zero_weights_and_uses_given_axes():
-    fig, ax0 = plt.subplots()
+    _fig, ax0 = plt.subplots()
     w = np.r_[np.zeros(3), np.ones(10)]
     ax = sw.plot.weights(w, ax=ax0)
     assert ax is ax0

@@ -91,7 +91,17 @@ def test_cli_weigh_equals_python_bitwise(tmp_path, threads):
     assert json.loads(loaded.to_json())["model"]["form"] == json.loads(est.to_json())["model"]["form"]
 
     # Scoring new rows with the saved model from the CLI equals Python's ratio.
-    run_cli("--threads", threads, "apply", "--model", tmp_path / "model.json", "--input", tmp_path / "new.csv", "--out", tmp_path / "r.csv")
+    run_cli(
+        "--threads",
+        threads,
+        "apply",
+        "--model",
+        tmp_path / "model.json",
+        "--input",
+        tmp_path / "new.csv",
+        "--out",
+        tmp_path / "r.csv",
+    )
     np.testing.assert_array_equal(read_weights(tmp_path / "r.csv"), r_py)
 
 
@@ -102,8 +112,23 @@ def test_cli_weights_do_not_depend_on_the_thread_count(tmp_path):
     out = []
     for threads in (1, 2, 3):
         dest = tmp_path / f"w{threads}.csv"
-        run_cli("--threads", threads, "weigh", "--source", tmp_path / "source.csv", "--target", tmp_path / "target.csv",
-                "--estimator", "rulsif", "--alpha", 0.2, "--n-basis", 30, "--out", dest)
+        run_cli(
+            "--threads",
+            threads,
+            "weigh",
+            "--source",
+            tmp_path / "source.csv",
+            "--target",
+            tmp_path / "target.csv",
+            "--estimator",
+            "rulsif",
+            "--alpha",
+            0.2,
+            "--n-basis",
+            30,
+            "--out",
+            dest,
+        )
         out.append(read_weights(dest))
     for w in out[1:]:
         np.testing.assert_array_equal(w, out[0])
@@ -117,9 +142,27 @@ def test_cli_exit_codes_for_bad_input_and_io(tmp_path):
     common = ["weigh", "--source", tmp_path / "source.csv", "--estimator", "lsif", "--out", tmp_path / "w.csv"]
     p = subprocess.run([str(CLI), "--quiet", *map(str, common), "--target", str(bad)], capture_output=True, text=True)
     assert p.returncode == 2 and "panicked" not in p.stderr, p.stderr
-    p = subprocess.run([str(CLI), "--quiet", *map(str, common), "--target", str(tmp_path / "missing.csv")], capture_output=True, text=True)
+    p = subprocess.run(
+        [str(CLI), "--quiet", *map(str, common), "--target", str(tmp_path / "missing.csv")],
+        capture_output=True,
+        text=True,
+    )
     assert p.returncode == 3 and "panicked" not in p.stderr, p.stderr
     (tmp_path / "m.json").write_text('{"format": "shiftweight.ratio-model", "version": 9, "model": {}}')
-    p = subprocess.run([str(CLI), "--quiet", "apply", "--model", str(tmp_path / "m.json"), "--input", str(bad), "--out", str(tmp_path / "r.csv")], capture_output=True, text=True)
+    p = subprocess.run(
+        [
+            str(CLI),
+            "--quiet",
+            "apply",
+            "--model",
+            str(tmp_path / "m.json"),
+            "--input",
+            str(bad),
+            "--out",
+            str(tmp_path / "r.csv"),
+        ],
+        capture_output=True,
+        text=True,
+    )
     assert p.returncode == 2 and "version 9" in p.stderr, p.stderr
     assert not (tmp_path / "r.csv").exists()  # nothing half-written

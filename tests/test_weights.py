@@ -121,7 +121,7 @@ def test_bad_weights_are_rejected():
         sw.stabilize([1.0, -2.0])
     with pytest.raises(sw.ShiftweightError, match="all weights are zero"):
         sw.stabilize([0.0, 0.0])
-    with pytest.raises(sw.ShiftweightError, match="non-finite|finite"):
+    with pytest.raises(sw.ShiftweightError, match=r"non-finite|finite"):
         sw.stabilize([1.0, np.nan])
     with pytest.raises(sw.ShiftweightError, match="1-D"):
         sw.stabilize(np.ones((2, 2)))

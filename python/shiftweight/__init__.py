@@ -10,6 +10,18 @@ defer to the regulations and review processes of your domain. Load pickles only 
 sources; JSON model files are the safe exchange format.
 """
 
+from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
+from ._demo import demo_data
+from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
+from ._evaluate import (
+    CrossValidatedRisk,
+    MetricEstimate,
+    WeightingComparison,
+    compare_weighting,
+    iw_cross_validate,
+    weighted_metric,
+)
+from ._learn import WeightedLogistic, WeightedRidge, linear_model_from_json
 from ._native import (
     InternalError,
     ModelFileError,
@@ -20,7 +32,6 @@ from ._native import (
     get_threads,
     set_threads,
 )
-from ._validation import NotFittedError
 from ._ratio import (
     AutoRatio,
     ClassifierRatio,
@@ -30,18 +41,7 @@ from ._ratio import (
     from_json,
     ratio_from_probabilities,
 )
-from ._learn import WeightedLogistic, WeightedRidge, linear_model_from_json
-from ._evaluate import (
-    CrossValidatedRisk,
-    MetricEstimate,
-    WeightingComparison,
-    compare_weighting,
-    iw_cross_validate,
-    weighted_metric,
-)
-from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
-from ._demo import demo_data
-from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
+from ._validation import NotFittedError
 from ._weights import (
     ClipTradeoff,
     OverlapReport,

@@ -41,7 +41,7 @@ class ParamsMixin:
         """Hyperparameters as a dict (scikit-learn convention)."""
         return {k: getattr(self, k) for k in self._param_names()}
 
-    def set_params(self, **params: Any) -> "ParamsMixin":
+    def set_params(self, **params: Any) -> ParamsMixin:
         """Sets hyperparameters by name; unknown names raise ValueError."""
         valid = set(self._param_names())
         for k, v in params.items():

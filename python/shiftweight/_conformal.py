@@ -19,7 +19,7 @@ weights give approximate coverage. Check coverage on labelled target data when y
 from __future__ import annotations
 
 import html
-from typing import Any, Dict, List, Optional
+from typing import Any, Dict, List
 
 import numpy as np
 
@@ -148,7 +148,12 @@ class ConformalSets:
         return s
 
     def to_dict(self) -> Dict[str, Any]:
-        return {"alpha": self.alpha, "classes": self.classes.tolist(), "sets": self.as_lists(), "n_infinite": self.n_infinite}
+        return {
+            "alpha": self.alpha,
+            "classes": self.classes.tolist(),
+            "sets": self.as_lists(),
+            "n_infinite": self.n_infinite,
+        }
 
     def __repr__(self) -> str:
         return f"ConformalSets({self._summary()})"
@@ -226,7 +231,9 @@ def conformal_sets(
     cw, w = _weights_pair(cal_weights, weights, n_cal, n)
     classes = getattr(model, "classes_", None)
     if classes is None or not hasattr(model, "predict_proba"):
-        raise TypeError(f"conformal_sets needs a fitted classifier with predict_proba and classes_, got {type(model).__name__}")
+        raise TypeError(
+            f"conformal_sets needs a fitted classifier with predict_proba and classes_, got {type(model).__name__}"
+        )
     classes = np.asarray(classes)
     codes = _encode(np.asarray(y_cal), classes, "y_cal")
     p_cal = np.ascontiguousarray(model.predict_proba(X_cal), dtype=np.float64)

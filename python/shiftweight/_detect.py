@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import html
 import json
-from typing import Any, Dict, List, Optional, Sequence
+from typing import Any, ClassVar, Dict, List, Optional, Sequence
 
 from . import _native
 from ._validation import as_count, as_matrix, as_seed, check_same_columns
@@ -111,7 +111,7 @@ class ShiftTestResult:
         return json.dumps(self._doc)
 
     @classmethod
-    def from_json(cls, text: str) -> "ShiftTestResult":
+    def from_json(cls, text: str) -> ShiftTestResult:
         """Reads a document written by :meth:`to_json` (format and version are checked)."""
         doc = json.loads(text)
         if doc.get("format") != "shiftweight.shift-test" or doc.get("version") != 1:
@@ -285,7 +285,7 @@ class FeatureShiftTable:
         return json.dumps(self._doc)
 
     @classmethod
-    def from_json(cls, text: str) -> "FeatureShiftTable":
+    def from_json(cls, text: str) -> FeatureShiftTable:
         """Reads a document written by :meth:`to_json`."""
         doc = json.loads(text)
         if doc.get("format") != "shiftweight.feature-shift" or doc.get("version") != 1:
@@ -300,7 +300,9 @@ class FeatureShiftTable:
             return _fmt_p(v) if abs(v) < 1e-4 and v != 0 else f"{v:.4g}"
         return str(v)
 
-    _SHOWN = ["feature", "test", "statistic", "p_value", "p_adjusted", "smd", "wasserstein_sd", "auc_drop"]
+    _SHOWN: ClassVar[List[str]] = [
+        "feature", "test", "statistic", "p_value", "p_adjusted", "smd", "wasserstein_sd", "auc_drop"
+    ]
 
     def __repr__(self) -> str:
         cells = [self._SHOWN] + [[self._cell(r[c]) for c in self._SHOWN] for r in self.rows]

@@ -123,7 +123,9 @@ def _fit(model: Any, X: Any, y: Any, w: Optional[np.ndarray], key: Optional[str]
     return model if fitted is None else fitted
 
 
-def _splits(cv: Any, X: Any, y: Any, n: int, seed: int) -> Tuple[List[Tuple[np.ndarray, np.ndarray]], Optional[np.ndarray]]:
+def _splits(
+    cv: Any, X: Any, y: Any, n: int, seed: int
+) -> Tuple[List[Tuple[np.ndarray, np.ndarray]], Optional[np.ndarray]]:
     """(train, test) index pairs and, for an integer cv, the fold of every row."""
     if isinstance(cv, (int, np.integer)) and not isinstance(cv, bool):
         fold = np.asarray(_native.kfold_assignment(n, int(cv), int(seed)))
@@ -284,7 +286,9 @@ class CrossValidatedRisk:
         rows = "".join(
             f"<tr><td>{k}</td><td>{_fmt(v)}</td><td>{_fmt(s)}</td><td>{_fmt(u)}</td><td>{e:.1f}</td><td>{n}</td></tr>"
             for k, (v, s, u, e, n) in enumerate(
-                zip(self.per_fold, self.per_fold_std_error, self.per_fold_unweighted, self.per_fold_ess, self.per_fold_n)
+                zip(
+                    self.per_fold, self.per_fold_std_error, self.per_fold_unweighted, self.per_fold_ess, self.per_fold_n
+                )
             )
         )
         return (
@@ -315,8 +319,15 @@ class WeightingComparison:
         The verdict in plain words.
     """
 
-    def __init__(self, weighted: CrossValidatedRisk, unweighted: CrossValidatedRisk, difference: float,
-                 difference_std_error: float, verdict: str, z: float):
+    def __init__(
+        self,
+        weighted: CrossValidatedRisk,
+        unweighted: CrossValidatedRisk,
+        difference: float,
+        difference_std_error: float,
+        verdict: str,
+        z: float,
+    ):
         self.weighted = weighted
         self.unweighted = unweighted
         self.difference = float(difference)
@@ -335,9 +346,17 @@ class WeightingComparison:
             f"the paired difference is {self.difference:+.4g} (standard error {_fmt(self.difference_std_error)})"
         )
         if self.verdict == "favours_weighting":
-            head = "The evidence favours training with the weights: the " + numbers + f", more than {self.z:g} standard errors in its favour."
+            head = (
+                "The evidence favours training with the weights: the "
+                + numbers
+                + f", more than {self.z:g} standard errors in its favour."
+            )
         elif self.verdict == "favours_no_weighting":
-            head = "The evidence favours training without the weights: the " + numbers + f", more than {self.z:g} standard errors against weighting."
+            head = (
+                "The evidence favours training without the weights: the "
+                + numbers
+                + f", more than {self.z:g} standard errors against weighting."
+            )
         else:
             head = (
                 "The evidence does not clearly favour either: the " + numbers + f", within {self.z:g} standard errors. "
@@ -345,7 +364,10 @@ class WeightingComparison:
             )
         ess = self.weighted.per_fold_ess
         if np.all(np.isfinite(ess)) and np.min(ess) < 30:
-            head += f" Caution: some held-out folds have only {np.min(ess):.0f} effective rows, so these estimates are unreliable."
+            head += (
+                f" Caution: some held-out folds have only {np.min(ess):.0f} effective rows, "
+                "so these estimates are unreliable."
+            )
         return head + " " + _CAUTION
 
     def to_dict(self) -> Dict[str, Any]:
@@ -368,7 +390,8 @@ class WeightingComparison:
             "<table><tr><th></th><th>estimate</th><th>std. error</th></tr>"
             f"<tr><td>with weights</td><td>{_fmt(w.estimate)}</td><td>{_fmt(w.std_error)}</td></tr>"
             f"<tr><td>without weights</td><td>{_fmt(u.estimate)}</td><td>{_fmt(u.std_error)}</td></tr>"
-            f"<tr><td>difference (paired)</td><td>{self.difference:+.4g}</td><td>{_fmt(self.difference_std_error)}</td></tr>"
+            f"<tr><td>difference (paired)</td><td>{self.difference:+.4g}</td>"
+            f"<td>{_fmt(self.difference_std_error)}</td></tr>"
             f"</table><p>{html.escape(self.message)}</p></div>"
         )
 
@@ -389,7 +412,10 @@ class MetricEstimate:
         self.n = int(d["n"])
 
     def to_dict(self) -> Dict[str, Any]:
-        return {k: getattr(self, k) for k in ("metric", "method", "estimate", "std_error", "lower", "upper", "confidence", "ess", "n")}
+        return {
+            k: getattr(self, k)
+            for k in ("metric", "method", "estimate", "std_error", "lower", "upper", "confidence", "ess", "n")
+        }
 
     def __repr__(self) -> str:
         return (
@@ -553,13 +579,19 @@ def compare_weighting(
         return WeightingComparison(
             CrossValidatedRisk(_custom_summary(*a), name, gib, fold),
             CrossValidatedRisk(_custom_summary(*b), name, gib, fold),
-            diff, se, verdict, float(z),
+            diff,
+            se,
+            verdict,
+            float(z),
         )
     r = _native.compare_weighting(a[0], b[0], a[1], a[2], len(pairs), gib, float(z))
     return WeightingComparison(
         CrossValidatedRisk(r["weighted"], name, gib, fold),
         CrossValidatedRisk(r["unweighted"], name, gib, fold),
-        r["difference"], r["difference_std_error"], r["verdict"], float(z),
+        r["difference"],
+        r["difference_std_error"],
+        r["verdict"],
+        float(z),
     )
 
 
@@ -621,9 +653,13 @@ def weighted_metric(
     elif metric == "accuracy":
         all_labels = np.unique(np.concatenate([yt.astype(str), yp.astype(str)]))
         values = _native.metric_row_values(
-            metric, _encode(yt.astype(str), all_labels, "y_true"), _encode(yp.astype(str), all_labels, "y_pred").reshape(-1, 1)
+            metric,
+            _encode(yt.astype(str), all_labels, "y_true"),
+            _encode(yp.astype(str), all_labels, "y_pred").reshape(-1, 1),
         )
     else:
-        values = _native.metric_row_values(metric, as_vector(yt, "y_true", n), as_vector(yp, "y_pred", n).reshape(-1, 1))
+        values = _native.metric_row_values(
+            metric, as_vector(yt, "y_true", n), as_vector(yp, "y_pred", n).reshape(-1, 1)
+        )
     d = _native.metric_interval(values, w, float(confidence), method, int(n_boot), int(seed))
     return MetricEstimate(d, metric, method)

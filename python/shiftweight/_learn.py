@@ -78,7 +78,7 @@ class WeightedLogistic(_LinearBase):
         self.l2 = l2
         self.max_iter = max_iter
 
-    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> "WeightedLogistic":
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> WeightedLogistic:
         x, names = as_matrix(X, "X")
         y_arr = np.asarray(y)
         if y_arr.ndim != 1 or y_arr.shape[0] != x.shape[0]:
@@ -140,7 +140,7 @@ class WeightedRidge(_LinearBase):
     def __init__(self, l2: float = 1.0):
         self.l2 = l2
 
-    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> "WeightedRidge":
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> WeightedRidge:
         x, names = as_matrix(X, "X")
         y_arr = as_vector(y, "y", x.shape[0])
         w = self._weights(sample_weight, x.shape[0])
@@ -183,16 +183,17 @@ def linear_model_from_json(text: str) -> _LinearBase:
     """
     model = _native.LinearModel.from_json(text)
     if model.kind == "logistic":
-        est: _LinearBase = WeightedLogistic(l2=float(model.l2))
-        est.model_ = model
-        est.classes_ = np.array([0, 1])
-        est.coef_ = np.asarray(model.coef).reshape(1, -1)
-        est.intercept_ = np.array([model.intercept])
-        est.n_iter_ = model.n_iter
-    else:
-        est = WeightedRidge(l2=float(model.l2))
-        est.model_ = model
-        est.coef_ = np.asarray(model.coef)
-        est.intercept_ = float(model.intercept)
-    est.n_features_in_ = len(model.coef)
-    return est
+        logistic = WeightedLogistic(l2=float(model.l2))
+        logistic.model_ = model
+        logistic.classes_ = np.array([0, 1])
+        logistic.coef_ = np.asarray(model.coef).reshape(1, -1)
+        logistic.intercept_ = np.array([model.intercept])
+        logistic.n_iter_ = model.n_iter
+        logistic.n_features_in_ = len(model.coef)
+        return logistic
+    ridge = WeightedRidge(l2=float(model.l2))
+    ridge.model_ = model
+    ridge.coef_ = np.asarray(model.coef)
+    ridge.intercept_ = float(model.intercept)
+    ridge.n_features_in_ = len(model.coef)
+    return ridge

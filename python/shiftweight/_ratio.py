@@ -55,7 +55,7 @@ class RatioEstimatorBase(ParamsMixin):
     def _fit_native(self, source: np.ndarray, target: np.ndarray, names: Optional[list]) -> Any:
         raise NotImplementedError
 
-    def fit(self, source: Any, target: Any) -> "RatioEstimatorBase":
+    def fit(self, source: Any, target: Any) -> RatioEstimatorBase:
         """Fits on ``source`` (training inputs) and ``target`` (deployment inputs); returns self.
 
         Both are 2-D arrays or DataFrames with the same columns; the GIL is released while fitting.
@@ -593,8 +593,9 @@ class AutoRatio(RatioEstimatorBase):
         None: uLSIF, RuLSIF (alpha 0.1) and the classifier with linear, quadratic and Fourier
         features; the quadratic one only up to 20 columns (its d(d+3)/2 features make the fit
         cost grow like d^4: measured 0.32 s per fit at d = 20, 19.5 s at d = 40 on 1,000 + 1,000
-        rows), and ``warnings_`` says when it is left out. Otherwise estimator instances, ``(name, estimator)`` pairs, or a dict
-        ``{name: estimator}`` (names default to the estimator's repr).
+        rows), and ``warnings_`` says when it is left out. Otherwise estimator instances,
+        ``(name, estimator)`` pairs, or a dict ``{name: estimator}`` (names default to the
+        estimator's repr).
     folds : int
         Held-out folds (>= 2).
     seed : int
@@ -607,8 +608,9 @@ class AutoRatio(RatioEstimatorBase):
     chosen_ : name of the chosen candidate ("uniform" for no correction); ``scores_``: list of
     dicts (name, score, std_error, pareto_k, excluded), uniform first, where ``pareto_k`` is the
     tail shape of the held-out source weights (None when it cannot be estimated, e.g. bounded
-    weights) and ``excluded`` is True for candidates the heavy-tail guard kept from being chosen; ``chosen_estimator_``: the refitted winner as
-    its own class (None for uniform); ``source_weights_``: the winner's source weights.
+    weights) and ``excluded`` is True for candidates the heavy-tail guard kept from being chosen;
+    ``chosen_estimator_``: the refitted winner as its own class (None for uniform);
+    ``source_weights_``: the winner's source weights.
 
     Examples
     --------
@@ -726,10 +728,7 @@ def from_json(text: str) -> RatioEstimatorBase:
     Raises ``ModelFileError`` for another format, another version or an inconsistent model.
     """
     model = _native.RatioModel.from_json(text)
-    if "candidate" in model.selection:
-        cls = AutoRatio
-    else:
-        cls = _KIND_TO_CLASS.get(model.kind)
+    cls: Optional[type] = AutoRatio if "candidate" in model.selection else _KIND_TO_CLASS.get(model.kind)
     if cls is None:
         raise _native.ModelFileError(f"no Python class for estimator kind {model.kind!r}")
     return _restore(cls(), model)

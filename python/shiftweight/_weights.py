@@ -142,7 +142,7 @@ class StabilizeReport:
         return json.dumps(self._record)
 
     @classmethod
-    def from_json(cls, text: str) -> "StabilizeReport":
+    def from_json(cls, text: str) -> StabilizeReport:
         return cls(json.loads(text))
 
     def __reduce__(self):
@@ -151,7 +151,9 @@ class StabilizeReport:
     def __repr__(self) -> str:
         lines = [f"StabilizeReport(n={self.n})"]
         for s in self.steps:
-            lines.append(f"  {s['step']:<15} rows changed {s['rows_changed']:>8}  value {_fmt(s['value'])}  {s['note']}")
+            lines.append(
+                f"  {s['step']:<15} rows changed {s['rows_changed']:>8}  value {_fmt(s['value'])}  {s['note']}"
+            )
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
@@ -281,13 +283,13 @@ class WeightDiagnosis(_Document):
         self.top1_rows: int = b["top1_rows"]
         self.rows_for_half: int = b["rows_for_half"]
         self.max_over_mean: float = b["max_over_mean"]
-        self.quantiles: Dict[float, float] = {float(l): float(v) for l, v in b["quantiles"]}
+        self.quantiles: Dict[float, float] = {float(p): float(v) for p, v in b["quantiles"]}
         self.n_zero: int = b["n_zero"]
         self.warnings: List[str] = list(b["warnings"])
         self.groups: List[Dict[str, Any]] = list(b["groups"])
 
     @classmethod
-    def from_json(cls, text: str) -> "WeightDiagnosis":
+    def from_json(cls, text: str) -> WeightDiagnosis:
         return cls(_native.diagnosis_from_json(text))
 
     def _rows(self) -> List[Tuple[str, str]]:
@@ -301,7 +303,7 @@ class WeightDiagnosis(_Document):
             ("largest weight / mean", _fmt(self.max_over_mean)),
             ("zero weights", str(self.n_zero)),
         ]
-        q = ", ".join(f"{100 * l:g}%: {_fmt(v)}" for l, v in self.quantiles.items())
+        q = ", ".join(f"{100 * p:g}%: {_fmt(v)}" for p, v in self.quantiles.items())
         rows.append(("quantiles", q))
         for g in self.groups:
             rows.append(
@@ -488,7 +490,10 @@ class OverlapReport(_Document):
         b = self._body
         return [
             ("target rows", str(b["n_target"])),
-            (f"barely covered (ratio > {_fmt(b['limit'])})", f"{b['n_poorly_covered']} ({100 * b['share_poorly_covered']:.2f}%)"),
+            (
+                f"barely covered (ratio > {_fmt(b['limit'])})",
+                f"{b['n_poorly_covered']} ({100 * b['share_poorly_covered']:.2f}%)",
+            ),
             ("largest ratio", _fmt(b["max_ratio"])),
             ("median ratio", _fmt(b["median_ratio"])),
             ("flagged", "yes" if b["flagged"] else "no"),
@@ -526,7 +531,9 @@ def check_overlap(
     if (target_ratios is None) == (probabilities is None):
         raise ShiftweightError("give exactly one of `target_ratios` or `probabilities`")
     if target_ratios is not None:
-        return OverlapReport(_native.check_overlap(as_vector(target_ratios, "target_ratios"), float(limit), float(tolerance)))
+        return OverlapReport(
+            _native.check_overlap(as_vector(target_ratios, "target_ratios"), float(limit), float(tolerance))
+        )
     if n_source is None or n_target is None:
         raise ShiftweightError("`probabilities` need `n_source` and `n_target` (the class sizes of the classifier)")
     p = as_vector(probabilities, "probabilities")
