@@ -1,8 +1,9 @@
 //! `shiftweight apply`: score rows with a saved model, streaming through the input in chunks.
 
 use crate::args::InputArgs;
-use crate::io::{Chunk, ColumnChoice, TableReader, WeightsWriter};
+use crate::io::{numeric_rows, ColumnChoice, WeightsWriter};
 use crate::progress::Progress;
+use crate::read::{Chunk, TableReader, TypeOverrides};
 use crate::{exit, Failure, Globals};
 use clap::Args;
 use shiftweight::{FittedRatio, MatrixView};
@@ -59,7 +60,13 @@ pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
             choice.columns = Some(names.clone());
         }
     }
-    let mut reader = TableReader::open(&args.input, &args.columns.file_options(), &choice)?;
+    // The model's features are numeric: read every chosen column as numeric.
+    let types = TypeOverrides {
+        numeric: choice.columns.clone().unwrap_or_default(),
+        categorical: Vec::new(),
+    };
+    let mut reader = TableReader::open(&args.input, &args.columns.file_options(), &choice, &types)?;
+    let names = reader.names();
     if reader.n_features() != model.n_features() {
         return Err(Failure {
             code: exit::BAD_INPUT,
@@ -67,7 +74,7 @@ pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
                 "`{}`: {} feature columns chosen ({}) but the model expects {}",
                 args.input.display(),
                 reader.n_features(),
-                reader.names.join(", "),
+                names.join(", "),
                 model.n_features()
             ),
         });
@@ -78,7 +85,11 @@ pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
     let mut weights = Vec::with_capacity(chunk_rows);
     let mut total = 0usize;
     while reader.next_chunk(&mut chunk, chunk_rows)? {
-        let x = MatrixView::named(&chunk.values, chunk.rows, reader.n_features(), "input")?;
+        if chunk.rows == 0 {
+            continue; // every row of this chunk was dropped for a gap
+        }
+        let values = numeric_rows(&args.input, &names, &chunk.columns, &chunk.row_numbers)?;
+        let x = MatrixView::named(&values, chunk.rows, reader.n_features(), "input")?;
         weights.resize(chunk.rows, 0.0);
         model.ratio_into(x, &mut weights)?;
         out.write(&weights, chunk.keys.as_deref())?;

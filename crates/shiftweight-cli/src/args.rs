@@ -1,6 +1,7 @@
 //! Options shared by the commands that read tables.
 
 use crate::io::{ColumnChoice, FileOptions, Format};
+use crate::read::TypeOverrides;
 use clap::Args;
 
 /// How input files are read and which columns are used.
@@ -21,8 +22,15 @@ pub struct InputArgs {
     /// CSV field delimiter: one character, or `tab`.
     #[arg(long, default_value = ",", value_parser = parse_delimiter)]
     pub delimiter: u8,
-    /// Skip rows with a missing or non-numeric value in a used column (the count is reported)
-    /// instead of failing; skipped rows get no weight.
+    /// Columns read as categorical (levels as text), comma-separated; overrides the inferred type.
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    pub categorical: Vec<String>,
+    /// Columns read as numeric, comma-separated; overrides the inferred type (a value that is
+    /// not a number is then an error naming its row).
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    pub numeric: Vec<String>,
+    /// Skip rows with a missing value in a used column (the count is reported) instead of keeping
+    /// them; skipped rows get no weight.
     #[arg(long)]
     pub drop_missing: bool,
 }
@@ -52,6 +60,13 @@ impl InputArgs {
             columns: self.columns.clone(),
             exclude: self.exclude.clone(),
             key: self.key.clone(),
+        }
+    }
+    /// Column types given on the command line.
+    pub fn types(&self) -> TypeOverrides {
+        TypeOverrides {
+            numeric: self.numeric.clone(),
+            categorical: self.categorical.clone(),
         }
     }
 }

@@ -43,9 +43,10 @@ pub struct DetectCmdArgs {
 pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
     let progress = Progress::new(g.quiet);
     let opts = args.input.file_options();
+    let types = args.input.types();
     let source = {
         let _s = progress.step("reading source rows");
-        read_table(&args.source, &opts, &args.input.choice())?
+        read_table(&args.source, &opts, &args.input.choice(), &types)?
     };
     let target_choice = ColumnChoice {
         columns: Some(source.names.clone()),
@@ -54,7 +55,7 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let target = {
         let _s = progress.step("reading target rows");
-        read_table(&args.target, &opts, &target_choice)?
+        read_table(&args.target, &opts, &target_choice, &types)?
     };
     let outcome = {
         let _s = progress.step("testing for a shift");

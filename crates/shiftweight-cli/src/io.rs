@@ -1,16 +1,16 @@
-//! The file layer: tables in (CSV with a header, or Parquet), weights and reports out.
+//! The file layer: input options, whole tables for fitting, and outputs (weights, reports).
 //!
-//! Reading goes through one streaming [`TableReader`] that yields chunks of at most a given number
-//! of rows, so `apply` runs in memory independent of the row count; [`read_table`] simply collects
-//! every chunk. Columns are chosen by name. A missing or non-numeric value is an error naming the
-//! file, the data row (1-based, the header not counted) and the column, unless the caller asked to
-//! drop such rows, in which case they are counted.
+//! Reading itself lives in [`crate::read`] (typed columns, streamed in chunks). [`read_table`]
+//! collects a whole table of numeric columns; a categorical column, or a missing value unless
+//! rows with gaps are dropped, is an error naming the file, the data row (1-based, the header not
+//! counted) and the column.
 //!
 //! Every output goes through [`AtomicFile`]: written to a temporary file in the destination's
 //! directory, flushed and fsynced, then renamed over the destination, so a failed run leaves any
 //! earlier file of that name untouched.
 
-use crate::{exit, Failure};
+use crate::read::{bad, io_fail, read_typed, TypeOverrides, Values};
+use crate::Failure;
 use clap::ValueEnum;
 use std::fs::{self, File};
 use std::io::{BufWriter, Write};
@@ -21,7 +21,7 @@ use std::path::{Path, PathBuf};
 pub enum Format {
     /// Delimited text with a header line.
     Csv,
-    /// Apache Parquet (uncompressed, snappy, lz4 or gzip pages).
+    /// Apache Parquet (uncompressed, snappy, gzip, lz4, zstd or brotli pages).
     Parquet,
 }
 
@@ -32,12 +32,12 @@ pub struct FileOptions {
     pub format: Option<Format>,
     /// CSV field delimiter.
     pub delimiter: u8,
-    /// Drop rows with a missing or non-numeric value instead of failing.
+    /// Drop rows with a missing value in any feature column.
     pub drop_missing: bool,
 }
 
 impl FileOptions {
-    fn format_of(&self, path: &Path) -> Format {
+    pub(crate) fn format_of(&self, path: &Path) -> Format {
         if let Some(f) = self.format {
             return f;
         }
@@ -63,448 +63,7 @@ pub struct ColumnChoice {
     pub key: Option<String>,
 }
 
-/// Text treated as a missing value (after trimming spaces).
-const MISSING_TOKENS: [&str; 8] = ["", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"];
-
-fn bad(message: String) -> Failure {
-    Failure {
-        code: exit::BAD_INPUT,
-        message,
-    }
-}
-
-fn io_fail(path: &Path, what: &str, e: impl std::fmt::Display) -> Failure {
-    Failure {
-        code: exit::IO,
-        message: format!("{what} `{}`: {e}", path.display()),
-    }
-}
-
-/// One chunk of rows: row-major feature values and, if a key column was named, the keys.
-#[derive(Debug, Default)]
-pub struct Chunk {
-    /// `rows * n_features` values, row-major.
-    pub values: Vec<f64>,
-    /// One key per row when a key column was named.
-    pub keys: Option<Vec<String>>,
-    /// Number of rows in this chunk.
-    pub rows: usize,
-}
-
-impl Chunk {
-    fn clear(&mut self, keyed: bool) {
-        self.values.clear();
-        self.rows = 0;
-        if keyed {
-            self.keys.get_or_insert_with(Vec::new).clear();
-        } else {
-            self.keys = None;
-        }
-    }
-}
-
-/// Why a field could not be used as a number.
-enum FieldProblem {
-    Missing,
-    NotNumeric(String),
-}
-
-fn parse_number(text: &str) -> Result<f64, FieldProblem> {
-    let t = text.trim();
-    if MISSING_TOKENS.contains(&t) {
-        return Err(FieldProblem::Missing);
-    }
-    match t.parse::<f64>() {
-        Ok(v) if v.is_finite() => Ok(v),
-        Ok(_) => Err(FieldProblem::NotNumeric(t.to_string())),
-        Err(_) => Err(FieldProblem::NotNumeric(t.to_string())),
-    }
-}
-
-enum Source {
-    Csv {
-        reader: csv::Reader<File>,
-        record: csv::StringRecord,
-        positions: Vec<usize>,
-        key_pos: Option<usize>,
-    },
-    Parquet {
-        rows: parquet::record::reader::RowIter<'static>,
-        n_cols: usize,
-        key: Option<String>,
-    },
-}
-
-/// Streams a table in chunks of rows, choosing feature columns by name.
-pub struct TableReader {
-    path: PathBuf,
-    source: Source,
-    /// Names of the feature columns, in output order.
-    pub names: Vec<String>,
-    keyed: bool,
-    drop_missing: bool,
-    /// Data rows read so far (1-based numbering of the next row is `rows_seen + 1`).
-    pub rows_seen: usize,
-    /// Rows dropped because of missing or non-numeric values.
-    pub rows_dropped: usize,
-    row_buf: Vec<f64>,
-}
-
-/// Resolves the chosen columns against a header, returning feature positions and key position.
-fn resolve(
-    path: &Path,
-    header: &[String],
-    choice: &ColumnChoice,
-) -> Result<(Vec<usize>, Option<usize>), Failure> {
-    let find = |name: &str, what: &str| -> Result<usize, Failure> {
-        header.iter().position(|h| h == name).ok_or_else(|| {
-            bad(format!(
-                "{what} `{name}` is not in `{}`; its columns are: {}",
-                path.display(),
-                header.join(", ")
-            ))
-        })
-    };
-    for (i, h) in header.iter().enumerate() {
-        if header[..i].contains(h) {
-            return Err(bad(format!(
-                "`{}` has the column name `{h}` more than once",
-                path.display()
-            )));
-        }
-    }
-    let key_pos = match &choice.key {
-        Some(k) => Some(find(k, "key column")?),
-        None => None,
-    };
-    for e in &choice.exclude {
-        find(e, "excluded column")?;
-    }
-    let positions: Vec<usize> = match &choice.columns {
-        Some(cols) => {
-            let mut p = Vec::with_capacity(cols.len());
-            for c in cols {
-                let j = find(c, "column")?;
-                if Some(j) == key_pos {
-                    return Err(bad(format!(
-                        "column `{c}` is the key column; a key cannot also be a feature"
-                    )));
-                }
-                if p.contains(&j) {
-                    return Err(bad(format!("column `{c}` is named twice in --columns")));
-                }
-                p.push(j);
-            }
-            p
-        }
-        None => (0..header.len())
-            .filter(|j| Some(*j) != key_pos && !choice.exclude.contains(&header[*j]))
-            .collect(),
-    };
-    if positions.is_empty() {
-        return Err(bad(format!(
-            "no feature columns are left to read in `{}`",
-            path.display()
-        )));
-    }
-    Ok((positions, key_pos))
-}
-
-impl TableReader {
-    /// Opens `path` and resolves the chosen columns against its header.
-    pub fn open(path: &Path, opts: &FileOptions, choice: &ColumnChoice) -> Result<Self, Failure> {
-        let file = File::open(path).map_err(|e| io_fail(path, "cannot open", e))?;
-        let (source, names) = match opts.format_of(path) {
-            Format::Csv => {
-                let mut reader = csv::ReaderBuilder::new()
-                    .delimiter(opts.delimiter)
-                    .has_headers(true)
-                    .flexible(false)
-                    .from_reader(file);
-                let header: Vec<String> = reader
-                    .headers()
-                    .map_err(|e| csv_fail(path, e))?
-                    .iter()
-                    .map(|h| h.trim().to_string())
-                    .collect();
-                if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-                    return Err(bad(format!(
-                        "`{}` is empty or has no header line",
-                        path.display()
-                    )));
-                }
-                let (positions, key_pos) = resolve(path, &header, choice)?;
-                let names = positions.iter().map(|&j| header[j].clone()).collect();
-                (
-                    Source::Csv {
-                        reader,
-                        record: csv::StringRecord::new(),
-                        positions,
-                        key_pos,
-                    },
-                    names,
-                )
-            }
-            Format::Parquet => open_parquet(path, file, choice)?,
-        };
-        let n = match &source {
-            Source::Csv { positions, .. } => positions.len(),
-            Source::Parquet { n_cols, .. } => *n_cols,
-        };
-        Ok(TableReader {
-            path: path.to_path_buf(),
-            source,
-            names,
-            keyed: choice.key.is_some(),
-            drop_missing: opts.drop_missing,
-            rows_seen: 0,
-            rows_dropped: 0,
-            row_buf: vec![0.0; n],
-        })
-    }
-
-    /// Number of feature columns.
-    pub fn n_features(&self) -> usize {
-        self.names.len()
-    }
-
-    fn field_error(&self, row: usize, column: &str, problem: FieldProblem) -> Failure {
-        let what = match problem {
-            FieldProblem::Missing => "a missing value".to_string(),
-            FieldProblem::NotNumeric(t) => format!("the non-numeric value \"{t}\""),
-        };
-        bad(format!(
-            "`{}`, data row {row} (1-based, header not counted), column `{column}`: {what}; \
-             fix the file, choose other columns, or pass --drop-missing to skip such rows",
-            self.path.display()
-        ))
-    }
-
-    /// Reads up to `max_rows` rows into `chunk` (cleared first). Returns false at end of file.
-    pub fn next_chunk(&mut self, chunk: &mut Chunk, max_rows: usize) -> Result<bool, Failure> {
-        chunk.clear(self.keyed);
-        while chunk.rows < max_rows {
-            let row = self.rows_seen + 1;
-            // Fill row_buf (and the key) for one row, or find the end of the file.
-            let (ok, key) = match &mut self.source {
-                Source::Csv {
-                    reader,
-                    record,
-                    positions,
-                    key_pos,
-                } => {
-                    match reader.read_record(record) {
-                        Ok(false) => return Ok(chunk.rows > 0),
-                        Ok(true) => {}
-                        Err(e) => return Err(csv_fail(&self.path, e)),
-                    }
-                    self.rows_seen += 1;
-                    let mut problem = None;
-                    for (slot, &j) in self.row_buf.iter_mut().zip(positions.iter()) {
-                        match parse_number(record.get(j).unwrap_or("")) {
-                            Ok(v) => *slot = v,
-                            Err(p) => {
-                                problem = Some((j, p));
-                                break;
-                            }
-                        }
-                    }
-                    let key = key_pos.map(|k| record.get(k).unwrap_or("").to_string());
-                    match problem {
-                        None => (Ok(()), key),
-                        Some((j, p)) => {
-                            let name = self.names
-                                [positions.iter().position(|&q| q == j).unwrap_or(0)]
-                            .clone();
-                            (Err((name, p)), key)
-                        }
-                    }
-                }
-                Source::Parquet {
-                    rows,
-                    key: key_name,
-                    ..
-                } => {
-                    let r = match rows.next() {
-                        None => return Ok(chunk.rows > 0),
-                        Some(Err(e)) => return Err(parquet_fail(&self.path, e)),
-                        Some(Ok(r)) => r,
-                    };
-                    self.rows_seen += 1;
-                    let mut key = None;
-                    let mut problem = None;
-                    let mut k = 0;
-                    for (name, field) in r.get_column_iter() {
-                        if key.is_none() && Some(name) == key_name.as_ref() {
-                            key = Some(field_text(field));
-                            continue;
-                        }
-                        if problem.is_some() || k >= self.row_buf.len() {
-                            continue;
-                        }
-                        match field_number(field) {
-                            Ok(v) => self.row_buf[k] = v,
-                            Err(p) => problem = Some((name.clone(), p)),
-                        }
-                        k += 1;
-                    }
-                    match problem {
-                        None => (Ok(()), key),
-                        Some(p) => (Err(p), key),
-                    }
-                }
-            };
-            match ok {
-                Ok(()) => {
-                    chunk.values.extend_from_slice(&self.row_buf);
-                    if let Some(keys) = chunk.keys.as_mut() {
-                        keys.push(key.unwrap_or_default());
-                    }
-                    chunk.rows += 1;
-                }
-                Err((name, p)) => {
-                    if self.drop_missing {
-                        self.rows_dropped += 1;
-                    } else {
-                        return Err(self.field_error(row, &name, p));
-                    }
-                }
-            }
-        }
-        Ok(true)
-    }
-}
-
-fn csv_fail(path: &Path, e: csv::Error) -> Failure {
-    let code = if e.is_io_error() {
-        exit::IO
-    } else {
-        exit::BAD_INPUT
-    };
-    let at = e
-        .position()
-        .map(|p| format!(" (line {})", p.line()))
-        .unwrap_or_default();
-    let detail = match e.kind() {
-        csv::ErrorKind::UnequalLengths {
-            expected_len, len, ..
-        } => {
-            format!("a line has {len} fields but the header has {expected_len}")
-        }
-        _ => e.to_string(),
-    };
-    Failure {
-        code,
-        message: format!("cannot read `{}`{at}: {detail}", path.display()),
-    }
-}
-
-fn parquet_fail(path: &Path, e: parquet::errors::ParquetError) -> Failure {
-    let code = match e {
-        parquet::errors::ParquetError::External(_) => exit::IO,
-        _ => exit::BAD_INPUT,
-    };
-    Failure {
-        code,
-        message: format!("cannot read Parquet file `{}`: {e}", path.display()),
-    }
-}
-
-fn field_number(f: &parquet::record::Field) -> Result<f64, FieldProblem> {
-    use parquet::record::Field as F;
-    let v = match f {
-        F::Null => return Err(FieldProblem::Missing),
-        F::Bool(b) => f64::from(u8::from(*b)),
-        F::Byte(v) => f64::from(*v),
-        F::Short(v) => f64::from(*v),
-        F::Int(v) => f64::from(*v),
-        F::Long(v) => *v as f64,
-        F::UByte(v) => f64::from(*v),
-        F::UShort(v) => f64::from(*v),
-        F::UInt(v) => f64::from(*v),
-        F::ULong(v) => *v as f64,
-        F::Float(v) => f64::from(*v),
-        F::Double(v) => *v,
-        F::Str(s) => return parse_number(s),
-        other => return Err(FieldProblem::NotNumeric(other.to_string())),
-    };
-    if v.is_nan() {
-        Err(FieldProblem::Missing)
-    } else if !v.is_finite() {
-        Err(FieldProblem::NotNumeric(v.to_string()))
-    } else {
-        Ok(v)
-    }
-}
-
-fn field_text(f: &parquet::record::Field) -> String {
-    match f {
-        parquet::record::Field::Str(s) => s.clone(),
-        parquet::record::Field::Null => String::new(),
-        other => other.to_string(),
-    }
-}
-
-fn open_parquet(
-    path: &Path,
-    file: File,
-    choice: &ColumnChoice,
-) -> Result<(Source, Vec<String>), Failure> {
-    use parquet::file::reader::{FileReader, SerializedFileReader};
-    use parquet::schema::types::Type;
-    let reader = SerializedFileReader::new(file).map_err(|e| parquet_fail(path, e))?;
-    let root = reader
-        .metadata()
-        .file_metadata()
-        .schema_descr()
-        .root_schema()
-        .clone();
-    let fields = root.get_fields().to_vec();
-    let header: Vec<String> = fields.iter().map(|f| f.name().to_string()).collect();
-    let (positions, key_pos) = resolve(path, &header, choice)?;
-    for &j in &positions {
-        if !fields[j].is_primitive() {
-            return Err(bad(format!(
-                "column `{}` of `{}` is nested (a list, map or struct); only plain numeric columns can be features",
-                header[j],
-                path.display()
-            )));
-        }
-    }
-    // The row reader yields projected columns in file order; features must come out in the
-    // chosen order, so project on file order and check it matches (or reorder below).
-    let mut proj: Vec<usize> = positions.clone();
-    proj.extend(key_pos);
-    proj.sort_unstable();
-    let projected = Type::group_type_builder(root.name())
-        .with_fields(proj.iter().map(|&j| fields[j].clone()).collect())
-        .build()
-        .map_err(|e| parquet_fail(path, e))?;
-    let rows = parquet::record::reader::RowIter::from_file_into(Box::new(reader))
-        .project(Some(projected))
-        .map_err(|e| parquet_fail(path, e))?;
-    // Features come out in file order; record that order as the names.
-    let ordered: Vec<usize> = proj.into_iter().filter(|j| Some(*j) != key_pos).collect();
-    if ordered != positions {
-        return Err(bad(format!(
-            "for Parquet input, --columns must list the columns in the order they appear in `{}` ({})",
-            path.display(),
-            ordered.iter().map(|&j| header[j].as_str()).collect::<Vec<_>>().join(", ")
-        )));
-    }
-    let names = positions.iter().map(|&j| header[j].clone()).collect();
-    let n_cols = positions.len();
-    Ok((
-        Source::Parquet {
-            rows,
-            n_cols,
-            key: choice.key.clone(),
-        },
-        names,
-    ))
-}
-
-/// A whole table in memory.
+/// A whole table of numeric columns in memory, row-major.
 #[derive(Debug)]
 pub struct Table {
     /// Feature names in column order.
@@ -515,7 +74,7 @@ pub struct Table {
     pub keys: Option<Vec<String>>,
     /// Rows kept.
     pub rows: usize,
-    /// Rows dropped for missing or non-numeric values.
+    /// Rows dropped for missing values.
     pub rows_dropped: usize,
 }
 
@@ -531,38 +90,60 @@ impl Table {
     }
 }
 
-/// Reads a whole table (for fitting), through the same streaming reader as `apply`.
+/// Row-major numbers of typed columns that must all be numeric and complete: a categorical column
+/// or a missing value is an error naming the file, the column and (for a gap) the data row.
+pub fn numeric_rows(
+    path: &Path,
+    names: &[String],
+    columns: &[Values],
+    row_numbers: &[usize],
+) -> Result<Vec<f64>, Failure> {
+    let rows = row_numbers.len();
+    let d = columns.len();
+    let mut out = vec![0.0; rows * d];
+    for (j, col) in columns.iter().enumerate() {
+        let Values::Numeric(v) = col else {
+            return Err(bad(format!(
+                "column `{}` of `{}` holds text and is read as categorical; these commands \
+                 need numeric columns: leave it out with --exclude {}",
+                names[j],
+                path.display(),
+                names[j]
+            )));
+        };
+        for (i, &x) in v.iter().enumerate() {
+            if x.is_nan() {
+                return Err(bad(format!(
+                    "`{}`, data row {} (1-based, header not counted), column `{}`: a missing \
+                     value; fix the file, or pass --drop-missing to skip rows with missing values",
+                    path.display(),
+                    row_numbers[i],
+                    names[j]
+                )));
+            }
+            out[i * d + j] = x;
+        }
+    }
+    Ok(out)
+}
+
+/// Reads a whole table of numeric columns (for fitting).
 pub fn read_table(
     path: &Path,
     opts: &FileOptions,
     choice: &ColumnChoice,
+    types: &TypeOverrides,
 ) -> Result<Table, Failure> {
-    let mut reader = TableReader::open(path, opts, choice)?;
-    let mut table = Table {
-        names: reader.names.clone(),
-        values: Vec::new(),
-        keys: choice.key.as_ref().map(|_| Vec::new()),
-        rows: 0,
-        rows_dropped: 0,
-    };
-    let mut chunk = Chunk::default();
-    while reader.next_chunk(&mut chunk, 65_536)? {
-        table.values.extend_from_slice(&chunk.values);
-        if let (Some(all), Some(part)) = (table.keys.as_mut(), chunk.keys.as_mut()) {
-            all.append(part);
-        }
-        table.rows += chunk.rows;
-    }
-    table.rows_dropped = reader.rows_dropped;
-    if table.rows == 0 {
-        return Err(bad(format!(
-            "`{}` has no usable data rows ({} read, {} dropped)",
-            path.display(),
-            reader.rows_seen,
-            reader.rows_dropped
-        )));
-    }
-    Ok(table)
+    let t = read_typed(path, opts, choice, types)?;
+    let names = t.names();
+    let values = numeric_rows(path, &names, &t.values, &t.row_numbers)?;
+    Ok(Table {
+        names,
+        values,
+        keys: t.keys,
+        rows: t.rows,
+        rows_dropped: t.rows_dropped,
+    })
 }
 
 /// An output file written atomically: a temporary file in the same directory, renamed over the
@@ -722,21 +303,6 @@ fn csv_field(s: &str) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn missing_tokens_and_numbers() {
-        assert!(matches!(parse_number(" 1.5 "), Ok(v) if v == 1.5));
-        assert!(matches!(parse_number("NA"), Err(FieldProblem::Missing)));
-        assert!(matches!(parse_number(""), Err(FieldProblem::Missing)));
-        assert!(matches!(
-            parse_number("abc"),
-            Err(FieldProblem::NotNumeric(_))
-        ));
-        assert!(matches!(
-            parse_number("inf"),
-            Err(FieldProblem::NotNumeric(_))
-        ));
-    }
 
     #[test]
     fn csv_quoting() {

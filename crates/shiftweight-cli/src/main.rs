@@ -1,18 +1,21 @@
 //! The `shiftweight` command: batch steps of the covariate-shift workflow.
 //!
 //! `demo` runs the whole job on the invented scenario; `detect` tests for a shift; `weigh` fits
-//! importance weights for the source rows; `apply` scores new rows with a saved model, streaming.
+//! importance weights for the source rows; `apply` scores new rows with a saved model, streaming;
+//! `columns` shows how a table is read (column types, gaps, levels).
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
 mod apply;
 mod args;
+mod columns;
 mod demo;
 mod detect;
 mod estimators;
 mod io;
 mod progress;
+mod read;
 mod report;
 mod steps;
 mod svg;
@@ -76,6 +79,8 @@ enum Command {
     Weigh(weigh::WeighArgs),
     /// Scores rows with a saved model, streaming through the file in bounded memory.
     Apply(apply::ApplyArgs),
+    /// Shows how a table is read: each column's type (numeric or categorical), gaps and levels.
+    Columns(columns::ColumnsArgs),
 }
 
 /// Settings shared by every command.
@@ -135,6 +140,7 @@ fn main() -> ExitCode {
         Command::Detect(a) => detect::run(a, &g),
         Command::Weigh(a) => weigh::run(a, &g),
         Command::Apply(a) => apply::run(a, &g),
+        Command::Columns(a) => columns::run(a, &g),
     }));
     match result {
         Ok(Ok(code)) => ExitCode::from(code),

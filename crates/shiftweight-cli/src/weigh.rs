@@ -55,9 +55,10 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
     let estimator = build_estimator(&args.estimator, g.seed)?;
     let progress = Progress::new(g.quiet);
     let opts = args.input.file_options();
+    let types = args.input.types();
     let source = {
         let _s = progress.step("reading source rows");
-        read_table(&args.source, &opts, &args.input.choice())?
+        read_table(&args.source, &opts, &args.input.choice(), &types)?
     };
     // The target is read with exactly the source's feature columns, by name.
     let target_choice = ColumnChoice {
@@ -67,7 +68,7 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let target = {
         let _s = progress.step("reading target rows");
-        read_table(&args.target, &opts, &target_choice)?
+        read_table(&args.target, &opts, &target_choice, &types)?
     };
     let mut model = {
         let _s = progress.step("fitting the density-ratio model");

@@ -1,0 +1,960 @@
+//! Reading tables: CSV with a header, or Parquet, into typed columns, streamed in chunks of rows.
+//!
+//! Every feature column is either **numeric** (`f64`, missing as NaN) or **categorical** (levels
+//! as text, each value a level code, missing as [`MISSING_CODE`]). A column's type is, in order
+//! of precedence: the type given for it (`--numeric` / `--categorical`, or the schema stored in a
+//! model file); for Parquet, the column's stored type (integers, floats and decimals are numeric;
+//! text, dictionary-encoded text and booleans are categorical); for CSV, numeric while every value
+//! read so far is a number or missing, categorical from the first other text on. When a CSV column
+//! turns categorical after numbers were read, those numbers become levels spelled in their
+//! shortest round-trip form (`1.50` becomes `1.5`); name the column with `--categorical` to keep
+//! its text exactly as written.
+//!
+//! Missing: an empty field or one of `NA`, `N/A`, `NaN`, `nan`, `null`, `NULL`, `None` (after
+//! trimming spaces) in CSV; a null or NaN in Parquet. A value that is not a number in a column
+//! given as numeric is an error naming the file, the data row (1-based, the header not counted)
+//! and the column.
+//!
+//! CSV: quoted fields (holding delimiters, quotes or line breaks), LF or CRLF line ends and a
+//! UTF-8 byte-order mark are handled by the `csv` crate's reader. Field conversion runs column
+//! by column in parallel over a chunk of records. Parquet goes through the Arrow record-batch
+//! reader (uncompressed, snappy, gzip, lz4, zstd and brotli pages; plain and dictionary-encoded
+//! columns; nullable columns). Memory is bounded by the chunk size plus the level dictionaries.
+//!
+//! Cost: O(rows x columns) conversions; each categorical value is one hash-table lookup (once
+//! per dictionary entry for dictionary-encoded Parquet columns).
+
+use crate::io::{ColumnChoice, FileOptions, Format};
+use crate::{exit, Failure};
+use arrow_array::{Array, ArrayRef, RecordBatch};
+use arrow_schema::DataType;
+use rayon::prelude::*;
+use std::collections::HashMap;
+use std::fs::File;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+/// The code of a missing categorical value.
+pub const MISSING_CODE: u32 = u32::MAX;
+
+/// Text treated as a missing value (after trimming spaces).
+const MISSING_TOKENS: [&str; 8] = ["", "NA", "N/A", "NaN", "nan", "null", "NULL", "None"];
+
+/// The type of a feature column.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ColumnType {
+    /// Numbers; missing as NaN.
+    Numeric,
+    /// Levels given as text; missing as [`MISSING_CODE`].
+    Categorical,
+}
+
+/// Types given for some columns by name (the rest are inferred).
+#[derive(Debug, Clone, Default)]
+pub struct TypeOverrides {
+    /// Columns read as numeric.
+    pub numeric: Vec<String>,
+    /// Columns read as categorical.
+    pub categorical: Vec<String>,
+}
+
+impl TypeOverrides {
+    fn of(&self, name: &str) -> Option<ColumnType> {
+        if self.categorical.iter().any(|c| c == name) {
+            Some(ColumnType::Categorical)
+        } else if self.numeric.iter().any(|c| c == name) {
+            Some(ColumnType::Numeric)
+        } else {
+            None
+        }
+    }
+
+    /// Checks that no column is given both types and that every named column is read.
+    pub fn check(&self, path: &Path, names: &[String]) -> Result<(), Failure> {
+        for c in &self.categorical {
+            if self.numeric.contains(c) {
+                return Err(bad(format!(
+                    "column `{c}` is given both in --categorical and in --numeric"
+                )));
+            }
+        }
+        for (flag, list) in [
+            ("--categorical", &self.categorical),
+            ("--numeric", &self.numeric),
+        ] {
+            for c in list {
+                if !names.contains(c) {
+                    return Err(bad(format!(
+                        "{flag} names `{c}`, which is not among the feature columns read from `{}` ({})",
+                        path.display(),
+                        names.join(", ")
+                    )));
+                }
+            }
+        }
+        Ok(())
+    }
+}
+
+/// The values of one column in one chunk.
+#[derive(Debug, Clone)]
+pub enum Values {
+    /// Numbers, NaN for missing.
+    Numeric(Vec<f64>),
+    /// Level codes into the reader's levels of that column, [`MISSING_CODE`] for missing.
+    Categorical(Vec<u32>),
+}
+
+impl Values {
+    /// Number of values.
+    pub fn len(&self) -> usize {
+        match self {
+            Values::Numeric(v) => v.len(),
+            Values::Categorical(v) => v.len(),
+        }
+    }
+
+    /// Whether value `i` is missing.
+    pub fn is_missing(&self, i: usize) -> bool {
+        match self {
+            Values::Numeric(v) => v[i].is_nan(),
+            Values::Categorical(v) => v[i] == MISSING_CODE,
+        }
+    }
+
+    /// Keeps the values where `keep` is true.
+    fn retain(&mut self, keep: &[bool]) {
+        fn go<T: Copy>(v: &mut Vec<T>, keep: &[bool]) {
+            let mut i = 0;
+            v.retain(|_| {
+                i += 1;
+                keep[i - 1]
+            });
+        }
+        match self {
+            Values::Numeric(v) => go(v, keep),
+            Values::Categorical(v) => go(v, keep),
+        }
+    }
+}
+
+/// One chunk of rows: one [`Values`] per feature column and, if a key column was named, the keys.
+#[derive(Debug, Default)]
+pub struct Chunk {
+    /// Feature columns in output order.
+    pub columns: Vec<Values>,
+    /// One key per row when a key column was named.
+    pub keys: Option<Vec<String>>,
+    /// Number of rows in this chunk.
+    pub rows: usize,
+    /// The 1-based data-row number of each kept row (used for messages).
+    pub row_numbers: Vec<usize>,
+}
+
+/// The state of one feature column across chunks: its type and, for a categorical column, its
+/// levels in order of first appearance.
+#[derive(Debug, Clone)]
+pub struct ColumnState {
+    /// Column name.
+    pub name: String,
+    /// Current type.
+    pub kind: ColumnType,
+    /// Whether the type was given (and so cannot change while reading).
+    pub fixed: bool,
+    /// Levels of a categorical column, indexed by code.
+    pub levels: Vec<String>,
+    index: HashMap<String, u32>,
+}
+
+impl ColumnState {
+    fn new(name: String, kind: Option<ColumnType>) -> Self {
+        ColumnState {
+            name,
+            kind: kind.unwrap_or(ColumnType::Numeric),
+            fixed: kind.is_some(),
+            levels: Vec::new(),
+            index: HashMap::new(),
+        }
+    }
+
+    /// The code of `level`, adding it if new.
+    pub fn intern(&mut self, level: &str) -> u32 {
+        if let Some(&c) = self.index.get(level) {
+            return c;
+        }
+        let c = self.levels.len() as u32;
+        self.levels.push(level.to_string());
+        self.index.insert(level.to_string(), c);
+        c
+    }
+
+    /// Level code of a number in a column that turned categorical (shortest round-trip text).
+    pub fn intern_number(&mut self, v: f64) -> u32 {
+        if v.is_nan() {
+            MISSING_CODE
+        } else {
+            self.intern(&v.to_string())
+        }
+    }
+
+    /// Turns numeric values already read into level codes.
+    pub fn numbers_to_codes(&mut self, values: &[f64]) -> Vec<u32> {
+        values.iter().map(|&v| self.intern_number(v)).collect()
+    }
+}
+
+/// Why a numeric field could not be read.
+enum Problem {
+    Missing,
+    NotNumeric,
+}
+
+fn parse_number(t: &str) -> Result<f64, Problem> {
+    if MISSING_TOKENS.contains(&t) {
+        return Err(Problem::Missing);
+    }
+    match t.parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        Ok(v) if v.is_nan() => Err(Problem::Missing),
+        _ => Err(Problem::NotNumeric),
+    }
+}
+
+fn field_text(bytes: &[u8]) -> std::borrow::Cow<'_, str> {
+    String::from_utf8_lossy(bytes)
+}
+
+pub(crate) fn bad(message: String) -> Failure {
+    Failure {
+        code: exit::BAD_INPUT,
+        message,
+    }
+}
+
+pub(crate) fn io_fail(path: &Path, what: &str, e: impl std::fmt::Display) -> Failure {
+    Failure {
+        code: exit::IO,
+        message: format!("{what} `{}`: {e}", path.display()),
+    }
+}
+
+enum Source {
+    Csv {
+        reader: csv::Reader<File>,
+        records: Vec<csv::ByteRecord>,
+        positions: Vec<usize>,
+        key_pos: Option<usize>,
+    },
+    Parquet {
+        batches: parquet::arrow::arrow_reader::ParquetRecordBatchReader,
+        /// Column index in the projected batch of each feature, and of the key.
+        feature_at: Vec<usize>,
+        key_at: Option<usize>,
+        /// A batch partly handed out, and the offset of its first unread row.
+        pending: Option<(RecordBatch, usize)>,
+    },
+}
+
+/// Streams a table in chunks of rows, choosing feature columns by name.
+pub struct TableReader {
+    path: PathBuf,
+    source: Source,
+    /// Feature columns in output order, with their types and levels.
+    pub columns: Vec<ColumnState>,
+    keyed: bool,
+    drop_missing: bool,
+    /// Data rows read so far.
+    pub rows_seen: usize,
+    /// Rows dropped because of missing values (only with `drop_missing`).
+    pub rows_dropped: usize,
+}
+
+/// Resolves the chosen columns against a header, returning feature positions and key position.
+fn resolve(
+    path: &Path,
+    header: &[String],
+    choice: &ColumnChoice,
+) -> Result<(Vec<usize>, Option<usize>), Failure> {
+    let find = |name: &str, what: &str| -> Result<usize, Failure> {
+        header.iter().position(|h| h == name).ok_or_else(|| {
+            bad(format!(
+                "{what} `{name}` is not in `{}`; its columns are: {}",
+                path.display(),
+                header.join(", ")
+            ))
+        })
+    };
+    for (i, h) in header.iter().enumerate() {
+        if header[..i].contains(h) {
+            return Err(bad(format!(
+                "`{}` has the column name `{h}` more than once",
+                path.display()
+            )));
+        }
+    }
+    let key_pos = match &choice.key {
+        Some(k) => Some(find(k, "key column")?),
+        None => None,
+    };
+    for e in &choice.exclude {
+        find(e, "excluded column")?;
+    }
+    let positions: Vec<usize> = match &choice.columns {
+        Some(cols) => {
+            let mut p = Vec::with_capacity(cols.len());
+            for c in cols {
+                let j = find(c, "column")?;
+                if Some(j) == key_pos {
+                    return Err(bad(format!(
+                        "column `{c}` is the key column; a key cannot also be a feature"
+                    )));
+                }
+                if p.contains(&j) {
+                    return Err(bad(format!("column `{c}` is named twice in --columns")));
+                }
+                p.push(j);
+            }
+            p
+        }
+        None => (0..header.len())
+            .filter(|j| Some(*j) != key_pos && !choice.exclude.contains(&header[*j]))
+            .collect(),
+    };
+    if positions.is_empty() {
+        return Err(bad(format!(
+            "no feature columns are left to read in `{}`",
+            path.display()
+        )));
+    }
+    Ok((positions, key_pos))
+}
+
+impl TableReader {
+    /// Opens `path`, resolves the chosen columns against its header and fixes the types given in
+    /// `types` (the others are inferred while reading).
+    pub fn open(
+        path: &Path,
+        opts: &FileOptions,
+        choice: &ColumnChoice,
+        types: &TypeOverrides,
+    ) -> Result<Self, Failure> {
+        let file = File::open(path).map_err(|e| io_fail(path, "cannot open", e))?;
+        let (source, columns) = match opts.format_of(path) {
+            Format::Csv => {
+                let mut reader = csv::ReaderBuilder::new()
+                    .delimiter(opts.delimiter)
+                    .has_headers(true)
+                    .flexible(false)
+                    .from_reader(file);
+                let header: Vec<String> = reader
+                    .headers()
+                    .map_err(|e| csv_fail(path, e))?
+                    .iter()
+                    .map(|h| h.trim().to_string())
+                    .collect();
+                if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
+                    return Err(bad(format!(
+                        "`{}` is empty or has no header line",
+                        path.display()
+                    )));
+                }
+                let (positions, key_pos) = resolve(path, &header, choice)?;
+                let columns = positions
+                    .iter()
+                    .map(|&j| ColumnState::new(header[j].clone(), types.of(&header[j])))
+                    .collect();
+                (
+                    Source::Csv {
+                        reader,
+                        records: Vec::new(),
+                        positions,
+                        key_pos,
+                    },
+                    columns,
+                )
+            }
+            Format::Parquet => open_parquet(path, file, choice, types)?,
+        };
+        let names: Vec<String> = columns.iter().map(|c| c.name.clone()).collect();
+        types.check(path, &names)?;
+        Ok(TableReader {
+            path: path.to_path_buf(),
+            source,
+            columns,
+            keyed: choice.key.is_some(),
+            drop_missing: opts.drop_missing,
+            rows_seen: 0,
+            rows_dropped: 0,
+        })
+    }
+
+    /// Names of the feature columns in output order.
+    pub fn names(&self) -> Vec<String> {
+        self.columns.iter().map(|c| c.name.clone()).collect()
+    }
+
+    /// Number of feature columns.
+    pub fn n_features(&self) -> usize {
+        self.columns.len()
+    }
+
+    /// Reads up to `max_rows` rows into `chunk` (replacing its contents). Returns false at the
+    /// end of the file (and then `chunk` holds no rows). With `drop_missing`, rows with a missing
+    /// value in any feature column are left out and counted.
+    pub fn next_chunk(&mut self, chunk: &mut Chunk, max_rows: usize) -> Result<bool, Failure> {
+        let max_rows = max_rows.max(1);
+        let first_row = self.rows_seen + 1;
+        let rows = match &mut self.source {
+            Source::Csv {
+                reader,
+                records,
+                positions,
+                key_pos,
+            } => {
+                let mut n = 0;
+                while n < max_rows {
+                    if records.len() == n {
+                        records.push(csv::ByteRecord::new());
+                    }
+                    match reader.read_byte_record(&mut records[n]) {
+                        Ok(false) => break,
+                        Ok(true) => n += 1,
+                        Err(e) => return Err(csv_fail(&self.path, e)),
+                    }
+                }
+                let recs = &records[..n];
+                let path = &self.path;
+                chunk.columns = self
+                    .columns
+                    .par_iter_mut()
+                    .zip(positions.par_iter())
+                    .map(|(col, &j)| csv_column(path, col, recs, j, first_row))
+                    .collect::<Result<Vec<_>, Failure>>()?;
+                chunk.keys = key_pos.map(|k| {
+                    recs.iter()
+                        .map(|r| field_text(r.get(k).unwrap_or(b"")).into_owned())
+                        .collect()
+                });
+                n
+            }
+            Source::Parquet {
+                batches,
+                feature_at,
+                key_at,
+                pending,
+            } => {
+                let mut parts: Vec<RecordBatch> = Vec::new();
+                let mut n = 0;
+                while n < max_rows {
+                    let (batch, off) = match pending.take() {
+                        Some(p) => p,
+                        None => match batches.next() {
+                            None => break,
+                            Some(Err(e)) => return Err(arrow_fail(&self.path, e)),
+                            Some(Ok(b)) => (b, 0),
+                        },
+                    };
+                    let take = (batch.num_rows() - off).min(max_rows - n);
+                    parts.push(batch.slice(off, take));
+                    n += take;
+                    if off + take < batch.num_rows() {
+                        *pending = Some((batch, off + take));
+                    }
+                }
+                let path = &self.path;
+                let cols: Vec<Vec<ArrayRef>> = feature_at
+                    .iter()
+                    .map(|&c| parts.iter().map(|b| b.column(c).clone()).collect())
+                    .collect();
+                chunk.columns = self
+                    .columns
+                    .par_iter_mut()
+                    .zip(cols.par_iter())
+                    .map(|(col, arrays)| {
+                        let mut out = match col.kind {
+                            ColumnType::Numeric => Values::Numeric(Vec::with_capacity(n)),
+                            ColumnType::Categorical => Values::Categorical(Vec::with_capacity(n)),
+                        };
+                        let mut row = first_row;
+                        for a in arrays {
+                            arrow_column(path, col, a, row, &mut out)?;
+                            row += a.len();
+                        }
+                        Ok(out)
+                    })
+                    .collect::<Result<Vec<_>, Failure>>()?;
+                chunk.keys = match key_at {
+                    Some(k) => {
+                        let mut keys = Vec::with_capacity(n);
+                        for b in &parts {
+                            arrow_text(path, b.column(*k), &mut keys)?;
+                        }
+                        Some(keys)
+                    }
+                    None => None,
+                };
+                n
+            }
+        };
+        self.rows_seen += rows;
+        chunk.rows = rows;
+        chunk.row_numbers.clear();
+        chunk.row_numbers.extend(first_row..first_row + rows);
+        if !self.keyed {
+            chunk.keys = None;
+        }
+        if self.drop_missing && rows > 0 {
+            let keep: Vec<bool> = (0..rows)
+                .map(|i| chunk.columns.iter().all(|c| !c.is_missing(i)))
+                .collect();
+            let kept = keep.iter().filter(|&&k| k).count();
+            if kept < rows {
+                for c in &mut chunk.columns {
+                    c.retain(&keep);
+                }
+                if let Some(keys) = chunk.keys.as_mut() {
+                    let mut i = 0;
+                    keys.retain(|_| {
+                        i += 1;
+                        keep[i - 1]
+                    });
+                }
+                let mut i = 0;
+                chunk.row_numbers.retain(|_| {
+                    i += 1;
+                    keep[i - 1]
+                });
+                self.rows_dropped += rows - kept;
+                chunk.rows = kept;
+            }
+        }
+        Ok(rows > 0)
+    }
+
+    /// An error for a value that is not a number in a column given as numeric.
+    fn not_numeric(path: &Path, row: usize, column: &str, text: &str) -> Failure {
+        bad(format!(
+            "`{}`, data row {row} (1-based, header not counted), column `{column}`: the value \
+             \"{text}\" is not a number, and the column is read as numeric; fix the file, or read \
+             the column as categorical with --categorical {column}",
+            path.display()
+        ))
+    }
+}
+
+/// Converts field `j` of `recs` for one column. A column not fixed to numeric turns categorical
+/// at the first non-numeric, non-missing text.
+fn csv_column(
+    path: &Path,
+    col: &mut ColumnState,
+    recs: &[csv::ByteRecord],
+    j: usize,
+    first_row: usize,
+) -> Result<Values, Failure> {
+    let text = |r| trimmed(r, j);
+    if col.kind == ColumnType::Numeric {
+        let mut out = Vec::with_capacity(recs.len());
+        let mut switch_at = None;
+        for (i, r) in recs.iter().enumerate() {
+            let t = text(r);
+            match parse_number(&t) {
+                Ok(v) => out.push(v),
+                Err(Problem::Missing) => out.push(f64::NAN),
+                Err(Problem::NotNumeric) if col.fixed => {
+                    return Err(TableReader::not_numeric(path, first_row + i, &col.name, &t));
+                }
+                Err(Problem::NotNumeric) => {
+                    switch_at = Some(i);
+                    break;
+                }
+            }
+        }
+        let Some(at) = switch_at else {
+            return Ok(Values::Numeric(out));
+        };
+        col.kind = ColumnType::Categorical;
+        let mut codes = col.numbers_to_codes(&out);
+        codes.reserve(recs.len() - at);
+        for r in &recs[at..] {
+            codes.push(level_code(col, &text(r)));
+        }
+        return Ok(Values::Categorical(codes));
+    }
+    Ok(Values::Categorical(
+        recs.iter().map(|r| level_code(col, &text(r))).collect(),
+    ))
+}
+
+/// Field `j` of a record, spaces trimmed (invalid UTF-8 replaced).
+fn trimmed(r: &csv::ByteRecord, j: usize) -> std::borrow::Cow<'_, str> {
+    let b = r.get(j).unwrap_or(b"");
+    match std::str::from_utf8(b) {
+        Ok(s) => std::borrow::Cow::Borrowed(s.trim()),
+        Err(_) => std::borrow::Cow::Owned(String::from_utf8_lossy(b).trim().to_string()),
+    }
+}
+
+fn level_code(col: &mut ColumnState, t: &str) -> u32 {
+    if MISSING_TOKENS.contains(&t) {
+        MISSING_CODE
+    } else {
+        col.intern(t)
+    }
+}
+
+/// Appends one Arrow column slice to `out`, in the column's type.
+fn arrow_column(
+    path: &Path,
+    col: &mut ColumnState,
+    a: &ArrayRef,
+    first_row: usize,
+    out: &mut Values,
+) -> Result<(), Failure> {
+    use arrow_array::cast::AsArray;
+    match out {
+        Values::Numeric(v) => {
+            if is_text(a.data_type()) {
+                // A text column given as numeric: parse every value.
+                let mut texts = Vec::with_capacity(a.len());
+                arrow_optional_text(path, a, &mut texts)?;
+                for (i, t) in texts.into_iter().enumerate() {
+                    match t.as_deref().map(str::trim) {
+                        None => v.push(f64::NAN),
+                        Some(s) => match parse_number(s) {
+                            Ok(x) => v.push(x),
+                            Err(Problem::Missing) => v.push(f64::NAN),
+                            Err(Problem::NotNumeric) => {
+                                return Err(TableReader::not_numeric(
+                                    path,
+                                    first_row + i,
+                                    &col.name,
+                                    s,
+                                ))
+                            }
+                        },
+                    }
+                }
+                return Ok(());
+            }
+            let f = arrow_cast::cast(a, &DataType::Float64).map_err(|_| {
+                bad(format!(
+                    "column `{}` of `{}` has the Parquet/Arrow type {}, which cannot be read as \
+                     numbers or levels; leave it out with --exclude {}",
+                    col.name,
+                    path.display(),
+                    a.data_type(),
+                    col.name
+                ))
+            })?;
+            let f = f.as_primitive::<arrow_array::types::Float64Type>();
+            if f.null_count() == 0 {
+                v.extend(
+                    f.values()
+                        .iter()
+                        .map(|&x| if x.is_finite() { x } else { f64::NAN }),
+                );
+            } else {
+                v.extend(f.iter().map(|x| match x {
+                    Some(x) if x.is_finite() => x,
+                    _ => f64::NAN,
+                }));
+            }
+            if let Some(i) = f.values().iter().position(|x| x.is_infinite()) {
+                return Err(bad(format!(
+                    "`{}`, data row {} (1-based), column `{}`: an infinite value",
+                    path.display(),
+                    first_row + i,
+                    col.name
+                )));
+            }
+            Ok(())
+        }
+        Values::Categorical(codes) => {
+            if let Some(d) = a.as_any_dictionary_opt() {
+                // Intern each dictionary entry once, then map the keys.
+                let mut entries = Vec::new();
+                arrow_optional_text(path, d.values(), &mut entries)?;
+                let map: Vec<u32> = entries
+                    .iter()
+                    .map(|e| match e.as_deref().map(str::trim) {
+                        Some(t) => level_code(col, t),
+                        None => MISSING_CODE,
+                    })
+                    .collect();
+                let keys = d.normalized_keys();
+                let nulls = d.keys().logical_nulls();
+                for (i, k) in keys.into_iter().enumerate() {
+                    let null = nulls.as_ref().is_some_and(|n| n.is_null(i));
+                    codes.push(if null { MISSING_CODE } else { map[k] });
+                }
+                return Ok(());
+            }
+            let mut texts = Vec::with_capacity(a.len());
+            arrow_optional_text(path, a, &mut texts)?;
+            codes.extend(
+                texts
+                    .into_iter()
+                    .map(|t| match t.as_deref().map(str::trim) {
+                        Some(t) => level_code(col, t),
+                        None => MISSING_CODE,
+                    }),
+            );
+            Ok(())
+        }
+    }
+}
+
+fn is_text(t: &DataType) -> bool {
+    match t {
+        DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => true,
+        DataType::Dictionary(_, v) => is_text(v),
+        _ => false,
+    }
+}
+
+/// Whether an Arrow type is read as categorical when no type is given.
+fn is_categorical_type(t: &DataType) -> bool {
+    match t {
+        DataType::Boolean => true,
+        DataType::Dictionary(_, v) => is_categorical_type(v),
+        other => is_text(other),
+    }
+}
+
+/// The values of an Arrow array as optional text (None for null); numbers and booleans are
+/// spelled by Arrow's cast to text.
+fn arrow_optional_text(
+    path: &Path,
+    a: &dyn Array,
+    out: &mut Vec<Option<String>>,
+) -> Result<(), Failure> {
+    use arrow_array::cast::AsArray;
+    let s = arrow_cast::cast(a, &DataType::Utf8).map_err(|e| arrow_fail(path, e))?;
+    let s = s.as_string::<i32>();
+    out.extend(s.iter().map(|x| x.map(str::to_string)));
+    Ok(())
+}
+
+/// Key column values as text (null as the empty string).
+fn arrow_text(path: &Path, a: &ArrayRef, out: &mut Vec<String>) -> Result<(), Failure> {
+    let mut t = Vec::with_capacity(a.len());
+    arrow_optional_text(path, a, &mut t)?;
+    out.extend(t.into_iter().map(Option::unwrap_or_default));
+    Ok(())
+}
+
+fn csv_fail(path: &Path, e: csv::Error) -> Failure {
+    let code = if e.is_io_error() {
+        exit::IO
+    } else {
+        exit::BAD_INPUT
+    };
+    let at = e
+        .position()
+        .map(|p| format!(" (line {})", p.line()))
+        .unwrap_or_default();
+    let detail = match e.kind() {
+        csv::ErrorKind::UnequalLengths {
+            expected_len, len, ..
+        } => {
+            format!("a line has {len} fields but the header has {expected_len}")
+        }
+        _ => e.to_string(),
+    };
+    Failure {
+        code,
+        message: format!("cannot read `{}`{at}: {detail}", path.display()),
+    }
+}
+
+fn parquet_fail(path: &Path, e: parquet::errors::ParquetError) -> Failure {
+    let code = match e {
+        parquet::errors::ParquetError::External(_) => exit::IO,
+        _ => exit::BAD_INPUT,
+    };
+    Failure {
+        code,
+        message: format!("cannot read Parquet file `{}`: {e}", path.display()),
+    }
+}
+
+fn arrow_fail(path: &Path, e: arrow_schema::ArrowError) -> Failure {
+    let code = match e {
+        arrow_schema::ArrowError::IoError(..) => exit::IO,
+        _ => exit::BAD_INPUT,
+    };
+    Failure {
+        code,
+        message: format!("cannot read Parquet file `{}`: {e}", path.display()),
+    }
+}
+
+fn open_parquet(
+    path: &Path,
+    file: File,
+    choice: &ColumnChoice,
+    types: &TypeOverrides,
+) -> Result<(Source, Vec<ColumnState>), Failure> {
+    use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+    use parquet::arrow::ProjectionMask;
+    let builder =
+        ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| parquet_fail(path, e))?;
+    let schema: Arc<arrow_schema::Schema> = builder.schema().clone();
+    let header: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
+    let (positions, key_pos) = resolve(path, &header, choice)?;
+    let mut columns = Vec::with_capacity(positions.len());
+    for &j in &positions {
+        let f = schema.field(j);
+        let t = f.data_type();
+        if t.is_nested() {
+            return Err(bad(format!(
+                "column `{}` of `{}` is nested ({t}); only plain columns can be features",
+                header[j],
+                path.display()
+            )));
+        }
+        let kind = types.of(&header[j]).or(if is_categorical_type(t) {
+            Some(ColumnType::Categorical)
+        } else {
+            Some(ColumnType::Numeric)
+        });
+        let mut c = ColumnState::new(header[j].clone(), kind);
+        c.fixed = true;
+        columns.push(c);
+    }
+    // The batches hold the projected columns in file order.
+    let mut proj: Vec<usize> = positions.clone();
+    proj.extend(key_pos);
+    proj.sort_unstable();
+    let at = |j: usize| proj.iter().position(|&p| p == j).unwrap_or(0);
+    let feature_at = positions.iter().map(|&j| at(j)).collect();
+    let key_at = key_pos.map(at);
+    let mask = ProjectionMask::roots(builder.parquet_schema(), proj.iter().copied());
+    let batches = builder
+        .with_projection(mask)
+        .with_batch_size(65_536)
+        .build()
+        .map_err(|e| parquet_fail(path, e))?;
+    Ok((
+        Source::Parquet {
+            batches,
+            feature_at,
+            key_at,
+            pending: None,
+        },
+        columns,
+    ))
+}
+
+/// A whole table in memory, columns typed.
+#[derive(Debug)]
+pub struct TypedTable {
+    /// Feature columns with their final types and levels.
+    pub columns: Vec<ColumnState>,
+    /// One [`Values`] per column, every one `rows` long.
+    pub values: Vec<Values>,
+    /// Keys when a key column was named.
+    pub keys: Option<Vec<String>>,
+    /// Rows kept.
+    pub rows: usize,
+    /// Rows dropped for missing values.
+    pub rows_dropped: usize,
+    /// The 1-based data-row number of each kept row.
+    pub row_numbers: Vec<usize>,
+}
+
+impl TypedTable {
+    /// Names of the feature columns.
+    pub fn names(&self) -> Vec<String> {
+        self.columns.iter().map(|c| c.name.clone()).collect()
+    }
+}
+
+/// Reads a whole table (for fitting), through the same streaming reader as `apply`.
+pub fn read_typed(
+    path: &Path,
+    opts: &FileOptions,
+    choice: &ColumnChoice,
+    types: &TypeOverrides,
+) -> Result<TypedTable, Failure> {
+    let mut reader = TableReader::open(path, opts, choice, types)?;
+    let mut values: Vec<Values> = reader
+        .columns
+        .iter()
+        .map(|c| match c.kind {
+            ColumnType::Numeric => Values::Numeric(Vec::new()),
+            ColumnType::Categorical => Values::Categorical(Vec::new()),
+        })
+        .collect();
+    let mut keys = choice.key.as_ref().map(|_| Vec::new());
+    let mut rows = 0;
+    let mut row_numbers = Vec::new();
+    let mut chunk = Chunk::default();
+    while reader.next_chunk(&mut chunk, 65_536)? {
+        for (j, part) in chunk.columns.drain(..).enumerate() {
+            match (&mut values[j], part) {
+                (Values::Numeric(all), Values::Numeric(p)) => all.extend_from_slice(&p),
+                (Values::Categorical(all), Values::Categorical(p)) => all.extend_from_slice(&p),
+                (all @ Values::Numeric(_), Values::Categorical(p)) => {
+                    // The column turned categorical in this chunk: recode what came before.
+                    let Values::Numeric(before) = &*all else {
+                        unreachable!()
+                    };
+                    let mut codes = reader.columns[j].numbers_to_codes(before);
+                    codes.extend_from_slice(&p);
+                    *all = Values::Categorical(codes);
+                }
+                (Values::Categorical(_), Values::Numeric(_)) => {
+                    unreachable!("a categorical column never turns numeric")
+                }
+            }
+        }
+        if let (Some(all), Some(part)) = (keys.as_mut(), chunk.keys.as_mut()) {
+            all.append(part);
+        }
+        row_numbers.extend_from_slice(&chunk.row_numbers);
+        rows += chunk.rows;
+    }
+    if rows == 0 {
+        return Err(bad(format!(
+            "`{}` has no usable data rows ({} read, {} dropped)",
+            path.display(),
+            reader.rows_seen,
+            reader.rows_dropped
+        )));
+    }
+    Ok(TypedTable {
+        columns: reader.columns,
+        values,
+        keys,
+        rows,
+        rows_dropped: reader.rows_dropped,
+        row_numbers,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn missing_tokens_and_numbers() {
+        assert!(matches!(parse_number("1.5"), Ok(v) if v == 1.5));
+        assert!(matches!(parse_number("NA"), Err(Problem::Missing)));
+        assert!(matches!(parse_number(""), Err(Problem::Missing)));
+        assert!(matches!(parse_number("abc"), Err(Problem::NotNumeric)));
+        assert!(matches!(parse_number("inf"), Err(Problem::NotNumeric)));
+    }
+
+    #[test]
+    fn a_column_turns_categorical_and_keeps_earlier_numbers_as_levels() {
+        let mut col = ColumnState::new("c".into(), None);
+        assert_eq!(
+            col.numbers_to_codes(&[1.5, f64::NAN, 2.0]),
+            vec![0, MISSING_CODE, 1]
+        );
+        assert_eq!(col.levels, vec!["1.5", "2"]);
+        assert_eq!(col.intern("north"), 2);
+        assert_eq!(col.intern("1.5"), 0);
+    }
+}
