@@ -3,7 +3,7 @@
 use crate::args::InputArgs;
 use crate::io::{numeric_rows, ColumnChoice, WeightsWriter};
 use crate::progress::Progress;
-use crate::read::{Chunk, TableReader, TypeOverrides};
+use crate::read::{chunk_to_core, Chunk, TableReader, TypeOverrides};
 use crate::{exit, Failure, Globals};
 use clap::Args;
 use shiftweight::{FittedRatio, MatrixView};
@@ -15,8 +15,11 @@ use std::path::PathBuf;
   shiftweight apply --model ratio.json --input new_rows.csv --out new_weights.csv
   shiftweight apply --model ratio.json --input big.parquet --key id --out weights.csv --chunk-rows 100000
 
-Columns are found by the feature names stored in the model (written by `weigh`); --columns
-overrides them. Memory stays bounded by --chunk-rows whatever the number of rows.")]
+Columns are found by the names stored in the model (written by `weigh`), in any order; other columns
+are ignored and a missing one is an error naming it. A model fitted on text columns or gaps stores
+their types and encoding: rows with a level (or a gap) never seen when fitting are still scored, by
+the encoding's rule, and counted on stderr. Memory stays bounded by --chunk-rows whatever the
+number of rows.")]
 pub struct ApplyArgs {
     /// Model file written by `shiftweight weigh --model` (or the Python package).
     #[arg(long, value_name = "FILE")]
@@ -54,6 +57,9 @@ pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
         message: format!("`{}`: {e}", args.model.display()),
     })?;
     drop(text);
+    if model.encoding.is_some() {
+        return apply_table(&args, g, &model, chunk_rows);
+    }
     let mut choice: ColumnChoice = args.columns.choice();
     if choice.columns.is_none() {
         if let Some(names) = &model.meta.feature_names {
@@ -98,6 +104,96 @@ pub fn run(args: ApplyArgs, g: &Globals) -> Result<u8, Failure> {
     }
     drop(step);
     out.commit()?;
+    if !g.quiet {
+        eprintln!(
+            "wrote {total} weights to {}{}",
+            args.out.display(),
+            if reader.rows_dropped > 0 {
+                format!("; dropped {} rows with missing values", reader.rows_dropped)
+            } else {
+                String::new()
+            }
+        );
+    }
+    Ok(0)
+}
+
+/// `apply` with a model fitted on a typed table: the columns and their types come from the
+/// stored encoding; values never seen when fitting are counted per column and level.
+fn apply_table(
+    args: &ApplyArgs,
+    g: &Globals,
+    model: &FittedRatio,
+    chunk_rows: usize,
+) -> Result<u8, Failure> {
+    use shiftweight::table::{ColumnKind, UnseenValues};
+    let Some(encoding) = &model.encoding else {
+        return Err(Failure {
+            code: exit::INTERNAL,
+            message: "apply_table called without an encoding".into(),
+        });
+    };
+    let mut types = TypeOverrides::default();
+    let mut names = Vec::new();
+    for (name, kind) in encoding.schema() {
+        names.push(name.to_string());
+        match kind {
+            ColumnKind::Numeric => types.numeric.push(name.to_string()),
+            ColumnKind::Categorical => types.categorical.push(name.to_string()),
+        }
+    }
+    let choice = ColumnChoice {
+        columns: Some(names),
+        exclude: Vec::new(),
+        key: args.columns.key.clone(),
+    };
+    let mut reader = TableReader::open(&args.input, &args.columns.file_options(), &choice, &types)?;
+    let mut out = WeightsWriter::create(&args.out, args.columns.key.as_deref())?;
+    let step = Progress::new(g.quiet).counter("scoring");
+    let mut chunk = Chunk::default();
+    let mut unseen: Vec<UnseenValues> = Vec::new();
+    let mut total = 0usize;
+    while reader.next_chunk(&mut chunk, chunk_rows)? {
+        if chunk.rows == 0 {
+            continue; // every row of this chunk was dropped for a gap
+        }
+        let keys = chunk.keys.take();
+        let rows = chunk.rows;
+        let table = chunk_to_core(&args.input, &reader.columns, &mut chunk)?;
+        let scores = model.ratio_table(&table)?;
+        out.write(&scores.weights, keys.as_deref())?;
+        for u in scores.unseen {
+            match unseen
+                .iter_mut()
+                .find(|v| v.column == u.column && v.level == u.level)
+            {
+                Some(v) => v.rows += u.rows,
+                None => unseen.push(UnseenValues {
+                    // As a 1-based data-row number of the file.
+                    first_row: chunk.row_numbers[u.first_row],
+                    ..u
+                }),
+            }
+        }
+        total += rows;
+        step.inc(rows as u64);
+    }
+    drop(step);
+    out.commit()?;
+    for u in &unseen {
+        eprintln!(
+            "warning: {} rows have {} in column `{}`, never seen when the model was fitted \
+             (first at data row {}); they are scored by the encoding's rule for unseen values \
+             and written like every other row",
+            u.rows,
+            match &u.level {
+                Some(l) => format!("the level {l:?}"),
+                None => "a missing value".to_string(),
+            },
+            u.column,
+            u.first_row
+        );
+    }
     if !g.quiet {
         eprintln!(
             "wrote {total} weights to {}{}",

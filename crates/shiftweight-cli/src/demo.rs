@@ -42,9 +42,7 @@ fn table(m: &shiftweight::Matrix, names: &[String]) -> Table {
     Table {
         names: names.to_vec(),
         values: m.as_slice().to_vec(),
-        keys: None,
         rows: m.rows(),
-        rows_dropped: 0,
     }
 }
 

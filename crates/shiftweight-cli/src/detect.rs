@@ -1,10 +1,11 @@
 //! `shiftweight detect`: is there a shift between source and target inputs, and where?
 
 use crate::args::InputArgs;
-use crate::io::{self, read_table, ColumnChoice};
+use crate::io::{self, numeric_rows, ColumnChoice, Table};
 use crate::progress::Progress;
+use crate::read::{read_typed, TypedTable};
 use crate::report::{InputFacts, Part, Report};
-use crate::steps::{detect_exit_code, run_detection, DetectArgs};
+use crate::steps::{detect_exit_code, feature_rows, run_detection, DetectArgs};
 use crate::{Failure, Globals};
 use clap::Args;
 use std::path::PathBuf;
@@ -46,28 +47,60 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
     let types = args.input.types();
     let source = {
         let _s = progress.step("reading source rows");
-        read_table(&args.source, &opts, &args.input.choice(), &types)?
+        read_typed(&args.source, &opts, &args.input.choice(), &types)?
     };
     let target_choice = ColumnChoice {
-        columns: Some(source.names.clone()),
+        columns: Some(source.names()),
         exclude: Vec::new(),
         key: None,
     };
     let target = {
         let _s = progress.step("reading target rows");
-        read_table(&args.target, &opts, &target_choice, &types)?
+        read_typed(&args.target, &opts, &target_choice, &source.types())?
     };
+    let names = source.names();
     let outcome = {
         let _s = progress.step("testing for a shift");
-        run_detection(&source, &target, &args.test, g.seed)?
+        if source.is_plain_numeric() && target.is_plain_numeric() {
+            let plain = |t: &TypedTable, path: &std::path::Path| -> Result<Table, Failure> {
+                Ok(Table {
+                    names: names.clone(),
+                    values: numeric_rows(path, &names, &t.values, &t.row_numbers)?,
+                    rows: t.rows,
+                })
+            };
+            run_detection(
+                &plain(&source, &args.source)?,
+                &plain(&target, &args.target)?,
+                &args.test,
+                g.seed,
+            )?
+        } else {
+            // Categorical columns or gaps: the shift test runs on the core's encoding of the
+            // pooled rows; the per-feature table tests each column by its type.
+            let (s, t) = (source.to_core(&args.source)?, target.to_core(&args.target)?);
+            let (enc, zs, zt, _) = shiftweight::table::encode_pair(&s, &t)?;
+            let encoded = |m: &shiftweight::Matrix| Table {
+                names: enc.feature_names(),
+                values: m.as_slice().to_vec(),
+                rows: m.rows(),
+            };
+            let mut outcome = run_detection(&encoded(&zs), &encoded(&zt), &args.test, g.seed)?;
+            outcome.features = feature_rows(
+                shiftweight::FeatureShift::new()
+                    .seed(g.seed)
+                    .run_table(&s, &t),
+            );
+            outcome
+        }
     };
     let significant = outcome.shift.significant;
     let mut report = Report::new("detect", g.seed);
     report.inputs = vec![
-        InputFacts::of("source", &args.source, &source),
-        InputFacts::of("target", &args.target, &target),
+        InputFacts::of("source", &args.source, source.rows, source.rows_dropped),
+        InputFacts::of("target", &args.target, target.rows, target.rows_dropped),
     ];
-    report.features_used = source.names.clone();
+    report.features_used = names.clone();
     if !g.quiet {
         println!(
             "{}: {} test, statistic {:.4}, p = {:.4} (level {})",

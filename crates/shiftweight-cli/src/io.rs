@@ -1,15 +1,15 @@
 //! The file layer: input options, whole tables for fitting, and outputs (weights, reports).
 //!
-//! Reading itself lives in [`crate::read`] (typed columns, streamed in chunks). [`read_table`]
-//! collects a whole table of numeric columns; a categorical column, or a missing value unless
-//! rows with gaps are dropped, is an error naming the file, the data row (1-based, the header not
-//! counted) and the column.
+//! Reading itself lives in [`crate::read`] (typed columns, streamed in chunks). [`numeric_rows`]
+//! turns typed columns that are all numeric and complete into a row-major matrix (for models
+//! fitted on a matrix); a categorical column or a missing value is an error naming the file, the
+//! data row (1-based, the header not counted) and the column.
 //!
 //! Every output goes through [`AtomicFile`]: written to a temporary file in the destination's
 //! directory, flushed and fsynced, then renamed over the destination, so a failed run leaves any
 //! earlier file of that name untouched.
 
-use crate::read::{bad, io_fail, read_typed, TypeOverrides, Values};
+use crate::read::{bad, io_fail, Values};
 use crate::Failure;
 use clap::ValueEnum;
 use std::fs::{self, File};
@@ -70,12 +70,8 @@ pub struct Table {
     pub names: Vec<String>,
     /// Row-major values.
     pub values: Vec<f64>,
-    /// Keys when a key column was named.
-    pub keys: Option<Vec<String>>,
-    /// Rows kept.
+    /// Rows.
     pub rows: usize,
-    /// Rows dropped for missing values.
-    pub rows_dropped: usize,
 }
 
 impl Table {
@@ -125,25 +121,6 @@ pub fn numeric_rows(
         }
     }
     Ok(out)
-}
-
-/// Reads a whole table of numeric columns (for fitting).
-pub fn read_table(
-    path: &Path,
-    opts: &FileOptions,
-    choice: &ColumnChoice,
-    types: &TypeOverrides,
-) -> Result<Table, Failure> {
-    let t = read_typed(path, opts, choice, types)?;
-    let names = t.names();
-    let values = numeric_rows(path, &names, &t.values, &t.row_numbers)?;
-    Ok(Table {
-        names,
-        values,
-        keys: t.keys,
-        rows: t.rows,
-        rows_dropped: t.rows_dropped,
-    })
 }
 
 /// An output file written atomically: a temporary file in the same directory, renamed over the

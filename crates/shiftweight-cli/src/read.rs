@@ -159,8 +159,11 @@ pub struct ColumnState {
     pub name: String,
     /// Current type.
     pub kind: ColumnType,
-    /// Whether the type was given (and so cannot change while reading).
+    /// Whether the type is settled (given, or stored in a Parquet file), so it cannot change
+    /// while reading.
     pub fixed: bool,
+    /// Whether the type was given by the caller (`--categorical`/`--numeric` or a model file).
+    pub given: bool,
     /// Levels of a categorical column, indexed by code.
     pub levels: Vec<String>,
     index: HashMap<String, u32>,
@@ -172,6 +175,7 @@ impl ColumnState {
             name,
             kind: kind.unwrap_or(ColumnType::Numeric),
             fixed: kind.is_some(),
+            given: kind.is_some(),
             levels: Vec::new(),
             index: HashMap::new(),
         }
@@ -819,7 +823,7 @@ fn open_parquet(
             Some(ColumnType::Numeric)
         });
         let mut c = ColumnState::new(header[j].clone(), kind);
-        c.fixed = true;
+        c.given = types.of(&header[j]).is_some();
         columns.push(c);
     }
     // The batches hold the projected columns in file order.
@@ -868,6 +872,77 @@ impl TypedTable {
     pub fn names(&self) -> Vec<String> {
         self.columns.iter().map(|c| c.name.clone()).collect()
     }
+
+    /// Whether every column is numeric without a missing value (a plain matrix).
+    pub fn is_plain_numeric(&self) -> bool {
+        self.values
+            .iter()
+            .all(|v| matches!(v, Values::Numeric(x) if x.iter().all(|x| !x.is_nan())))
+    }
+
+    /// The types read, to read a second file (the target) with the same ones.
+    pub fn types(&self) -> TypeOverrides {
+        let of = |k: ColumnType| {
+            self.columns
+                .iter()
+                .filter(|c| c.kind == k)
+                .map(|c| c.name.clone())
+                .collect()
+        };
+        TypeOverrides {
+            numeric: of(ColumnType::Numeric),
+            categorical: of(ColumnType::Categorical),
+        }
+    }
+
+    /// The core library's typed table. A categorical column whose type was inferred and whose
+    /// values are all different is refused as a likely row identifier (the core's rule).
+    pub fn to_core(&self, path: &Path) -> Result<shiftweight::table::Table, Failure> {
+        let cols = self
+            .columns
+            .iter()
+            .zip(&self.values)
+            .map(|(c, v)| {
+                let col = core_column(path, c, v.clone())?;
+                if !c.given {
+                    col.refuse_identifier()
+                        .map_err(|e| bad(format!("`{}`: {e}", path.display())))?;
+                }
+                Ok(col)
+            })
+            .collect::<Result<Vec<_>, Failure>>()?;
+        shiftweight::table::Table::new(cols).map_err(|e| bad(format!("`{}`: {e}", path.display())))
+    }
+}
+
+/// One column for the core table.
+fn core_column(
+    path: &Path,
+    state: &ColumnState,
+    values: Values,
+) -> Result<shiftweight::table::Column, Failure> {
+    use shiftweight::table::Column;
+    let c = match values {
+        Values::Numeric(v) => Column::numeric(state.name.clone(), v),
+        Values::Categorical(codes) => {
+            Column::categorical(state.name.clone(), state.levels.clone(), codes)
+        }
+    };
+    c.map_err(|e| bad(format!("`{}`: {e}", path.display())))
+}
+
+/// The rows of a chunk as a core typed table (the chunk's columns are moved out).
+pub fn chunk_to_core(
+    path: &Path,
+    columns: &[ColumnState],
+    chunk: &mut Chunk,
+) -> Result<shiftweight::table::Table, Failure> {
+    let cols = columns
+        .iter()
+        .zip(chunk.columns.drain(..))
+        .map(|(c, v)| core_column(path, c, v))
+        .collect::<Result<Vec<_>, Failure>>()?;
+    shiftweight::table::Table::new(cols).map_err(|e| bad(format!("`{}`: {e}", path.display())))
 }
 
 /// Reads a whole table (for fitting), through the same streaming reader as `apply`.

@@ -71,12 +71,12 @@ pub struct InputFacts {
 
 impl InputFacts {
     /// Facts of one input table read from `path`.
-    pub fn of(role: &str, path: &std::path::Path, table: &crate::io::Table) -> Self {
+    pub fn of(role: &str, path: &std::path::Path, rows: usize, rows_dropped: usize) -> Self {
         InputFacts {
             role: role.into(),
             path: path.display().to_string(),
-            rows: table.rows,
-            rows_dropped: table.rows_dropped,
+            rows,
+            rows_dropped,
         }
     }
 }

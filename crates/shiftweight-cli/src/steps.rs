@@ -236,26 +236,11 @@ pub fn run_detection(
             .seed(seed)
             .run(s, t)?,
     };
-    let features = match FeatureShift::new()
-        .seed(seed)
-        .run(s, t, Some(&source.names))
-    {
-        Ok(table) => Part::Available(
-            table
-                .rows
-                .iter()
-                .map(|r| FeatureRow {
-                    feature: r.feature.clone(),
-                    score: r
-                        .wasserstein_sd
-                        .or(r.smd.map(f64::abs))
-                        .unwrap_or(r.auc_drop),
-                    p_value: Some(r.p_adjusted),
-                })
-                .collect(),
-        ),
-        Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
-    };
+    let features = feature_rows(
+        FeatureShift::new()
+            .seed(seed)
+            .run(s, t, Some(&source.names)),
+    );
     Ok(DetectOutcome {
         shift: ShiftPart {
             method: result.method.clone(),
@@ -266,6 +251,30 @@ pub fn run_detection(
         },
         features,
     })
+}
+
+/// The report rows of a per-feature shift table (matrix or typed table), most shifted first.
+pub fn feature_rows(
+    table: shiftweight::Result<shiftweight::FeatureShiftTable>,
+) -> Part<Vec<FeatureRow>> {
+    match table {
+        Ok(table) => Part::Available(
+            table
+                .rows
+                .iter()
+                .map(|r| FeatureRow {
+                    feature: r.feature.clone(),
+                    score: r
+                        .wasserstein_sd
+                        .or(r.smd.map(f64::abs))
+                        .or(r.tv_distance)
+                        .unwrap_or(r.auc_drop),
+                    p_value: Some(r.p_adjusted),
+                })
+                .collect(),
+        ),
+        Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
+    }
 }
 
 /// The exit code of `detect`: [`exit::SHIFT_DETECTED`] when the shift is significant and

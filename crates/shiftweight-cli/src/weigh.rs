@@ -3,12 +3,14 @@
 
 use crate::args::InputArgs;
 use crate::estimators::{build_estimator, EstimatorArgs};
-use crate::io::{self, read_table, ColumnChoice, WeightsWriter};
+use crate::io::{self, numeric_rows, ColumnChoice, WeightsWriter};
 use crate::progress::Progress;
+use crate::read::read_typed;
 use crate::report::{EstimatorPart, InputFacts, Part, Report};
 use crate::steps::{finish_weights, StabiliseArgs};
 use crate::{Failure, Globals};
 use clap::Args;
+use shiftweight::MatrixView;
 use std::path::PathBuf;
 
 /// Arguments of `weigh`.
@@ -19,7 +21,9 @@ use std::path::PathBuf;
       --out weights.csv --model ratio.json --report weights.html --json weights.json
 
 The weights file has a header (`weight`, or `KEY,weight` with --key) and one line per source row, in
-source order (rows skipped by --drop-missing are left out: use --key to join).
+source order (rows skipped by --drop-missing are left out: use --key to join). Text columns are read
+as categorical and gaps are kept (see --categorical, --numeric, --drop-missing); the model file then
+stores the encoding, and `apply` finds its columns by name.
 Cautions: weighting corrects covariate shift only; it needs overlap between source and target;
 validate on labelled target data; the rules of your domain come first.")]
 pub struct WeighArgs {
@@ -58,31 +62,48 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
     let types = args.input.types();
     let source = {
         let _s = progress.step("reading source rows");
-        read_table(&args.source, &opts, &args.input.choice(), &types)?
+        read_typed(&args.source, &opts, &args.input.choice(), &types)?
     };
-    // The target is read with exactly the source's feature columns, by name.
+    // The target is read with exactly the source's feature columns, by name, and their types.
     let target_choice = ColumnChoice {
-        columns: Some(source.names.clone()),
+        columns: Some(source.names()),
         exclude: Vec::new(),
         key: None,
     };
     let target = {
         let _s = progress.step("reading target rows");
-        read_table(&args.target, &opts, &target_choice, &types)?
+        read_typed(&args.target, &opts, &target_choice, &source.types())?
     };
-    let mut model = {
+    let names = source.names();
+    let mut gaps = Vec::new();
+    let model = {
         let _s = progress.step("fitting the density-ratio model");
-        estimator.fit(source.view("source")?, target.view("target")?)?
+        if source.is_plain_numeric() && target.is_plain_numeric() {
+            // Numbers only, no gaps: the matrix fit, exactly as the library's on a matrix.
+            let d = names.len();
+            let s = numeric_rows(&args.source, &names, &source.values, &source.row_numbers)?;
+            let t = numeric_rows(&args.target, &names, &target.values, &target.row_numbers)?;
+            let mut m = estimator.fit(
+                MatrixView::named(&s, source.rows, d, "source")?,
+                MatrixView::named(&t, target.rows, d, "target")?,
+            )?;
+            m.meta.feature_names = Some(names.clone());
+            m
+        } else {
+            // Categorical columns or gaps: the core's typed-table encoding, stored in the model.
+            let (s, t) = (source.to_core(&args.source)?, target.to_core(&args.target)?);
+            gaps = shiftweight::table::support_gaps(&s, &t)?;
+            estimator.fit_table(&s, &t)?
+        }
     };
-    model.meta.feature_names = Some(source.names.clone());
     let outcome = finish_weights(&model, &args.stabilise)?;
 
     let mut report = Report::new("weigh", g.seed);
     report.inputs = vec![
-        InputFacts::of("source", &args.source, &source),
-        InputFacts::of("target", &args.target, &target),
+        InputFacts::of("source", &args.source, source.rows, source.rows_dropped),
+        InputFacts::of("target", &args.target, target.rows, target.rows_dropped),
     ];
-    report.features_used = source.names.clone();
+    report.features_used = names.clone();
     report.shift = Part::missing("`weigh` does not test for a shift; run `shiftweight detect`");
     report.features =
         Part::missing("`weigh` does not measure per-feature shift; run `shiftweight detect`");
@@ -103,6 +124,20 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
     }
     if let Some(p) = &args.report {
         io::write_text(p, &report.to_html())?;
+    }
+    // Values of the target the source never has: no weighting of source rows can cover them.
+    for gap in &gaps {
+        eprintln!(
+            "warning: {} target rows have {} in column `{}`, which the source never has; no \
+             weighting of the source rows covers them (first at target data row {})",
+            gap.target_rows,
+            match &gap.level {
+                Some(l) => format!("the level {l:?}"),
+                None => "a missing value".to_string(),
+            },
+            gap.column,
+            target.row_numbers.get(gap.first_row).copied().unwrap_or(0)
+        );
     }
     if !g.quiet {
         let n = outcome.weights.len();

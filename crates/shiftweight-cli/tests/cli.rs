@@ -261,7 +261,7 @@ fn apply_streams_and_equals_fitted_ratio() {
 }
 
 #[test]
-fn missing_and_non_numeric_values_name_file_row_and_column() {
+fn gaps_are_kept_and_text_in_a_numeric_column_names_file_row_and_column() {
     let d = data();
     let f = setup(&d);
     let text = std::fs::read_to_string(f.dir.join("source.csv")).unwrap();
@@ -286,17 +286,21 @@ fn missing_and_non_numeric_values_name_file_row_and_column() {
         "--out",
         "w.csv",
     ];
+    // A gap is kept: the fit goes through the library's typed-table encoding (a missing
+    // indicator for that column), and the weights equal the library's on the same values.
     let o = run(&args, &f.dir);
-    assert_eq!(o.status.code(), Some(2));
-    let e = stderr(&o);
-    assert!(
-        e.contains("holes.csv")
-            && e.contains("data row 5")
-            && e.contains("`floor_area_m2`")
-            && e.contains("missing"),
-        "{e}"
-    );
-    assert!(!e.contains("panicked"), "{e}");
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (_, w) = read_weights(&f.dir.join("w.csv"));
+    let mut holed = d.source.clone();
+    holed[4 * d.names.len() + 1] = f64::NAN;
+    let reference = LeastSquaresRatio::new()
+        .seed(0)
+        .fit_table(
+            &numeric_table(&d.names, &holed, d.n_s),
+            &numeric_table(&d.names, &d.target, d.n_t),
+        )
+        .unwrap();
+    assert_eq!(w, reference.source_weights);
 
     cells[2] = "big".into();
     lines[5] = cells.join(",");
@@ -815,12 +819,38 @@ fn parquet_input_gives_the_same_weights_as_csv() {
         ],
         &f.dir,
     );
-    assert_eq!(o.status.code(), Some(2));
-    let e = stderr(&o);
-    assert!(
-        e.contains("nulls.parquet") && e.contains("data row 3") && e.contains("`occupants`"),
-        "{e}"
-    );
+    // The null is a gap, kept and encoded like a CSV gap: the library's typed-table weights.
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (_, w) = read_weights(&f.dir.join("wp.csv"));
+    let mut holed = d.source.clone();
+    holed[2 * d.names.len() + 2] = f64::NAN;
+    let reference = LeastSquaresRatio::new()
+        .seed(0)
+        .fit_table(
+            &numeric_table(&d.names, &holed, d.n_s),
+            &numeric_table(&d.names, &d.target, d.n_t),
+        )
+        .unwrap();
+    assert_eq!(w, reference.source_weights);
+}
+
+/// A core typed table of numeric columns (NaN = missing) from row-major values.
+fn numeric_table(names: &[String], x: &[f64], n: usize) -> shiftweight::table::Table {
+    let d = names.len();
+    shiftweight::table::Table::new(
+        names
+            .iter()
+            .enumerate()
+            .map(|(j, nm)| {
+                shiftweight::table::Column::numeric(
+                    nm.clone(),
+                    (0..n).map(|i| x[i * d + j]).collect(),
+                )
+                .unwrap()
+            })
+            .collect(),
+    )
+    .unwrap()
 }
 
 #[test]
@@ -974,46 +1004,187 @@ fn weigh_args<'a>(source: &'a str, exclude: &'a str, out: &'a str) -> Vec<&'a st
     ]
 }
 
+/// The heating level of row `i` (`None` = gap): quoted commas and quotes, a line break inside
+/// quotes, and a gap every seventh row; `shift` moves the level frequencies.
+fn heating(i: usize, shift: usize) -> Option<&'static str> {
+    const LEVELS: [&str; 3] = ["gas", "oil, \"old\"", "heat\r\npump"];
+    (i % 7 != 3).then(|| LEVELS[(i + shift * (i / 2)) % 3])
+}
+
+/// CSV text of rows with the given column order; `cell(i, name)` gives the raw (unquoted) value.
+fn csv_text(header: &[&str], n: usize, cell: impl Fn(usize, &str) -> String, eol: &str) -> String {
+    let quote = |v: String| {
+        if v.contains([',', '"', '\r', '\n']) {
+            format!("\"{}\"", v.replace('"', "\"\""))
+        } else {
+            v
+        }
+    };
+    let mut s = String::from("\u{feff}");
+    s.push_str(&header.join(","));
+    s.push_str(eol);
+    for i in 0..n {
+        let row: Vec<String> = header.iter().map(|h| quote(cell(i, h))).collect();
+        s.push_str(&row.join(","));
+        s.push_str(eol);
+    }
+    s
+}
+
+/// The core typed table the library gets for the same values: `heating` then the features.
+fn core_table(d: &Data, x: &[f64], n: usize, shift: usize) -> shiftweight::table::Table {
+    use shiftweight::table::{Column, Table};
+    let dd = d.names.len();
+    let mut cols = vec![Column::from_levels(
+        "heating",
+        (0..n).map(|i| heating(i, shift)),
+    )];
+    for (j, nm) in d.names.iter().enumerate() {
+        cols.push(Column::numeric(nm.clone(), (0..n).map(|i| x[i * dd + j]).collect()).unwrap());
+    }
+    Table::new(cols).unwrap()
+}
+
 #[test]
-fn csv_with_crlf_bom_quotes_and_a_text_column_reads_the_same_numbers() {
+fn csv_with_text_gaps_quotes_and_crlf_gives_the_library_weights_and_apply_scores_by_name() {
     let d = data();
     let f = setup(&d);
     let dd = d.names.len();
-    // A byte-order mark, CRLF line ends, a quoted header name, keys holding commas, numbers in
-    // quotes, and a free-text column with commas, doubled quotes and a line break inside quotes.
-    let mut s = String::from("\u{feff}id,\"note\"");
-    for n in &d.names {
-        s.push(',');
-        s.push_str(n);
-    }
-    s.push_str(",kwh\r\n");
-    for i in 0..d.n_s {
-        let _ = write!(s, "\"house, {i:04}\",\"said \"\"hi\"\", then\r\nleft\"");
-        for (j, v) in d.source[i * dd..(i + 1) * dd].iter().enumerate() {
-            if j == 0 {
-                let _ = write!(s, ",\"{v}\"");
-            } else {
-                let _ = write!(s, ",{v}");
-            }
-        }
-        let _ = write!(s, ",{}\r\n", d.y[i]);
-    }
-    std::fs::write(f.dir.join("odd.csv"), s).unwrap();
-
-    // The text column is read as categorical; until categorical columns are usable here the
-    // message names it and says how to leave it out.
-    let o = run(&weigh_args("odd.csv", "kwh", "w.csv"), &f.dir);
-    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
-    let e = stderr(&o);
-    assert!(e.contains("`note`") && e.contains("--exclude note"), "{e}");
-
-    let o = run(&weigh_args("odd.csv", "kwh,note", "w.csv"), &f.dir);
+    let value = |x: &[f64], i: usize, h: &str| -> Option<f64> {
+        d.names.iter().position(|n| n == h).map(|j| x[i * dd + j])
+    };
+    // Source: BOM, CRLF, quoted keys with commas, the text column with gaps, quotes and a line
+    // break inside quotes. Target: LF line ends, another level mix.
+    let mut header = vec!["id", "heating"];
+    header.extend(d.names.iter().map(String::as_str));
+    let src = csv_text(
+        &header,
+        d.n_s,
+        |i, h| match h {
+            "id" => format!("house, {i:04}"),
+            "heating" => heating(i, 0).unwrap_or("").to_string(),
+            _ => value(&d.source, i, h).unwrap().to_string(),
+        },
+        "\r\n",
+    );
+    std::fs::write(f.dir.join("typed_source.csv"), src).unwrap();
+    let tgt = csv_text(
+        &header[1..],
+        d.n_t,
+        |i, h| match h {
+            "heating" => heating(i, 1).unwrap_or("").to_string(),
+            _ => value(&d.target, i, h).unwrap().to_string(),
+        },
+        "\n",
+    );
+    std::fs::write(f.dir.join("typed_target.csv"), tgt).unwrap();
+    let o = run(
+        &[
+            "weigh",
+            "--source",
+            "typed_source.csv",
+            "--target",
+            "typed_target.csv",
+            "--key",
+            "id",
+            "--estimator",
+            "lsif",
+            "--out",
+            "w.csv",
+            "--model",
+            "typed.json",
+        ],
+        &f.dir,
+    );
     assert!(o.status.success(), "{}", stderr(&o));
     let (k, w) = read_weights(&f.dir.join("w.csv"));
     let expected_keys: Vec<String> = (0..d.n_s).map(|i| format!("\"house, {i:04}\"")).collect();
     assert_eq!(k.unwrap(), expected_keys);
-    let reference = library_weights(&d.source, d.n_s, &d.target, d.n_t, dd);
+    // Reference: the library's typed-table fit on the same values.
+    let s_table = core_table(&d, &d.source, d.n_s, 0);
+    let t_table = core_table(&d, &d.target, d.n_t, 1);
+    let reference = LeastSquaresRatio::new()
+        .seed(0)
+        .fit_table(&s_table, &t_table)
+        .unwrap();
     assert_eq!(w, reference.source_weights);
+
+    // apply: columns reordered, an extra column, and one row with a level never seen.
+    let mut reordered: Vec<&str> = d.names.iter().rev().map(String::as_str).collect();
+    reordered.insert(2, "heating");
+    reordered.push("comment");
+    let new = csv_text(
+        &reordered,
+        d.n_t,
+        |i, h| match h {
+            "heating" if i == 5 => "wood".to_string(),
+            "heating" => heating(i, 1).unwrap_or("").to_string(),
+            "comment" => "extra".to_string(),
+            _ => value(&d.target, i, h).unwrap().to_string(),
+        },
+        "\r\n",
+    );
+    std::fs::write(f.dir.join("new.csv"), new).unwrap();
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "typed.json",
+            "--input",
+            "new.csv",
+            "--out",
+            "a.csv",
+            "--chunk-rows",
+            "13",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert!(
+        e.contains("1 rows have the level \"wood\" in column `heating`")
+            && e.contains("data row 6"),
+        "{e}"
+    );
+    let (_, wa) = read_weights(&f.dir.join("a.csv"));
+    assert_eq!(wa.len(), d.n_t, "every row is written");
+    let mut expected_table = core_table(&d, &d.target, d.n_t, 1).into_columns();
+    let levels_with_wood: Vec<Option<&str>> = (0..d.n_t)
+        .map(|i| if i == 5 { Some("wood") } else { heating(i, 1) })
+        .collect();
+    expected_table[0] = shiftweight::table::Column::from_levels("heating", levels_with_wood);
+    let model = FittedRatio::from_json(&std::fs::read_to_string(f.dir.join("typed.json")).unwrap())
+        .unwrap();
+    let scores = model
+        .ratio_table(&shiftweight::table::Table::new(expected_table).unwrap())
+        .unwrap();
+    assert_eq!(wa, scores.weights);
+
+    // A column the model needs is missing: an error naming it.
+    std::fs::write(
+        f.dir.join("short.csv"),
+        csv_text(
+            &header[2..],
+            3,
+            |i, h| value(&d.target, i, h).unwrap().to_string(),
+            "\n",
+        ),
+    )
+    .unwrap();
+    let o = run(
+        &[
+            "apply",
+            "--model",
+            "typed.json",
+            "--input",
+            "short.csv",
+            "--out",
+            "s.csv",
+        ],
+        &f.dir,
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("`heating`"), "{}", stderr(&o));
 }
 
 /// Writes the source rows as Parquet through Arrow: `id` (text), the features (float64) and a

@@ -308,7 +308,7 @@ impl Column {
 
     /// Refuses a categorical column whose present values are all distinct over at least
     /// [`IDENTIFIER_MIN_ROWS`] rows (rule 4 of the module documentation).
-    fn refuse_identifier(&self) -> Result<()> {
+    pub fn refuse_identifier(&self) -> Result<()> {
         if let ColumnData::Categorical { levels, codes } = &self.data {
             let present = codes.iter().filter(|&&c| c != MISSING_CODE).count();
             if present >= IDENTIFIER_MIN_ROWS && levels.len() == present {
