@@ -18,6 +18,7 @@ import json
 from typing import Any, ClassVar, Dict, List, Optional, Sequence
 
 from . import _native
+from ._tables import as_table, is_table_input, plain
 from ._validation import as_count, as_matrix, as_seed, check_same_columns
 
 __all__ = ["shift_test", "feature_shift", "ShiftTestResult", "FeatureShiftTable"]
@@ -28,9 +29,20 @@ _CAUTION = (
 )
 
 
-def _pair(source: Any, target: Any):
-    s, names_s = as_matrix(source, "source")
-    t, names_t = as_matrix(target, "target")
+def _tables(source: Any, target: Any, categorical: Any, numeric: Any):
+    """Both inputs as typed tables when either needs the typed path, else None."""
+    if is_table_input(source, categorical, numeric) or is_table_input(target, categorical, numeric):
+        return as_table(source, "source", categorical, numeric), as_table(target, "target", categorical, numeric)
+    return None
+
+
+def _pair(source: Any, target: Any, categorical: Any = None, numeric: Any = None):
+    tables = _tables(source, target, categorical, numeric)
+    if tables is not None:
+        zs, zt, _, names, _ = _native.encode_pair(*tables)
+        return zs, zt, names
+    s, names_s = as_matrix(plain(source), "source")
+    t, names_t = as_matrix(plain(target), "target")
     if t.shape[1] != s.shape[1]:
         raise _native.ShiftweightError(
             f"`target` has {t.shape[1]} feature column(s) but `source` has {s.shape[1]}"
@@ -162,6 +174,8 @@ def shift_test(
     sigma: Optional[float] = None,
     max_kernel_rows: int = 5_000,
     block_size: Optional[int] = None,
+    categorical: Optional[Sequence[str]] = None,
+    numeric: Optional[Sequence[str]] = None,
 ) -> ShiftTestResult:
     """Tests whether ``target`` rows come from the same distribution as ``source`` rows.
 
@@ -182,6 +196,9 @@ def shift_test(
         full kernel matrix is used with a permutation p-value; above it the block estimator
         (blocks of about sqrt(n) rows, at most 250; Zaremba et al. 2013) whose p-value comes from
         relabelling the rows within every block ``permutations`` times (exact level).
+    categorical, numeric : column-type overrides for tables; DataFrames and pyarrow Tables with
+        text, categorical or boolean columns or missing values are encoded on the pooled rows
+        first (``docs/tables.md``) and tested in that space.
 
     Returns
     -------
@@ -196,7 +213,7 @@ def shift_test(
     >>> res.p_value <= 0.01
     True
     """
-    s, t, _ = _pair(source, target)
+    s, t, _ = _pair(source, target, categorical, numeric)
     if method == "classifier":
         text = _native.shift_test_classifier(
             s,
@@ -237,6 +254,16 @@ _COLUMNS = [
     "ks_mode",
     "index",
 ]
+# Columns present only for typed tables (categorical effect sizes and missing rates).
+_TABLE_COLUMNS = [
+    "tv_distance",
+    "top_level",
+    "top_level_source",
+    "top_level_target",
+    "pooled_levels",
+    "missing_source",
+    "missing_target",
+]
 
 
 class FeatureShiftTable:
@@ -274,7 +301,8 @@ class FeatureShiftTable:
         """A pandas DataFrame, one row per feature, most-shifted first."""
         import pandas as pd
 
-        return pd.DataFrame([{c: r.get(c) for c in _COLUMNS} for r in self.rows], columns=_COLUMNS)
+        cols = _COLUMNS + [c for c in _TABLE_COLUMNS if any(c in r for r in self.rows)]
+        return pd.DataFrame([{c: r.get(c) for c in cols} for r in self.rows], columns=cols)
 
     def to_dict(self) -> Dict[str, Any]:
         """The table as plain Python values."""
@@ -340,6 +368,8 @@ def feature_shift(
     repeats: int = 5,
     max_importance_rows: int = 50_000,
     seed: int = 0,
+    categorical: Optional[Sequence[str]] = None,
+    numeric: Optional[Sequence[str]] = None,
 ) -> FeatureShiftTable:
     """Which features moved: one two-sample test per feature, sorted most-shifted first.
 
@@ -352,6 +382,14 @@ def feature_shift(
     on at most ``max_importance_rows`` pooled rows). DataFrame column names are used when
     ``feature_names`` is None.
 
+    Tables (DataFrames or pyarrow Tables with text, categorical or boolean columns or missing
+    values; ``categorical``/``numeric`` override types) get one row per column: categorical
+    columns a chi-square test of their level counts (levels with an expected count below 5 pooled
+    into one cell), with ``tv_distance`` and the level that moved most (``top_level``); numeric
+    columns the tests above on their present values; and every column with a missing value a
+    second row ``"<column> (missing)"`` with a two-proportion z-test of the missing rates
+    (``missing_source``, ``missing_target``). All p-values are adjusted together.
+
     Examples
     --------
     >>> import numpy as np, shiftweight as sw
@@ -361,6 +399,19 @@ def feature_shift(
     >>> sw.feature_shift(src, tgt, feature_names=["a", "b", "c"]).features[0]
     'b'
     """
+    tables = _tables(source, target, categorical, numeric)
+    if tables is not None:
+        text = _native.feature_shift_table(
+            tables[0],
+            tables[1],
+            as_count(max_categories, "max_categories"),
+            as_count(folds, "folds"),
+            float(l2),
+            as_count(repeats, "repeats"),
+            as_count(max_importance_rows, "max_importance_rows"),
+            as_seed(seed),
+        )
+        return FeatureShiftTable(json.loads(text))
     s, t, names = _pair(source, target)
     if feature_names is not None:
         names = [str(v) for v in feature_names]

@@ -16,6 +16,7 @@ import numpy as np
 
 from . import _native
 from ._base import ParamsMixin
+from ._tables import as_table, is_table_input, plain
 from ._validation import NotFittedError, as_count, as_matrix, as_seed, as_vector, check_same_columns
 
 __all__ = [
@@ -55,13 +56,30 @@ class RatioEstimatorBase(ParamsMixin):
     def _fit_native(self, source: np.ndarray, target: np.ndarray, names: Optional[list]) -> Any:
         raise NotImplementedError
 
-    def fit(self, source: Any, target: Any) -> RatioEstimatorBase:
+    def fit(
+        self,
+        source: Any,
+        target: Any,
+        categorical: Optional[Sequence[str]] = None,
+        numeric: Optional[Sequence[str]] = None,
+    ) -> RatioEstimatorBase:
         """Fits on ``source`` (training inputs) and ``target`` (deployment inputs); returns self.
 
-        Both are 2-D arrays or DataFrames with the same columns; the GIL is released while fitting.
+        Both are 2-D arrays or tables with the same columns; the GIL is released while fitting.
+        pandas/polars DataFrames and pyarrow Tables with text, categorical or boolean columns or
+        missing values are typed tables: they are encoded on the pooled rows (see
+        ``docs/tables.md``), the encoding is stored in the model, and ``ratio`` then takes tables
+        with the same columns by name. ``categorical`` / ``numeric`` override column types.
         """
-        s, names_s = as_matrix(source, "source")
-        t, names_t = as_matrix(target, "target")
+        if is_table_input(source, categorical, numeric) or is_table_input(target, categorical, numeric):
+            ts = as_table(source, "source", categorical, numeric)
+            tt = as_table(target, "target", categorical, numeric)
+            zs, zt, encoding, names, notes = _native.encode_pair(ts, tt)
+            model = self._fit_native(zs, zt, names)
+            self._set_fitted(_native.attach_encoding(model, encoding, notes))
+            return self
+        s, names_s = as_matrix(plain(source), "source")
+        t, names_t = as_matrix(plain(target), "target")
         if t.shape[1] != s.shape[1]:
             raise _native.ShiftweightError(
                 f"`target` has {t.shape[1]} feature column(s) but `source` has {s.shape[1]}"
@@ -98,7 +116,27 @@ class RatioEstimatorBase(ParamsMixin):
         The GIL is released while scoring; rows are processed in fixed-size chunks in parallel.
         """
         model = self._check_fitted()
-        x, names = as_matrix(X, "X")
+        schema = _native.model_schema(model)
+        if schema is not None:
+            cat = [n for n, k in schema if k == "categorical"]
+            num = [n for n, k in schema if k == "numeric"]
+            table = as_table(X, "X", cat, num, columns=[n for n, _ in schema])
+            w, unseen = _native.ratio_table(model, table)
+            self.unseen_ = [
+                {"column": c, "level": lv, "rows": r, "first_row": f} for c, lv, r, f in unseen
+            ]
+            if unseen:
+                parts = ", ".join(
+                    f"{r} row(s) with {'a missing value' if lv is None else repr(lv)} in {c!r}"
+                    for c, lv, r, _ in unseen
+                )
+                warnings.warn(
+                    f"values never seen when fitting: {parts}; those rows are scored as documented "
+                    "(an extrapolation: no source row resembles them)",
+                    stacklevel=2,
+                )
+            return w
+        x, names = as_matrix(plain(X), "X")
         if x.shape[1] != model.n_features:
             raise _native.ShiftweightError(
                 f"`X` has {x.shape[1]} feature column(s) but the model was fitted on {model.n_features}"

@@ -18,6 +18,7 @@ mod diagnostics;
 mod learn;
 mod metrics;
 mod ratio;
+mod table;
 mod weights;
 
 create_exception!(
@@ -193,5 +194,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     detect::register(m)?;
     weights::register(m)?;
     diagnostics::register(m)?;
+    table::register(m)?;
     Ok(())
 }
