@@ -5,12 +5,11 @@ against known ratios, a real dataset and scipy."""
 from __future__ import annotations
 
 import json
-import warnings
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
 import polars as pl
+import pyarrow as pa  # type: ignore[import-untyped]
 import pytest
 from scipy import stats
 
@@ -97,7 +96,7 @@ def test_identifier_column_is_refused_and_overrides_apply():
     t, _, _ = mixed_frame(60, P_T, 0.5, 6)
     s["meter"] = [f"m{i}" for i in range(60)]
     t["meter"] = [f"n{i}" for i in range(60)]
-    with pytest.raises(sw.ShiftweightError, match="`meter`.*identifier"):
+    with pytest.raises(sw.ShiftweightError, match=r"`meter`.*identifier"):
         sw.ClassifierRatio(folds=2).fit(s, t)
     s2, t2 = s.drop(columns="meter"), t.drop(columns="meter")
     s2["zone"], t2["zone"] = np.arange(60) % 3, np.arange(60) % 2

@@ -50,15 +50,17 @@ def _frame_kind(x: Any) -> Optional[str]:
     return None
 
 
-def is_table_input(x: Any, categorical: Optional[Sequence[str]] = None, numeric: Optional[Sequence[str]] = None) -> bool:
+def is_table_input(
+    x: Any, categorical: Optional[Sequence[str]] = None, numeric: Optional[Sequence[str]] = None
+) -> bool:
     """True when ``x`` needs the typed path: a pyarrow Table, or a pandas/polars frame with a
     non-numeric column or a missing value, or when a type override is given."""
     if categorical or numeric:
         return _frame_kind(x) is not None
     kind = _frame_kind(x)
     if kind == "pyarrow":
-        import pyarrow as pa
-        import pyarrow.compute as pc
+        import pyarrow as pa  # type: ignore[import-untyped]
+        import pyarrow.compute as pc  # type: ignore[import-untyped]
 
         for c in x.columns:
             t = c.type
@@ -113,7 +115,7 @@ def _text(values: Sequence[Any]) -> List[Optional[str]]:
 def _pandas_columns(x: Any) -> List[Tuple[str, str, Any]]:
     import pandas as pd
 
-    cols = []
+    cols: List[Tuple[str, str, Any]] = []
     for name in x.columns:
         s = x[name]
         dt = s.dtype
@@ -134,7 +136,7 @@ def _pandas_columns(x: Any) -> List[Tuple[str, str, Any]]:
 def _polars_columns(x: Any) -> List[Tuple[str, str, Any]]:
     import polars as pl
 
-    cols = []
+    cols: List[Tuple[str, str, Any]] = []
     for name, dt in x.schema.items():
         s = x[name]
         key = str(name)
@@ -154,7 +156,7 @@ def _arrow_columns(x: Any) -> List[Tuple[str, str, Any]]:
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    cols = []
+    cols: List[Tuple[str, str, Any]] = []
     for name in x.column_names:
         c = x.column(name)
         t = c.type
