@@ -3,6 +3,8 @@
 
 Run with ``make compare`` (full sizes) or ``make compare-quick`` (small sizes, about a minute), or
 directly: ``.venv/bin/python benches/compare.py [--quick] [--only ulsif,scoring] [--threads 2]``.
+The ``tables`` workload times the command-line binary (build it first with
+``cargo build --release -p shiftweight-cli``) against pyarrow's CSV and Parquet readers.
 Use a release build of the extension (``maturin develop --release``) for figures worth quoting.
 This script is not part of the test suite.
 
@@ -60,6 +62,13 @@ def parse_args(argv=None):
     p.add_argument("--mmd-n", type=int, default=2_000, help="MMD: rows of source and of target")
     p.add_argument("--mmd-perms", type=int, default=1_000)
     p.add_argument("--score-n", type=int, default=1_000_000, help="rows scored")
+    p.add_argument("--tables-rows", type=int, default=1_000_000,
+                   help="tables: rows of the 20-column file (15 numeric, 5 text) read and scored")
+    p.add_argument("--tables-dir", default=None,
+                   help="tables: folder for the generated files (default: a temporary folder); "
+                        "files already there are reused")
+    p.add_argument("--cli", default=None,
+                   help="tables: the shiftweight binary (default: target/release/shiftweight)")
     p.add_argument("--l2", type=float, default=1.0, help="penalty of the logistic models (sklearn C = 1/l2)")
     p.add_argument("--settle", type=float, default=0.0,
                    help="seconds to pause before every timed call (default 0; see SETTLE_S)")
@@ -71,6 +80,7 @@ def parse_args(argv=None):
         args.ulsif_n, args.kliep_n, args.clf_n, args.logit_n = 2_000, 1_000, 20_000, 50_000
         args.kmm_n, args.mmd_n, args.mmd_perms, args.score_n = 300, 500, 200, 100_000
         args.kmm_large_n = 5_000
+        args.tables_rows = 100_000
         args.cv_rows = args.ulsif_n  # every pair held out: the LOOCV tables must agree to rounding
     if args.repeats is None:
         args.repeats = 3
@@ -763,6 +773,128 @@ def workload_mmd(args):
            "p-values differ by permutation draw only")
 
 
+# ----------------------------------------------------------------------------------------------
+# Tables: reading CSV / Parquet with text columns (command line against pyarrow), and `apply`
+# ----------------------------------------------------------------------------------------------
+
+TABLE_LEVELS = {
+    "region": ["north", "south", "east", "west", "coast", "hills", "city", "valley"],
+    "tariff": ["flat", "day-night", "dynamic"],
+    "heating": ["gas", "heat pump", "oil", "electric", "district"],
+    "dwelling": ["flat", "terraced", "semi", "detached"],
+    "channel": ["web", "phone", "shop", "agent", "partner", "mail"],
+}
+
+
+def table_frame(n, shift, seed):
+    """A pyarrow table of n rows: x01..x15 ~ N(shift e_1, I) and five text columns whose level
+    frequencies move with ``shift``; about 1% of the values of x02 and of `tariff` are missing."""
+    import pyarrow as pa
+    rng = np.random.default_rng(seed)
+    cols = {}
+    x = rng.standard_normal((n, 15))
+    x[:, 0] += shift
+    for j in range(15):
+        v = pa.array(x[:, j])
+        if j == 1:
+            v = pa.array(np.where(rng.random(n) < 0.01, np.nan, x[:, j]), from_pandas=True)
+        cols[f"x{j + 1:02d}"] = v
+    for name, levels in TABLE_LEVELS.items():
+        p = np.arange(1, len(levels) + 1, dtype=float) ** (1.0 + shift)
+        codes = rng.choice(len(levels), size=n, p=p / p.sum())
+        text = np.asarray(levels, dtype=object)[codes]
+        if name == "tariff":
+            text = np.where(rng.random(n) < 0.01, None, text)
+        cols[name] = pa.array(text, type=pa.string())
+    return pa.table(cols)
+
+
+def cli_run(cli, *a):
+    """Runs the binary under /usr/bin/time; returns (seconds, peak resident memory in MB) of that
+    one process. (The rusage of a forked child would start from this Python process's memory.)"""
+    import subprocess
+    import tempfile
+    with tempfile.NamedTemporaryFile("r", suffix=".rss") as rss:
+        t0 = time.perf_counter()
+        p = subprocess.run(["/usr/bin/time", "-f", "%M", "-o", rss.name, cli, "--quiet", *a],
+                           stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+        dt = time.perf_counter() - t0
+        if p.returncode != 0:
+            sys.exit(f"{cli} {' '.join(a)} failed: {p.stderr}")
+        kb = float(rss.read().strip().splitlines()[-1])
+    return dt, kb / 1024.0
+
+
+def workload_tables(args):
+    try:
+        import pyarrow.csv as pacsv
+        import pyarrow.parquet as pq
+    except ImportError:
+        print("  skipped: pyarrow is not installed")
+        return
+    import tempfile
+    cli = args.cli or os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))),
+                                   "target", "release", "shiftweight")
+    if not os.path.exists(cli):
+        print(f"  skipped: {cli} not found (cargo build --release -p shiftweight-cli)")
+        return
+    folder = args.tables_dir or tempfile.mkdtemp(prefix="sw-tables-")
+    os.makedirs(folder, exist_ok=True)
+    n = args.tables_rows
+    csv_path = os.path.join(folder, f"rows{n}.csv")
+    pq_snappy = os.path.join(folder, f"rows{n}.snappy.parquet")
+    pq_zstd = os.path.join(folder, f"rows{n}.zstd.parquet")
+    if not all(os.path.exists(p) for p in (csv_path, pq_snappy, pq_zstd)):
+        tab = table_frame(n, 0.3, seed=1)
+        pacsv.write_csv(tab, csv_path)
+        pq.write_table(tab, pq_snappy, compression="snappy")
+        pq.write_table(tab, pq_zstd, compression="zstd")
+    mb = os.path.getsize(csv_path) / 1e6
+    size = f"{n}x20 (5 text), CSV {mb:.0f} MB"
+
+    # Reading: every column typed (numbers / levels with gaps) on both sides.
+    for label, path, ref in [
+        ("read_csv", csv_path, lambda: pacsv.read_csv(csv_path)),
+        ("read_parquet_snappy", pq_snappy, lambda: pq.read_table(pq_snappy)),
+        ("read_parquet_zstd", pq_zstd, lambda: pq.read_table(pq_zstd)),
+    ]:
+        mem = []
+
+        def run_sw(path=path, mem=mem):
+            dt, rss = cli_run(cli, "columns", "--input", path)
+            mem.append(rss)
+            return dt
+
+        ts, tr, _, tab = alternate(run_sw, ref, args.repeats)
+        record(label, size, ts, tr, f"peak RSS {max(mem):.0f} MB", f"{tab.num_rows} rows read",
+               "command line: process start + read + per-column summary (`columns`)")
+
+    # `apply`: a uLSIF model fitted on 20,000 + 20,000 rows, scoring n rows and n/4 rows.
+    src = os.path.join(folder, "fit_source.csv")
+    tgt = os.path.join(folder, "fit_target.csv")
+    model = os.path.join(folder, "model.json")
+    if not os.path.exists(model):
+        pacsv.write_csv(table_frame(20_000, 0.0, seed=2), src)
+        pacsv.write_csv(table_frame(20_000, 0.3, seed=3), tgt)
+        cli_run(cli, "weigh", "--source", src, "--target", tgt, "--estimator", "lsif",
+                "--out", os.path.join(folder, "fit_weights.csv"), "--model", model)
+    quarter = os.path.join(folder, f"rows{n // 4}.csv")
+    if not os.path.exists(quarter):
+        pacsv.write_csv(table_frame(n // 4, 0.3, seed=1), quarter)
+    out = os.path.join(folder, "applied.csv")
+    for rows, path in [(n // 4, quarter), (n, csv_path)]:
+        mem = []
+
+        def run_apply(path=path, mem=mem):
+            dt, rss = cli_run(cli, "apply", "--model", model, "--input", path, "--out", out)
+            mem.append(rss)
+            return dt
+
+        ts, _ = timed(run_apply, args.repeats)
+        record("apply_encode_score", f"{rows}x20 (5 text), uLSIF 200 centres", ts, [],
+               f"peak RSS {max(mem):.0f} MB", "n/a", "no reference: memory should not grow with rows")
+
+
 WORKLOADS = {
     "ulsif": workload_ulsif,
     "scoring": workload_scoring,
@@ -771,6 +903,7 @@ WORKLOADS = {
     "logistic": workload_logistic,
     "kmm": workload_kmm,
     "mmd": workload_mmd,
+    "tables": workload_tables,
 }
 
 
