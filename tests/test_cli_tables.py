@@ -70,3 +70,22 @@ def test_parquet_from_pyarrow_and_polars_reads_like_csv(cli: pathlib.Path, tmp_p
     line = next(ln for ln in r.stdout.splitlines() if ln.startswith("heating"))
     n_gaps = sum(v is None for v in src["heating"])
     assert line.split()[1:3] == ["categorical", str(n_gaps)], r.stdout
+
+
+def test_types_can_be_given_on_the_command_line(cli: pathlib.Path, tmp_path: pathlib.Path) -> None:
+    (tmp_path / "t.csv").write_text("code,size\n01,1.5\n02,x\n10,2\n")
+
+    def run(*a: str) -> subprocess.CompletedProcess:
+        return subprocess.run([str(cli), "columns", "--input", "t.csv", *a],
+                              cwd=tmp_path, capture_output=True, text=True)
+
+    r = run()
+    assert r.returncode == 0, r.stderr
+    kinds = {ln.split()[0]: ln.split()[1] for ln in r.stdout.splitlines()[2:]}
+    assert kinds == {"code": "numeric", "size": "categorical"}, r.stdout
+    # --categorical keeps the text as written (leading zeros); --numeric refuses text by row.
+    r = run("--categorical", "code")
+    assert r.returncode == 0 and '"01"' in r.stdout, r.stdout + r.stderr
+    r = run("--numeric", "size")
+    assert r.returncode == 2
+    assert "data row 2" in r.stderr and "`size`" in r.stderr and "--categorical size" in r.stderr
