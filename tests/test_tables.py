@@ -171,3 +171,17 @@ def test_shift_test_on_tables():
     assert res.p_value <= 0.05
     same = sw.shift_test(s, mixed_frame(200, P_S, 0.0, 42)[0], permutations=49)
     assert same.p_value > 0.01
+
+
+def test_check_overlap_counts_levels_absent_from_the_source():
+    s, _, _ = mixed_frame(100, P_S, 0.0, 50, missing=0.0)
+    t, _, _ = mixed_frame(80, P_T, 0.0, 51, missing=0.0)
+    t.loc[t.index[:6], "heating"] = "wood"
+    t.loc[t.index[3:10], "temp"] = np.nan
+    w = np.ones(len(t))
+    rep = sw.check_overlap(w, source=s, target=t)
+    gaps = {(g["column"], g["level"]): g["target_rows"] for g in rep.support_gaps}
+    assert gaps == {("heating", "wood"): 6, ("temp", None): 7}
+    assert rep.n_outside_support == 10  # rows 0-9: 6 with "wood", 7 missing, 3 with both
+    assert rep.flagged
+    assert any("`heating`" in m and "wood" in m for m in rep.warnings)

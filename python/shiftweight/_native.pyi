@@ -269,3 +269,6 @@ def feature_shift_table(
     max_importance_rows: int,
     seed: int,
 ) -> str: ...
+def check_overlap_tables(
+    target_ratios: _F64, limit: float, tolerance: float, source: Table, target: Table
+) -> str: ...

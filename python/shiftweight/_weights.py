@@ -29,6 +29,7 @@ import numpy as np
 
 from . import _native
 from ._native import ShiftweightError
+from ._tables import as_table
 from ._validation import as_count, as_vector
 
 __all__ = [
@@ -517,6 +518,10 @@ def check_overlap(
     n_target: Optional[int] = None,
     limit: float = 20.0,
     tolerance: float = 0.01,
+    source: Any = None,
+    target: Any = None,
+    categorical: Optional[Sequence[str]] = None,
+    numeric: Optional[Sequence[str]] = None,
 ) -> OverlapReport:
     """How much of the target does the source barely cover?
 
@@ -527,9 +532,29 @@ def check_overlap(
     barely covered when its ratio exceeds ``limit`` (default 20: the source density there is below
     1/20 of the target density); the report is flagged when more than ``tolerance`` (default 1%)
     of the target rows are. No weighting fixes missing support.
+
+    With ``source`` and ``target`` tables (DataFrames or pyarrow Tables; ``target_ratios`` at the
+    rows of ``target``), the report also counts the target rows with a level, or a missing value,
+    that the source never has in some column (``support_gaps``, ``n_outside_support``, one warning
+    per column and level): no weighting can cover those rows. ``categorical``/``numeric`` override
+    column types.
     """
     if (target_ratios is None) == (probabilities is None):
         raise ShiftweightError("give exactly one of `target_ratios` or `probabilities`")
+    if (source is None) != (target is None):
+        raise ShiftweightError("give both `source` and `target` tables, or neither")
+    if source is not None:
+        if target_ratios is None:
+            raise ShiftweightError("`source` and `target` tables need `target_ratios` (not `probabilities`)")
+        return OverlapReport(
+            _native.check_overlap_tables(
+                as_vector(target_ratios, "target_ratios"),
+                float(limit),
+                float(tolerance),
+                as_table(source, "source", categorical, numeric),
+                as_table(target, "target", categorical, numeric),
+            )
+        )
     if target_ratios is not None:
         return OverlapReport(
             _native.check_overlap(as_vector(target_ratios, "target_ratios"), float(limit), float(tolerance))

@@ -225,6 +225,34 @@ fn support_gaps(
     ))
 }
 
+/// The support-overlap report of `check_overlap` from the ratios at the target rows, with the
+/// support gaps of the typed `target` against `source` added (JSON of the report).
+#[pyfunction]
+fn check_overlap_tables(
+    py: Python<'_>,
+    target_ratios: PyReadonlyArray1<'_, f64>,
+    limit: f64,
+    tolerance: f64,
+    source: &PyTable,
+    target: &PyTable,
+) -> PyResult<String> {
+    let r = crate::vector(&target_ratios, "target_ratios")?;
+    let (s, t) = (source.inner.clone(), target.inner.clone());
+    detached(py, move || {
+        if t.rows() != r.len() {
+            return Err(shiftweight::Error::LengthMismatch {
+                argument: "target_ratios".into(),
+                expected: t.rows(),
+                found: r.len(),
+            });
+        }
+        let report = shiftweight::diagnostics::check_overlap(r, limit, tolerance)?;
+        let gaps = table::support_gaps(&s, &t)?;
+        let rows = table::rows_with_gaps(&s, &t)?;
+        report.with_support_gaps(gaps, rows).to_json()
+    })
+}
+
 /// Per-column shift table of typed tables (JSON of `FeatureShiftTable`).
 #[pyfunction]
 #[allow(clippy::too_many_arguments)]
@@ -258,5 +286,6 @@ pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(model_schema, m)?)?;
     m.add_function(wrap_pyfunction!(support_gaps, m)?)?;
     m.add_function(wrap_pyfunction!(feature_shift_table, m)?)?;
+    m.add_function(wrap_pyfunction!(check_overlap_tables, m)?)?;
     Ok(())
 }
