@@ -104,3 +104,12 @@ pub fn set_threads(n: usize) -> Result<()> {
             )
         })
 }
+
+/// The Rust code blocks of the repository's README, compiled and run as doctests so that the
+/// examples users copy keep working (`tests/test_docs.py` checks that every page with a Rust
+/// block is listed here; its Python blocks run there).
+#[cfg(doctest)]
+mod docs_examples {
+    #[doc = include_str!("../../../README.md")]
+    mod readme {}
+}
