@@ -214,12 +214,10 @@ enum Problem {
 }
 
 fn parse_number(t: &str) -> Result<f64, Problem> {
-    if MISSING_TOKENS.contains(&t) {
-        return Err(Problem::Missing);
-    }
     match t.parse::<f64>() {
         Ok(v) if v.is_finite() => Ok(v),
         Ok(v) if v.is_nan() => Err(Problem::Missing),
+        _ if MISSING_TOKENS.contains(&t) => Err(Problem::Missing),
         _ => Err(Problem::NotNumeric),
     }
 }
@@ -676,15 +674,7 @@ fn arrow_column(
         Values::Categorical(codes) => {
             if let Some(d) = a.as_any_dictionary_opt() {
                 // Intern each dictionary entry once, then map the keys.
-                let mut entries = Vec::new();
-                arrow_optional_text(path, d.values(), &mut entries)?;
-                let map: Vec<u32> = entries
-                    .iter()
-                    .map(|e| match e.as_deref().map(str::trim) {
-                        Some(t) => level_code(col, t),
-                        None => MISSING_CODE,
-                    })
-                    .collect();
+                let map = level_codes(path, col, d.values())?;
                 let keys = d.normalized_keys();
                 let nulls = d.keys().logical_nulls();
                 for (i, k) in keys.into_iter().enumerate() {
@@ -693,19 +683,24 @@ fn arrow_column(
                 }
                 return Ok(());
             }
-            let mut texts = Vec::with_capacity(a.len());
-            arrow_optional_text(path, a, &mut texts)?;
-            codes.extend(
-                texts
-                    .into_iter()
-                    .map(|t| match t.as_deref().map(str::trim) {
-                        Some(t) => level_code(col, t),
-                        None => MISSING_CODE,
-                    }),
-            );
+            codes.extend(level_codes(path, col, a)?);
             Ok(())
         }
     }
+}
+
+/// The level code of every value of an Arrow array (numbers and booleans spelled by Arrow's cast
+/// to text; null as missing).
+fn level_codes(path: &Path, col: &mut ColumnState, a: &dyn Array) -> Result<Vec<u32>, Failure> {
+    use arrow_array::cast::AsArray;
+    let s = arrow_cast::cast(a, &DataType::Utf8).map_err(|e| arrow_fail(path, e))?;
+    Ok(s.as_string::<i32>()
+        .iter()
+        .map(|t| match t {
+            Some(t) => level_code(col, t.trim()),
+            None => MISSING_CODE,
+        })
+        .collect())
 }
 
 fn is_text(t: &DataType) -> bool {
