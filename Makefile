@@ -6,7 +6,7 @@ PY := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
 export PATH := $(abspath $(VENV))/bin:$(PATH)
 
-.PHONY: test test-rust test-python develop develop-release venv lint fmt bench compare compare-quick demo clean
+.PHONY: study test test-rust test-python develop develop-release venv lint fmt bench compare compare-quick demo clean
 
 test: lint test-rust test-python
 
@@ -28,6 +28,12 @@ test-rust:
 test-python: develop
 	$(PY) -m mypy.stubtest shiftweight._native --allowlist stubtest-allowlist.txt
 	$(PY) -m pytest
+
+# Long seeded statistical studies (pytest marker `study`, Rust tests marked #[ignore]): not part of
+# `make test`, so the contributor loop stays short; CI (.ci/run) runs them after it.
+study: develop
+	cargo test --workspace --exclude shiftweight-py -- --ignored
+	$(PY) -m pytest -m study
 
 # ruff and mypy come with the test extras (installed by `develop`); their settings are in pyproject.toml.
 lint: develop

@@ -61,6 +61,7 @@ def test_one_standard_error_rule_picks_widest_within_margin():
         sw.KLRatio(se_margin=-1.0).fit(s, t)
 
 
+@pytest.mark.study  # 24 KLIEP fits with 5-fold CV: a long study, run by `make study`
 def test_gaussian_5d_mean_shift_nmse_small_and_falls_with_n():
     # Source N(0, I_5), target N(mu, I_5), mu = (0.5, 0, 0, 0, 0): log-ratio mu'x - |mu|^2/2 (analytic).
     # NMSE is a random quantity whose spread over draws (sd 0.06 at n = 200) is larger than the fall

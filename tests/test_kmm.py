@@ -115,8 +115,12 @@ def test_binding_eps_constraint_matches_scipy():
 # fitted rows; uniform weights score about 0.93.
 @pytest.mark.parametrize(
     "grid",
-    [None, ((0.5,), (0.1,)), ((1.0,), (0.01,))],
-    ids=["default_choice", "fixed_half_median_ridge_0.1", "fixed_median_ridge_0.01"],
+    [
+        # 12 seeds x 2 sizes x 12 candidate solves: a long study, run by `make study`
+        pytest.param(None, marks=pytest.mark.study, id="default_choice"),
+        pytest.param(((0.5,), (0.1,)), id="fixed_half_median_ridge_0.1"),
+        pytest.param(((1.0,), (0.01,)), id="fixed_median_ridge_0.01"),
+    ],
 )
 def test_gaussian_1d_mean_nmse_small_and_falls_with_n(grid):
     # One draw cannot show the fall (the per-draw sd is as large as the fall), so the claim is about
