@@ -59,6 +59,8 @@ pub mod label;
 pub mod learn;
 pub mod metrics;
 pub mod model;
+#[cfg(feature = "ndarray")]
+pub mod ndarray_views;
 pub(crate) mod order;
 pub(crate) mod par;
 pub(crate) mod random;
