@@ -2,7 +2,9 @@
 
 Detect whether deployment inputs differ from training inputs and where, estimate importance
 weights w(x) = p_target(x) / p_source(x) with data-chosen hyperparameters, check and stabilise
-them, retrain with them, and estimate target performance before target labels exist.
+them, retrain with them, and estimate target performance before target labels exist. For label
+shift (the class mix changes, the look of each class does not): estimate the target class mix
+from a classifier's probabilities and correct for it (``LabelShift``, ``class_mix_test``).
 
 Cautions: weighting corrects covariate shift only (not label or concept shift); it fails where
 the source does not cover the target; validate on labelled target data before relying on it; and
@@ -20,6 +22,14 @@ from ._evaluate import (
     compare_weighting,
     iw_cross_validate,
     weighted_metric,
+)
+from ._label import (
+    ClassMixTestResult,
+    LabelShift,
+    LabelShiftResult,
+    class_matched_rows,
+    class_mix_test,
+    out_of_fold_proba,
 )
 from ._learn import WeightedLogistic, WeightedRidge, linear_model_from_json
 from ._native import (
@@ -81,6 +91,12 @@ __all__ = [
     "feature_shift",
     "ShiftTestResult",
     "FeatureShiftTable",
+    "LabelShift",
+    "LabelShiftResult",
+    "class_mix_test",
+    "ClassMixTestResult",
+    "class_matched_rows",
+    "out_of_fold_proba",
     "demo_data",
     "stabilize",
     "StabilizeReport",

@@ -272,3 +272,27 @@ def feature_shift_table(
 def check_overlap_tables(
     target_ratios: _F64, limit: float, tolerance: float, source: Table, target: Table
 ) -> str: ...
+
+# label.rs
+TELLING_APART: str
+LABEL_SHIFT_CAUTION: str
+
+def label_shift_fit(
+    source_probabilities: _F64,
+    source_labels: _F64,
+    target_probabilities: _F64,
+    method: str,
+    level: float,
+    bootstrap: int,
+    seed: int,
+    max_iter: int,
+    class_names: Optional[List[str]],
+) -> str: ...
+def label_shift_adjust(document: str, probabilities: _F64) -> _F64: ...
+def class_mix_test(
+    source_probabilities: _F64, target_probabilities: _F64, permutations: int, min_expected: float, seed: int
+) -> str: ...
+def class_matched_rows(labels: _F64, proportions: _F64, seed: int) -> npt.NDArray[np.int64]: ...
+def stratified_kfold_assignment(labels: _F64, k: int, seed: int) -> npt.NDArray[np.int64]: ...
+def label_shift_from_json(text: str) -> str: ...
+def class_mix_test_from_json(text: str) -> str: ...

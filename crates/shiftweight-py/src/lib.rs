@@ -15,6 +15,7 @@ mod data;
 mod demo;
 mod detect;
 mod diagnostics;
+mod label;
 mod learn;
 mod metrics;
 mod ratio;
@@ -195,5 +196,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     weights::register(m)?;
     diagnostics::register(m)?;
     table::register(m)?;
+    label::register(m)?;
     Ok(())
 }

@@ -50,6 +50,14 @@ pub const LABEL_SHIFT_FORMAT: &str = "shiftweight.label-shift";
 /// Format tag of serialised [`ClassMixTestResult`] documents.
 pub const CLASS_MIX_TEST_FORMAT: &str = "shiftweight.class-mix-test";
 
+/// Cautions printed with every label-shift estimate (documents, reports, notebook views).
+pub const LABEL_SHIFT_CAUTION: &str = "Label-shift correction assumes that the look of each \
+class, p(x | y), and the classifier's errors are the same in source and target; it does not \
+correct covariate or concept shift. It needs a classifier that tells the classes apart (a \
+well-conditioned confusion matrix), and with few target rows the proportions are uncertain: read \
+the intervals. Decisions about people still need validation on labelled target rows and the \
+review of their domain.";
+
 /// Largest distance of a probability row's sum from 1 that is accepted (the row is then divided
 /// by its sum); float32 softmax outputs are within about 1e-6.
 pub const ROW_SUM_TOLERANCE: f64 = 1e-4;
