@@ -73,3 +73,25 @@ def sinc_regression_toy(seed, n_source=150, n_target=5000, noise=0.1):
     ws = norm.pdf(xs, 2.0, 0.25) / norm.pdf(xs, 1.0, 0.5)
     wt = norm.pdf(xt, 2.0, 0.25) / norm.pdf(xt, 1.0, 0.5)
     return xs.reshape(-1, 1), ys, ws, xt.reshape(-1, 1), yt, wt
+
+
+def labelled_selection(dataset, seed, columns=(0, 1)):
+    """Zadrozny (2004) selection bias, as in breast_cancer_selection, on a labelled bundled
+    scikit-learn dataset ("breast_cancer": Wolberg, Street, Mangasarian 1995, classification;
+    "diabetes": Efron et al. 2004, regression): the target is a random half of the rows; the
+    source keeps each row of the other half with probability
+    s(x) = 0.1 + 0.8 * sigmoid(1.5 z_a - 1.0 z_b), z standardised columns `columns` = (a, b).
+    Returns source rows, source labels, target rows, target labels and 1 / s(x) at the source rows."""
+    from sklearn.datasets import load_breast_cancer, load_diabetes
+
+    data = {"breast_cancer": load_breast_cancer, "diabetes": load_diabetes}[dataset]()
+    X, y = np.asarray(data.data, float), np.asarray(data.target, float)
+    rng = np.random.default_rng(seed)
+    z = (X - X.mean(0)) / X.std(0)
+    a, b = columns
+    s_prob = 0.1 + 0.8 / (1.0 + np.exp(-(1.5 * z[:, a] - 1.0 * z[:, b])))
+    order = rng.permutation(len(X))
+    half = len(X) // 2
+    tgt_idx, pool = order[:half], order[half:]
+    keep = pool[rng.random(len(pool)) < s_prob[pool]]
+    return X[keep], y[keep], X[tgt_idx], y[tgt_idx], 1.0 / s_prob[keep]

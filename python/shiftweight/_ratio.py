@@ -604,51 +604,70 @@ class ClassifierRatio(RatioEstimatorBase):
 
 
 class AutoRatio(RatioEstimatorBase):
-    """Chooses among ratio estimators by the held-out least-squares criterion (no labels needed).
+    """Chooses a ratio estimator and the cap on its weights from held-out rows (no labels needed).
 
-    For each candidate, J(w) = 1/2 mean_source(w^2) - mean_target(w) is computed on held-out
-    folds of both samples (the candidate is fitted on the other folds, choosing its own
-    hyperparameters there), and averaged over folds. J differs from the squared error to the true
-    ratio by a constant (Kanamori, Hido, Sugiyama 2009), so lower is better. Uniform weights
-    (w = 1, J = -0.5) are always a candidate. A candidate is eligible only if its mean beats
-    uniform's by more than ``se_margin`` of its standard errors, and the eligible one with the
-    lowest mean wins; with none eligible, uniform weights are kept and ``warnings_`` says that no
-    correction was chosen. The winner is refitted on all rows.
+    Every candidate is fitted on the other folds of both samples (choosing its own
+    hyperparameters there) and judged by the weights it would hand over: its estimate rescaled
+    and capped, g = min(s w, c), for each cap c in Ionides' sqrt(n) (Ionides 2008), 10, 5 and 3
+    times the mean weight, s making the capped source weights average 1. With the default
+    ``score="capped_least_squares"`` the held-out criterion is J(g) = 1/2 mean_source(g^2) -
+    mean_target(g), which differs from the squared error to the true ratio by a constant
+    (Kanamori, Hido, Sugiyama 2009); capped weights are bounded, so a heavy tail cannot buy a low
+    score. Each candidate keeps its best cap. ``score="relative_pearson"`` scores the bounded
+    relative ratio g / (g/2 + 1/2) instead (Yamada et al. 2013); ``score="least_squares"`` scores
+    raw weights without a cap. The measurements behind the default are in
+    docs/automatic-choice.md.
 
-    Heavy-tail guard: J averages w^2 over the held-out source rows, and weights that explode where
-    source rows are rare (a linear classifier extrapolating past the source) make it come out far
-    too low, because the few held-out rows miss the tail. So each candidate's held-out source
-    weights, pooled over folds, get a Pareto tail fit; a candidate with k >= 1 (a tail with no
-    finite mean, which no density ratio has) is listed with its score but not chosen, and
-    ``warnings_`` says so.
+    Uniform weights (w = 1, score -0.5) are always a candidate. A candidate is eligible if its
+    mean score beats uniform's by more than ``se_margin`` of its standard errors and the Pareto
+    tail shape k of its held-out raw source weights is below ``tail_k`` (0.7: above it weighted
+    estimates are unreliable, Vehtari et al. 2024). Among eligible candidates within one standard
+    error of the best, the one with the largest effective sample size wins (``prefer_stable``).
+    With none eligible, uniform weights are kept and ``warnings_`` says that no correction was
+    found to help. The winner is refitted on all rows and its cap applied: ``ratio`` and
+    ``source_weights_`` are the capped weights (mean 1 over the source rows), ``raw_ratio`` the
+    estimate before the cap. Above ``max_rows`` rows in a sample, candidates are scored on a
+    seeded subsample of that many rows.
 
-    KMM cannot be a candidate: it is transductive (no weights for held-out rows, so no held-out
-    score).
+    KMM cannot be a candidate: it is transductive (no weights for held-out rows, so no honest
+    held-out score).
 
     Parameters
     ----------
     candidates : None, list or dict
-        None: uLSIF, RuLSIF (alpha 0.1) and the classifier with linear, quadratic and Fourier
-        features; the quadratic one only up to 20 columns (its d(d+3)/2 features make the fit
-        cost grow like d^4: measured 0.32 s per fit at d = 20, 19.5 s at d = 40 on 1,000 + 1,000
-        rows), and ``warnings_`` says when it is left out. Otherwise estimator instances,
+        None: uLSIF, RuLSIF (alpha 0.1), KLIEP and the classifier with linear, quadratic and
+        Fourier features; the quadratic one only up to 20 columns (its d(d+3)/2 features make the
+        fit cost grow like d^4: measured 0.32 s per fit at d = 20, 19.5 s at d = 40 on 1,000 +
+        1,000 rows), and ``warnings_`` says when it is left out. Otherwise estimator instances,
         ``(name, estimator)`` pairs, or a dict ``{name: estimator}`` (names default to the
         estimator's repr).
     folds : int
         Held-out folds (>= 2).
     seed : int
-        Seed of the folds and of the default candidates.
+        Seed of the folds, the subsample and the default candidates.
     se_margin : float
         Standard errors by which a candidate must beat uniform weights to be eligible.
+    score : str
+        "capped_least_squares", "relative_pearson" or "least_squares".
+    prefer_stable : bool
+        Among candidates within one standard error of the best, take the largest effective sample
+        size (else the lowest mean).
+    tail_k : float
+        Pareto k of the held-out raw source weights at or above which a candidate is not chosen.
+    max_rows : int
+        Rows per sample above which candidates are scored on a seeded subsample (>= 100).
 
     Attributes
     ----------
     chosen_ : name of the chosen candidate ("uniform" for no correction); ``scores_``: list of
-    dicts (name, score, std_error, pareto_k, excluded), uniform first, where ``pareto_k`` is the
-    tail shape of the held-out source weights (None when it cannot be estimated, e.g. bounded
-    weights) and ``excluded`` is True for candidates the heavy-tail guard kept from being chosen;
-    ``chosen_estimator_``: the refitted winner as its own class (None for uniform);
-    ``source_weights_``: the winner's source weights.
+    dicts (name, score, std_error, pareto_k, excluded, cap, ess_fraction), uniform first, where
+    ``pareto_k`` is the tail shape of the held-out raw source weights (None when it cannot be
+    estimated), ``excluded`` is True for candidates the heavy-tail guard kept from being chosen,
+    ``cap`` the candidate's best cap on the mean-1 scale and ``ess_fraction`` the effective sample
+    size of its held-out capped source weights as a fraction of the rows; ``cap_``: the cap
+    applied to the winner (None for uniform weights or raw scores); ``chosen_estimator_``: the
+    refitted winner as its own class, sharing the capped model (None for uniform);
+    ``source_weights_``: the weights handed over.
 
     Examples
     --------
@@ -663,11 +682,25 @@ class AutoRatio(RatioEstimatorBase):
     True
     """
 
-    def __init__(self, candidates: Any = None, folds: int = 5, seed: int = 0, se_margin: float = 1.0):
+    def __init__(
+        self,
+        candidates: Any = None,
+        folds: int = 5,
+        seed: int = 0,
+        se_margin: float = 1.0,
+        score: str = "capped_least_squares",
+        prefer_stable: bool = True,
+        tail_k: float = 0.7,
+        max_rows: int = 20000,
+    ):
         self.candidates = candidates
         self.folds = folds
         self.seed = seed
         self.se_margin = se_margin
+        self.score = score
+        self.prefer_stable = prefer_stable
+        self.tail_k = tail_k
+        self.max_rows = max_rows
 
     def _candidate_specs(self):
         if self.candidates is None:
@@ -692,6 +725,10 @@ class AutoRatio(RatioEstimatorBase):
             as_count(self.folds, "folds"),
             as_seed(self.seed),
             float(self.se_margin),
+            str(self.score),
+            bool(self.prefer_stable),
+            float(self.tail_k),
+            as_count(self.max_rows, "max_rows"),
             feature_names=names,
         )
 
@@ -705,9 +742,13 @@ class AutoRatio(RatioEstimatorBase):
                 "std_error": r["std_error"],
                 "pareto_k": r.get("pareto_k"),
                 "excluded": bool(r.get("excluded", 0.0)),
+                "cap": r.get("cap"),
+                "ess_fraction": r.get("ess_fraction"),
             }
             for n, r in zip(sel["labels"], sel["table"])
         ]
+        cap = model.cap
+        self.cap_ = None if cap is None else cap[1]
         cls = _KIND_TO_CLASS.get(model.kind)
         if cls is None:
             self.chosen_estimator_ = None
@@ -715,6 +756,30 @@ class AutoRatio(RatioEstimatorBase):
             est = cls()
             est._set_fitted(model)
             self.chosen_estimator_ = est
+
+    def raw_ratio(self, X: Any) -> np.ndarray:
+        """The chosen estimator's w(x) before the cap (for analysis; ``ratio`` gives the weights to use)."""
+        model = self._check_fitted()
+        x, names = as_matrix(X, "X")
+        if x.shape[1] != model.n_features:
+            raise _native.ShiftweightError(
+                f"`X` has {x.shape[1]} feature column(s) but the model was fitted on {model.n_features}"
+            )
+        check_same_columns(model.feature_names, names, "the fitted data", "X")
+        return model.raw_ratio(x)
+
+    def decision_summary(self) -> str:
+        """The automatic choice in plain words: which estimator and why (score, standard error,
+        effective sample size), which cap, what was excluded and why, or that uniform weights were
+        kept because no correction was found to help."""
+        return self._check_fitted().decision_summary() or ""
+
+    def __repr__(self) -> str:
+        base = super().__repr__()
+        model = getattr(self, "model_", None)
+        if model is None:
+            return base
+        return f"{base}\n  fitted: {model.decision_summary()}"
 
     def score_table(self):
         """The score table as a pandas DataFrame (needs pandas): candidates that may be chosen first,

@@ -121,14 +121,9 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         estimator.fit(s, t)?
     };
     model.meta.feature_names = Some(data.feature_names.clone());
-    // Truncation at sqrt(n) x mean (Ionides 2008) and normalisation to mean 1.
-    let outcome = finish_weights(
-        &model,
-        &StabiliseArgs {
-            truncate: true,
-            ..StabiliseArgs::default()
-        },
-    )?;
+    // The automatic choice hands over weights with their cap chosen and applied; the demo adds
+    // no stabilisation of its own, so it shows what `weigh` and Python give by default.
+    let outcome = finish_weights(&model, &StabiliseArgs::default())?;
     let w = &outcome.weights;
     let ess = outcome.part.effective_sample_size;
     let diag = |k: &str| {
@@ -213,6 +208,9 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             100.0 * ess / w.len() as f64
         );
         println!("{verdict_line}");
+        if let Some(words) = shiftweight::ratio::decision_summary(&model) {
+            println!("  why: {words}");
+        }
         println!("  linear model of daily kWh, error on the target town (labels known only in this demo):");
         println!("    unweighted fit: mean squared error {e_plain:.2}");
         println!("    weighted fit:   mean squared error {e_weighted:.2}");

@@ -65,9 +65,10 @@ pub type BoxedEstimator = Box<dyn RatioEstimator + Send + Sync>;
 
 /// Maps the `--estimator` choice and its options to an estimator. Options are checked here, so a
 /// bad value fails before any file is read further.
-/// `auto` chooses among uniform weights, uLSIF, RuLSIF and the classifier (linear, quadratic and
-/// Fourier features, data-chosen penalty) by the held-out least-squares criterion; the classifier
-/// here chooses its penalty by out-of-fold log-loss.
+/// `auto` chooses among uniform weights, uLSIF, RuLSIF, KLIEP and the classifier (linear,
+/// quadratic and Fourier features, data-chosen penalty), each with the cap on its weights, by the
+/// held-out criterion of `shiftweight::ratio::auto`; the classifier here chooses its penalty by
+/// out-of-fold log-loss.
 pub fn build_estimator(args: &EstimatorArgs, seed: u64) -> Result<BoxedEstimator, Failure> {
     let least_squares = |alpha: f64| -> Result<BoxedEstimator, Failure> {
         let e = LeastSquaresRatio::new()

@@ -87,7 +87,13 @@ pub fn finish_weights(
     let (weights, described) = match opts.options() {
         None => (
             model.source_weights.clone(),
-            "none (raw estimates)".to_string(),
+            match model.cap {
+                Some(c) => format!(
+                    "capped at {:.3} times the mean weight and rescaled to mean 1 (chosen with the estimator)",
+                    c.upper
+                ),
+                None => "none (raw estimates)".to_string(),
+            },
         ),
         Some(o) => {
             let st = stabilize(&model.source_weights, &o)?;

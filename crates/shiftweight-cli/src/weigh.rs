@@ -154,6 +154,9 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
                 String::new()
             }
         );
+        if let Some(words) = shiftweight::ratio::decision_summary(&model) {
+            eprintln!("automatic choice: {words}");
+        }
     }
     Ok(0)
 }

@@ -5,7 +5,7 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
 use shiftweight::ratio::auto::UniformRatio;
-use shiftweight::ratio::{Features, FittedRatio, RatioEstimator};
+use shiftweight::ratio::{Features, FittedRatio, RatioEstimator, SelectionScore};
 use shiftweight::{
     AutoRatio, ClassifierRatio, KLRatio, KernelMeanMatching, KliepCv, LeastSquaresRatio,
 };
@@ -35,6 +35,26 @@ impl RatioModel {
         let m = self.inner.clone();
         let out = detached(py, move || m.ratio(xv))?;
         Ok(out.into_pyarray(py))
+    }
+    /// w(x) before the cap the automatic choice applies (the same as `ratio` without one).
+    fn raw_ratio<'py>(
+        &self,
+        py: Python<'py>,
+        x: PyReadonlyArray2<'py, f64>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
+        let xv = view(&x, "X")?;
+        let m = self.inner.clone();
+        let out = detached(py, move || m.raw_ratio(xv))?;
+        Ok(out.into_pyarray(py))
+    }
+    /// The cap applied on top of the estimate as (scale, upper), or None.
+    #[getter]
+    fn cap(&self) -> Option<(f64, f64)> {
+        self.inner.cap.map(|c| (c.scale, c.upper))
+    }
+    /// The automatic choice in plain words (None for a model not from the automatic choice).
+    fn decision_summary(&self) -> Option<String> {
+        shiftweight::ratio::decision_summary(&self.inner)
     }
     /// Weights of the source rows used in the fit.
     #[getter]
@@ -254,7 +274,7 @@ fn candidate(kind: &str, p: &Bound<'_, PyDict>) -> PyResult<Box<dyn RatioEstimat
 
 /// Fits AutoRatio. `candidates`: None for the defaults, else a list of (name, kind, params).
 #[pyfunction]
-#[pyo3(signature = (source, target, candidates, folds, seed, se_margin, feature_names=None))]
+#[pyo3(signature = (source, target, candidates, folds, seed, se_margin, score, prefer_stable, tail_k, max_rows, feature_names=None))]
 #[allow(clippy::too_many_arguments)]
 fn fit_auto(
     py: Python<'_>,
@@ -264,13 +284,21 @@ fn fit_auto(
     folds: usize,
     seed: u64,
     se_margin: f64,
+    score: &str,
+    prefer_stable: bool,
+    tail_k: f64,
+    max_rows: usize,
     feature_names: Option<Vec<String>>,
 ) -> PyResult<RatioModel> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
     let mut est = AutoRatio::new()
         .folds(folds)
         .seed(seed)
-        .se_margin(se_margin);
+        .se_margin(se_margin)
+        .score(SelectionScore::from_name(score).map_err(to_py)?)
+        .prefer_stable(prefer_stable)
+        .tail_k(tail_k)
+        .max_rows(max_rows);
     if let Some(list) = candidates {
         est = est.without_defaults();
         for (name, kind, p) in &list {

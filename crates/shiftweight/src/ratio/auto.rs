@@ -1,59 +1,85 @@
-//! Data-driven choice among ratio estimators by the held-out least-squares criterion.
+//! Data-driven choice among ratio estimators and their stabilisation, judged on held-out rows.
 //!
-//! For any candidate ratio w, the Pearson (least-squares) criterion
+//! **The criterion.** For any candidate ratio g, the Pearson (least-squares) criterion
 //!
 //! ```text
-//! J(w) = 1/2 E_source[w(x)^2] - E_target[w(x)]  =  1/2 E_source[(w - w*)^2] - 1/2 E_source[w*^2]
+//! J(g) = 1/2 E_source[g(x)^2] - E_target[g(x)]  =  1/2 E_source[(g - w*)^2] - 1/2 E_source[w*^2]
 //! ```
 //!
-//! differs from the squared error to the true ratio w* only by a constant, so it ranks estimators
-//! by accuracy without any labels (Kanamori, Hido, Sugiyama 2009, JMLR 10, section 3; it is the
-//! criterion uLSIF minimises). It is estimated on held-out rows: source and target rows are each
-//! split into `folds` seeded folds; every candidate is fitted on the other folds of both samples
-//! (choosing its own hyperparameters there by its own criterion) and J is computed on the
-//! held-out fold of both samples; the table reports the mean over folds and its standard error
-//! (sd / sqrt(folds)). The chosen candidate is refitted on all rows.
+//! differs from the squared error to the true ratio w* only by a constant, so it ranks functions
+//! by accuracy without any labels (Kanamori, Hido, Sugiyama 2009, JMLR 10, section 3). It is
+//! estimated on held-out rows: source and target rows are each split into `folds` seeded folds;
+//! every candidate is fitted on the other folds of both samples (choosing its own
+//! hyperparameters there by its own criterion) and scored on the held-out fold of both samples;
+//! the table reports the mean over folds and its standard error (sd / sqrt(folds)).
 //!
-//! Uniform weights (w = 1, "no correction", J = -1/2 exactly) are always scored. A candidate is
-//! eligible only if its mean score is lower than theirs by more than `se_margin` of its standard
-//! errors (default 1; a one-standard-error rule, common practice), and the eligible candidate with
-//! the lowest mean is chosen; so a noisy candidate with a low mean does not block a steady one that
-//! also beats uniform, and with no real shift the choice is "no correction" and the fitted model
-//! says so in a warning. The choice is therefore never worse
-//! than not weighting, as measured by this criterion.
+//! **Judged by the weights handed over.** Raw estimates are not what a user should receive, and
+//! on raw weights the held-out J rewards heavy tails: it estimates E_source[w^2] from held-out
+//! source rows, which rarely contain the thin tail where a heavy-tailed estimate explodes, while
+//! E_target[w] sees it, so the most extreme candidate looks best. So each candidate is scored
+//! (with [`SelectionScore::CappedLeastSquares`], the default) through the weights it would hand
+//! over: `g = min(s w, c)`, with `s` the scale that gives the capped training-fold source weights
+//! mean 1 ([`crate::weights::stabilize`] with an upper bound), for each cap `c` of
+//! [`CAP_LEVELS`] and Ionides' truncation level sqrt(n) (Ionides 2008, *J. Computational and
+//! Graphical Statistics* 17(2)). Capped weights are bounded, so the variance of the held-out
+//! score is at most c^2 / n_held_out: a heavy tail can no longer buy a low score. Each candidate
+//! keeps the cap with its lowest mean score; its weights after that cap are what it hands over.
+//! [`SelectionScore::RelativePearson`] instead scores the bounded relative ratio
+//! g / (alpha g + 1 - alpha) by the relative Pearson criterion (Yamada et al. 2013, alpha =
+//! [`RELATIVE_ALPHA`]); [`SelectionScore::LeastSquares`] scores raw weights (no cap). The three
+//! are compared in docs/automatic-choice.md.
 //!
-//! Heavy-tail guard. The held-out J is an average of w^2 over the held-out source rows, and when a
-//! candidate's weights grow fast where source rows are rare (a linear classifier extrapolating
-//! exp(a x) past the source, say), the few held-out rows miss that tail and J comes out far too
-//! low: it looks best exactly when it is worst. So the held-out source weights of each candidate
-//! (pooled over the folds, each from a model that did not see the row) get a Pareto tail fit
-//! ([`crate::diagnostics::pareto_k`]). A density ratio has source mean 1, so its tail has a finite
-//! mean; a generalised Pareto tail with shape k >= 1 has none (Pickands 1975; Vehtari et al. 2024
-//! read k >= 1 as "the mean does not exist"). A candidate with k >= [`TAIL_NO_MEAN_K`] is shown in
-//! the table with its k but not chosen, and a warning says why. The stricter bound for a finite
-//! second moment, k < 1/2, is not used: measured finite-sample k of uLSIF weights, which are
-//! bounded by construction, ran from 0.5 to 0.9 on Gaussian pairs of 400 rows a side.
+//! **The choice.** Uniform weights (w = 1, "no correction", score -1/2 exactly under every
+//! score) are always in the table. A candidate is eligible only if its mean score is lower than
+//! uniform's by more than `se_margin` of its standard errors (default 1, common practice) and the
+//! heavy-tail guard below does not exclude it. Among the eligible candidates whose mean is within
+//! one standard error of the lowest (the one-standard-error rule, common practice), the one whose
+//! held-out capped source weights have the largest Kish effective sample size is chosen
+//! (`prefer_stable`, default on; off: the lowest mean). With none eligible the choice is uniform
+//! weights and the fitted model says so in a warning: the data give no evidence that weighting
+//! would help.
 //!
-//! Default candidates: uLSIF, RuLSIF (alpha 0.1) and the classifier with linear, quadratic and
-//! Fourier features; the quadratic one only up to [`QUADRATIC_DEFAULT_MAX_COLUMNS`] columns (its
-//! cost grows like d^4, see [`default_candidates_for`]; a warning says when it is left out).
+//! **Heavy-tail guard.** The raw held-out source weights of each candidate (pooled over the folds,
+//! each from a model that did not see the row) get a generalised Pareto tail fit
+//! ([`crate::diagnostics::pareto_k`]). A candidate with k >= `tail_k` (default
+//! [`TAIL_UNRELIABLE_K`] = 0.7, the level above which Vehtari et al. 2024, JMLR 25(72), find
+//! importance-sampling estimates unreliable at practical sample sizes) is listed with its k and
+//! score but not chosen, and a warning says why: its capped weights would mostly be the cap.
+//!
+//! **Scale.** Above `max_rows` rows in a sample, the candidates are scored on a seeded random
+//! subsample of `max_rows` rows of that sample; the winner is then refitted on all rows.
+//!
+//! Default candidates: uLSIF, RuLSIF (alpha 0.1), KLIEP (width by its source-and-target
+//! likelihood cross-validation) and the classifier with linear, quadratic and Fourier features;
+//! the quadratic one only up to [`QUADRATIC_DEFAULT_MAX_COLUMNS`] columns (its cost grows like
+//! d^4, see [`default_candidates_for`]; a warning says when it is left out).
 //!
 //! Candidates are named, boxed estimators: any [`RatioEstimator`] that scores new rows can enter.
 //! KMM cannot: it is transductive (weights exist only for the rows it was fitted on), so it has no
-//! value at held-out rows and no held-out score. A candidate that fails in any fold (for example a
-//! transductive one, or a solver that does not converge) gets an infinite score and a warning.
+//! value at held-out rows and no honest held-out score. A candidate that fails in any fold (for
+//! example a transductive one, or a solver that does not converge) gets an infinite score and a
+//! warning.
+//!
+//! The fitted model records the chosen cap in [`FittedRatio::cap`]: its `ratio` and
+//! `source_weights` are the capped weights (mean 1 over the source rows), and
+//! [`FittedRatio::raw_ratio`] gives the estimate before the cap. [`decision_summary`] says in
+//! plain words what was chosen and why.
 //!
 //! Complexity: folds x (cost of fitting and scoring every candidate on (folds-1)/folds of the
-//! rows), plus one refit of the winner. Folds run one after another with the candidates in
-//! parallel; memory is one copy of the rows for the current fold.
+//! (subsampled) rows) + folds x candidates x caps x O(n log n) for the caps' scales, plus one
+//! refit of the winner on all rows. Folds run one after another with the candidates in parallel;
+//! memory is one copy of the (subsampled) rows for the current fold plus the pooled held-out
+//! source weights of every candidate and cap.
 
 use super::classifier::{ClassifierRatio, FeatureMap, Features};
+use super::kliep::KLRatio;
 use super::{
     fit_meta, params, standardise_pair, EstimatorKind, FittedRatio, LeastSquaresRatio,
-    RatioEstimator, RatioForm, ScoreRow, Selection,
+    RatioEstimator, RatioForm, ScoreRow, Selection, WeightCap,
 };
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
 use crate::error::{Error, Result};
+use crate::weights::{stabilize, StabilizeOptions};
 use rayon::prelude::*;
 
 /// Uniform weights w = 1: the "no correction" baseline.
@@ -76,6 +102,7 @@ impl RatioEstimator for UniformRatio {
             meta: fit_meta(&source, &target, 0),
             warnings,
             encoding: None,
+            cap: None,
         })
     }
 }
@@ -96,10 +123,87 @@ impl std::fmt::Debug for Candidate {
     }
 }
 
-/// Candidates whose pooled held-out source weights have a fitted Pareto tail shape k at or above
-/// this are not chosen: such a tail has no finite mean, which a density ratio (source mean 1)
-/// must have (see the module docs).
-pub const TAIL_NO_MEAN_K: f64 = 1.0;
+/// How candidates are scored on held-out rows (see the module docs).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SelectionScore {
+    /// J on the weights after each candidate's best cap (default).
+    #[default]
+    CappedLeastSquares,
+    /// Relative Pearson criterion (Yamada et al. 2013, alpha = [`RELATIVE_ALPHA`]) on the weights
+    /// after each candidate's best cap.
+    RelativePearson,
+    /// J on the raw weights, no cap.
+    LeastSquares,
+}
+
+impl SelectionScore {
+    /// Short name: `"capped_least_squares"`, `"relative_pearson"` or `"least_squares"`.
+    pub fn name(&self) -> &'static str {
+        match self {
+            SelectionScore::CappedLeastSquares => "capped_least_squares",
+            SelectionScore::RelativePearson => "relative_pearson",
+            SelectionScore::LeastSquares => "least_squares",
+        }
+    }
+    /// Parses a short name.
+    pub fn from_name(s: &str) -> Result<Self> {
+        [
+            SelectionScore::CappedLeastSquares,
+            SelectionScore::RelativePearson,
+            SelectionScore::LeastSquares,
+        ]
+        .into_iter()
+        .find(|v| v.name() == s)
+        .ok_or_else(|| {
+            Error::param(
+                "score",
+                format!(
+                    "unknown score {s:?}; expected \"capped_least_squares\", \"relative_pearson\" \
+                     or \"least_squares\""
+                ),
+            )
+        })
+    }
+    /// The score of held-out weights (lower is better; -1/2 for w = 1).
+    pub fn of(&self, w_source: &[f64], w_target: &[f64]) -> f64 {
+        match self {
+            SelectionScore::RelativePearson => relative_pearson_criterion(w_source, w_target),
+            _ => least_squares_criterion(w_source, w_target),
+        }
+    }
+    fn describe(&self) -> &'static str {
+        match self {
+            SelectionScore::CappedLeastSquares => {
+                "held-out least-squares criterion J(g) = 1/2 mean_source(g^2) - mean_target(g) of the \
+                 capped weights g = min(s w, c) each candidate hands over, mean over folds (lower is better)"
+            }
+            SelectionScore::RelativePearson => {
+                "held-out relative Pearson criterion (alpha 0.5) of the capped weights each candidate \
+                 hands over, mean over folds (lower is better)"
+            }
+            SelectionScore::LeastSquares => {
+                "held-out least-squares criterion J(w) = 1/2 mean_source(w^2) - mean_target(w) of the \
+                 raw weights, mean over folds (lower is better)"
+            }
+        }
+    }
+}
+
+/// Candidates whose pooled held-out raw source weights have a fitted Pareto tail shape k at or
+/// above this are not chosen by default (Vehtari et al. 2024: above 0.7 importance-sampling
+/// estimates are unreliable at practical sample sizes).
+pub const TAIL_UNRELIABLE_K: f64 = 0.7;
+
+/// Caps on the mean-1 scale tried for every candidate, besides Ionides' sqrt(n) (caps at or
+/// above sqrt(n) are skipped). The grid is a design choice measured in docs/automatic-choice.md.
+pub const CAP_LEVELS: [f64; 3] = [10.0, 5.0, 3.0];
+
+/// Mixing proportion of [`SelectionScore::RelativePearson`].
+pub const RELATIVE_ALPHA: f64 = 0.5;
+
+/// Default `max_rows`: above this many rows in a sample, candidates are scored on a subsample.
+pub const DEFAULT_MAX_ROWS: usize = 20_000;
 
 /// Name of the always-present baseline in the score table.
 pub const UNIFORM_NAME: &str = "uniform";
@@ -130,7 +234,8 @@ pub const QUADRATIC_NAME: &str = "classifier_quadratic";
 ///
 /// The linear and quadratic classifiers choose their penalty by out-of-fold log-loss (with the
 /// fixed default l2 = 1, small samples under-fit the curvature of the log-ratio and the weights
-/// blow up in the tails); the Fourier classifier keeps l2 = 1 to bound the cost.
+/// blow up in the tails); the Fourier classifier keeps l2 = 1 to bound the cost. KLIEP chooses
+/// its width by likelihood cross-validation holding out source and target rows.
 pub fn default_candidates(seed: u64) -> Vec<Candidate> {
     fn c(name: &str, e: impl RatioEstimator + Send + Sync + 'static) -> Candidate {
         Candidate {
@@ -144,6 +249,7 @@ pub fn default_candidates(seed: u64) -> Vec<Candidate> {
             "rulsif_alpha_0.1",
             LeastSquaresRatio::new().alpha(0.1).seed(seed),
         ),
+        c("kliep", KLRatio::new().seed(seed)),
         c(
             "classifier_linear",
             ClassifierRatio::new().l2(None).seed(seed),
@@ -173,10 +279,19 @@ pub struct AutoRatio {
     pub candidates: Vec<Candidate>,
     /// Number of held-out folds (default 5, at least 2).
     pub folds: usize,
-    /// Seed of the folds and of the default candidates (default 0).
+    /// Seed of the folds, the subsample and the default candidates (default 0).
     pub seed: u64,
     /// How many standard errors a candidate must beat uniform weights by (default 1, >= 0).
     pub se_margin: f64,
+    /// How held-out weights are scored (default capped least squares).
+    pub score: SelectionScore,
+    /// Among candidates within one standard error of the best, take the one with the largest
+    /// effective sample size (default true).
+    pub prefer_stable: bool,
+    /// Pareto k at or above which a candidate is not chosen (default 0.7, > 0).
+    pub tail_k: f64,
+    /// Rows per sample above which candidates are scored on a subsample (default 20,000, >= 100).
+    pub max_rows: usize,
 }
 
 impl Default for AutoRatio {
@@ -187,28 +302,39 @@ impl Default for AutoRatio {
             folds: 5,
             seed: 0,
             se_margin: 1.0,
+            score: SelectionScore::default(),
+            prefer_stable: true,
+            tail_k: TAIL_UNRELIABLE_K,
+            max_rows: DEFAULT_MAX_ROWS,
         }
     }
 }
 
-/// Held-out score of one candidate.
+/// Held-out score of one candidate (with its best cap).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CandidateScore {
     /// Candidate name.
     pub name: String,
-    /// Mean held-out J over folds (lower is better; infinite when the candidate failed).
+    /// Mean held-out score over folds (lower is better; infinite when the candidate failed).
     pub mean: f64,
     /// Standard error of the mean over folds.
     pub std_error: f64,
-    /// J on each fold.
+    /// Score on each fold.
     pub per_fold: Vec<f64>,
     /// The failure message, when the candidate failed in some fold.
     pub error: Option<String>,
-    /// Pareto k of the pooled held-out source weights (None when it cannot be estimated, e.g.
-    /// for bounded or too few weights).
+    /// Pareto k of the pooled held-out raw source weights (None when it cannot be estimated,
+    /// e.g. for bounded or too few weights).
     pub pareto_k: Option<f64>,
     /// Why the candidate may not be chosen despite its score (the heavy-tail guard).
     pub excluded: Option<String>,
+    /// The cap on the mean-1 scale that goes with the candidate (None: raw weights).
+    pub cap: Option<f64>,
+    /// Whether the cap is Ionides' truncation level sqrt(n) (recomputed at the refit).
+    pub cap_is_truncation: bool,
+    /// Kish effective sample size of the pooled held-out (capped) source weights, as a fraction
+    /// of the rows.
+    pub ess_fraction: f64,
 }
 
 /// J(w) = 1/2 mean(w_source^2) - mean(w_target): the held-out least-squares criterion.
@@ -218,8 +344,71 @@ pub fn least_squares_criterion(w_source: &[f64], w_target: &[f64]) -> f64 {
     0.5 * a - b
 }
 
+/// The relative Pearson criterion of Yamada et al. (2013) for the relative ratio
+/// r = w / (alpha w + 1 - alpha), alpha = [`RELATIVE_ALPHA`]:
+/// alpha/2 mean_target(r^2) + (1 - alpha)/2 mean_source(r^2) - mean_target(r). r <= 1/alpha, so
+/// its variance stays bounded however heavy the tail of w.
+pub fn relative_pearson_criterion(w_source: &[f64], w_target: &[f64]) -> f64 {
+    let a = RELATIVE_ALPHA;
+    let r = |w: f64| w / (a * w + 1.0 - a);
+    let ns = w_source.len().max(1) as f64;
+    let nt = w_target.len().max(1) as f64;
+    let s2 = w_source.iter().map(|w| r(*w).powi(2)).sum::<f64>() / ns;
+    let (t1, t2) = w_target
+        .iter()
+        .fold((0.0, 0.0), |(a1, a2), w| (a1 + r(*w), a2 + r(*w).powi(2)));
+    0.5 * a * t2 / nt + 0.5 * (1.0 - a) * s2 - t1 / nt
+}
+
+/// The scale s with mean(min(s w, cap)) = 1 over `w` (see [`crate::weights::stabilize`]).
+fn cap_scale(w: &[f64], cap: f64) -> Result<f64> {
+    let st = stabilize(w, &StabilizeOptions::new().upper(cap))?;
+    Ok(st
+        .report
+        .steps
+        .iter()
+        .find(|s| s.step == "normalize")
+        .and_then(|s| s.value)
+        .unwrap_or(1.0))
+}
+
+/// The caps tried for a candidate fitted on `n` source rows: Ionides' sqrt(n) first, then
+/// [`CAP_LEVELS`] below it. The flag marks the truncation level.
+fn cap_levels(n: usize) -> Vec<(f64, bool)> {
+    let t = (n as f64).sqrt().max(1.0);
+    std::iter::once((t, true))
+        .chain(CAP_LEVELS.iter().filter(|c| **c < t).map(|c| (*c, false)))
+        .collect()
+}
+
+fn kish_fraction(w: &[f64]) -> f64 {
+    let (s, s2) = w.iter().fold((0.0, 0.0), |(a, b), x| (a + x, b + x * x));
+    if s2 > 0.0 {
+        s * s / (s2 * w.len() as f64)
+    } else {
+        0.0
+    }
+}
+
+/// A seeded subsample of at most `max_rows` rows (all rows, unsampled, below that).
+fn subsample(x: MatrixView, max_rows: usize, seed: u64) -> Option<Matrix> {
+    if x.rows() <= max_rows {
+        return None;
+    }
+    let mut r = crate::random::rng(seed);
+    let mut idx = rand::seq::index::sample(&mut r, x.rows(), max_rows).into_vec();
+    idx.sort_unstable();
+    Some(x.select_rows(&idx))
+}
+
+/// Held-out scores of one candidate and fold: per cap, (score, capped held-out source weights);
+/// plus the raw held-out source weights.
+type FoldScores = (Vec<(f64, Vec<f64>)>, Vec<f64>);
+
 impl AutoRatio {
-    /// Defaults: the default candidates plus uniform weights, 5 folds, seed 0, margin 1 SE.
+    /// Defaults: the default candidates plus uniform weights, 5 folds, seed 0, margin 1 SE,
+    /// capped least squares, stable choice within 1 SE, tail guard at k = 0.7, subsample above
+    /// 20,000 rows per sample.
     pub fn new() -> Self {
         Self::default()
     }
@@ -257,7 +446,7 @@ impl AutoRatio {
         self.folds = k;
         self
     }
-    /// Seed of the folds and of the default candidates.
+    /// Seed of the folds, the subsample and the default candidates.
     pub fn seed(mut self, seed: u64) -> Self {
         self.seed = seed;
         self
@@ -265,6 +454,26 @@ impl AutoRatio {
     /// Standard errors by which a candidate must beat uniform weights (>= 0).
     pub fn se_margin(mut self, m: f64) -> Self {
         self.se_margin = m;
+        self
+    }
+    /// How held-out weights are scored.
+    pub fn score(mut self, s: SelectionScore) -> Self {
+        self.score = s;
+        self
+    }
+    /// Stable choice among candidates within one standard error of the best.
+    pub fn prefer_stable(mut self, on: bool) -> Self {
+        self.prefer_stable = on;
+        self
+    }
+    /// Pareto k at or above which a candidate is not chosen (> 0).
+    pub fn tail_k(mut self, k: f64) -> Self {
+        self.tail_k = k;
+        self
+    }
+    /// Rows per sample above which candidates are scored on a subsample (>= 100).
+    pub fn max_rows(mut self, n: usize) -> Self {
+        self.max_rows = n;
         self
     }
 
@@ -275,6 +484,18 @@ impl AutoRatio {
             return Err(Error::param(
                 "se_margin",
                 format!("must be finite and >= 0, got {}", self.se_margin),
+            ));
+        }
+        if !(self.tail_k.is_finite() && self.tail_k > 0.0) {
+            return Err(Error::param(
+                "tail_k",
+                format!("must be finite and > 0, got {}", self.tail_k),
+            ));
+        }
+        if self.max_rows < 100 {
+            return Err(Error::param(
+                "max_rows",
+                format!("must be at least 100, got {}", self.max_rows),
             ));
         }
         let mut seen = vec![UNIFORM_NAME.to_string()];
@@ -293,6 +514,14 @@ impl AutoRatio {
         Ok(())
     }
 
+    fn default_set(&self, n_features: usize) -> Vec<Candidate> {
+        if self.use_defaults {
+            default_candidates_for(self.seed, n_features)
+        } else {
+            Vec::new()
+        }
+    }
+
     /// Scores uniform weights and every candidate on held-out folds (see the module docs).
     /// Returns the scores, uniform first, and the index of the chosen one.
     pub fn evaluate(
@@ -302,11 +531,11 @@ impl AutoRatio {
     ) -> Result<(Vec<CandidateScore>, usize)> {
         self.check()?;
         validate_pair(&source, &target, self.folds)?;
-        let defaults = if self.use_defaults {
-            default_candidates_for(self.seed, source.cols())
-        } else {
-            Vec::new()
-        };
+        let sub_s = subsample(source, self.max_rows, self.seed ^ 0x7375_6273);
+        let sub_t = subsample(target, self.max_rows, self.seed ^ 0x7375_6274);
+        let source = sub_s.as_ref().map_or(source, |m| m.view());
+        let target = sub_t.as_ref().map_or(target, |m| m.view());
+        let defaults = self.default_set(source.cols());
         let all: Vec<&Candidate> = defaults.iter().chain(&self.candidates).collect();
         let k = self.folds;
         let fold_s = kfold_assignment(source.rows(), k, self.seed ^ 0x0061_7574_6f73)?;
@@ -316,14 +545,21 @@ impl AutoRatio {
                 (0..x.rows()).partition(|i| fold[*i] != j);
             (x.select_rows(&inside), x.select_rows(&held))
         };
-        let mut per: Vec<Vec<std::result::Result<f64, String>>> =
+        let n_train_s = (0..source.rows()).filter(|i| fold_s[*i] != 0).count();
+        let caps: Vec<(f64, bool)> = if self.score == SelectionScore::LeastSquares {
+            Vec::new()
+        } else {
+            cap_levels(n_train_s)
+        };
+        let n_opts = caps.len().max(1);
+        let score = self.score;
+        // per[candidate][fold]: per cap (score, capped held-out source weights) and raw weights.
+        let mut per: Vec<Vec<std::result::Result<FoldScores, String>>> =
             vec![Vec::with_capacity(k); all.len()];
-        // Held-out source weights of each candidate, pooled over the folds.
-        let mut pooled: Vec<Vec<f64>> = vec![Vec::with_capacity(source.rows()); all.len()];
         for j in 0..k {
             let (tr_s, te_s) = split(source, &fold_s, j);
             let (tr_t, te_t) = split(target, &fold_t, j);
-            let scores: Vec<std::result::Result<(f64, Vec<f64>), String>> = all
+            let scores: Vec<std::result::Result<FoldScores, String>> = all
                 .par_iter()
                 .map(|c| {
                     let m = c
@@ -332,19 +568,29 @@ impl AutoRatio {
                         .map_err(|e| e.to_string())?;
                     let ws = m.ratio(te_s.view()).map_err(|e| e.to_string())?;
                     let wt = m.ratio(te_t.view()).map_err(|e| e.to_string())?;
-                    let score = least_squares_criterion(&ws, &wt);
-                    if score.is_finite() {
-                        Ok((score, ws))
+                    let mut out = Vec::with_capacity(n_opts);
+                    if caps.is_empty() {
+                        out.push((score.of(&ws, &wt), ws.clone()));
+                    } else {
+                        for (cap, _) in &caps {
+                            let s =
+                                cap_scale(&m.source_weights, *cap).map_err(|e| e.to_string())?;
+                            let g = |w: &[f64]| -> Vec<f64> {
+                                w.iter().map(|x| (s * x).min(*cap)).collect()
+                            };
+                            let (gs, gt) = (g(&ws), g(&wt));
+                            out.push((score.of(&gs, &gt), gs));
+                        }
+                    }
+                    if out.iter().all(|(v, _)| v.is_finite()) {
+                        Ok((out, ws))
                     } else {
                         Err("held-out weights are not finite".into())
                     }
                 })
                 .collect();
-            for ((p, q), s) in per.iter_mut().zip(pooled.iter_mut()).zip(scores) {
-                p.push(s.map(|(score, ws)| {
-                    q.extend(ws);
-                    score
-                }));
+            for (p, s) in per.iter_mut().zip(scores) {
+                p.push(s);
             }
         }
         let mut out = vec![CandidateScore {
@@ -355,73 +601,149 @@ impl AutoRatio {
             error: None,
             pareto_k: None,
             excluded: None,
+            cap: None,
+            cap_is_truncation: false,
+            ess_fraction: 1.0,
         }];
-        for ((c, p), ws) in all.iter().zip(per).zip(pooled) {
-            let error = p.iter().find_map(|r| r.as_ref().err().cloned());
-            let per_fold: Vec<f64> = p.into_iter().map(|r| r.unwrap_or(f64::INFINITY)).collect();
-            let (mean, std_error) = if error.is_some() {
-                (f64::INFINITY, f64::NAN)
-            } else {
-                crate::metrics::mean_and_std_error(&per_fold)
-            };
-            let pareto_k = if error.is_none() {
-                crate::diagnostics::pareto_k(&ws).ok().and_then(|f| f.k)
-            } else {
-                None
-            };
-            let excluded = pareto_k.filter(|k| *k >= TAIL_NO_MEAN_K).map(|k| {
-                format!(
-                    "its held-out source weights have a fitted Pareto tail shape k = {k:.2} >= \
-                     {TAIL_NO_MEAN_K} (a tail with no finite mean, which no density ratio has), so \
-                     its held-out score is not a reliable estimate"
-                )
-            });
-            out.push(CandidateScore {
-                name: c.name.clone(),
-                mean,
-                std_error,
-                per_fold,
-                error,
-                pareto_k,
-                excluded,
-            });
+        for (c, p) in all.iter().zip(per) {
+            out.push(self.summarise(&c.name, p, &caps));
         }
-        let best = choose(&out, self.se_margin);
+        let best = choose(&out, self.se_margin, self.prefer_stable);
         Ok((out, best))
+    }
+
+    /// One table row from a candidate's per-fold results: its best cap's mean, standard error,
+    /// effective sample size, and the tail fit of its raw weights.
+    fn summarise(
+        &self,
+        name: &str,
+        p: Vec<std::result::Result<FoldScores, String>>,
+        caps: &[(f64, bool)],
+    ) -> CandidateScore {
+        if let Some(e) = p.iter().find_map(|r| r.as_ref().err().cloned()) {
+            return CandidateScore {
+                name: name.into(),
+                mean: f64::INFINITY,
+                std_error: f64::NAN,
+                per_fold: p
+                    .iter()
+                    .map(|r| r.as_ref().map_or(f64::INFINITY, |(o, _)| o[0].0))
+                    .collect(),
+                error: Some(e),
+                pareto_k: None,
+                excluded: None,
+                cap: None,
+                cap_is_truncation: false,
+                ess_fraction: 0.0,
+            };
+        }
+        let folds: Vec<FoldScores> = p.into_iter().map(|r| r.expect("no error")).collect();
+        let n_opts = folds[0].0.len();
+        let mut best: Option<(usize, f64, f64, Vec<f64>)> = None;
+        for o in 0..n_opts {
+            let per_fold: Vec<f64> = folds.iter().map(|(v, _)| v[o].0).collect();
+            let (mean, se) = crate::metrics::mean_and_std_error(&per_fold);
+            if best.as_ref().is_none_or(|b| mean < b.1) {
+                best = Some((o, mean, se, per_fold));
+            }
+        }
+        let (o, mean, std_error, per_fold) = best.expect("at least one option");
+        let pooled: Vec<f64> = folds
+            .iter()
+            .flat_map(|(v, _)| v[o].1.iter().copied())
+            .collect();
+        let raw: Vec<f64> = folds.iter().flat_map(|(_, r)| r.iter().copied()).collect();
+        let pareto_k = crate::diagnostics::pareto_k(&raw).ok().and_then(|f| f.k);
+        let limit = self.tail_k;
+        let excluded = pareto_k.filter(|kk| *kk >= limit).map(|kk| {
+            format!(
+                "its held-out raw source weights have a fitted Pareto tail shape k = {kk:.2} >= \
+                 {limit} (a tail too heavy for reliable weighted estimates, Vehtari et al. 2024), so \
+                 its weights would rest on a few rows and its held-out score is not reliable"
+            )
+        });
+        CandidateScore {
+            name: name.into(),
+            mean,
+            std_error,
+            per_fold,
+            error: None,
+            pareto_k,
+            excluded,
+            cap: caps.get(o).map(|c| c.0),
+            cap_is_truncation: caps.get(o).is_some_and(|c| c.1),
+            ess_fraction: kish_fraction(&pooled),
+        }
     }
 }
 
 /// Index of the chosen row of a score table whose row 0 is uniform weights. Eligible are the rows
 /// not excluded by the heavy-tail guard whose mean beats uniform's by more than `se_margin` of
-/// their own standard errors; the eligible row with the lowest mean is chosen, uniform if none.
-fn choose(scores: &[CandidateScore], se_margin: f64) -> usize {
+/// their own standard errors. Without `prefer_stable` the eligible row with the lowest mean is
+/// chosen; with it, among eligible rows within one standard error of that lowest mean, the one
+/// with the largest effective sample size. Uniform if none is eligible.
+fn choose(scores: &[CandidateScore], se_margin: f64, prefer_stable: bool) -> usize {
     let uniform = scores[0].mean;
-    let mut best = 0;
-    for (i, s) in scores.iter().enumerate().skip(1) {
-        let eligible = s.excluded.is_none() && s.mean + se_margin * s.std_error < uniform;
-        if eligible && (best == 0 || s.mean < scores[best].mean) {
-            best = i;
-        }
+    let eligible: Vec<usize> = (1..scores.len())
+        .filter(|&i| {
+            let s = &scores[i];
+            s.excluded.is_none() && s.mean + se_margin * s.std_error < uniform
+        })
+        .collect();
+    let Some(&lowest) = eligible
+        .iter()
+        .min_by(|a, b| scores[**a].mean.total_cmp(&scores[**b].mean))
+    else {
+        return 0;
+    };
+    if !prefer_stable {
+        return lowest;
     }
-    best
+    let bar = scores[lowest].mean + scores[lowest].std_error;
+    eligible
+        .into_iter()
+        .filter(|&i| scores[i].mean <= bar)
+        .max_by(|a, b| {
+            scores[*a]
+                .ess_fraction
+                .total_cmp(&scores[*b].ess_fraction)
+                .then(b.cmp(a))
+        })
+        .unwrap_or(lowest)
 }
 
 fn is_default_name(name: &str) -> bool {
     default_candidates(0).iter().any(|c| c.name == name)
 }
 
+/// Table-row parameter names of the automatic choice's score table.
+fn row_params(s: &CandidateScore) -> std::collections::BTreeMap<String, f64> {
+    let mut p = params([("std_error", s.std_error), ("ess_fraction", s.ess_fraction)]);
+    if let Some(k) = s.pareto_k {
+        p.insert("pareto_k".into(), k);
+    }
+    if s.excluded.is_some() {
+        p.insert("excluded".into(), 1.0);
+    }
+    if let Some(c) = s.cap {
+        p.insert("cap".into(), c);
+        p.insert(
+            "cap_is_truncation".into(),
+            if s.cap_is_truncation { 1.0 } else { 0.0 },
+        );
+    }
+    p
+}
+
 impl RatioEstimator for AutoRatio {
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         let (scores, best) = self.evaluate(source, target)?;
-        let name = scores[best].name.clone();
+        let win = &scores[best];
+        let name = win.name.clone();
         let mut fitted = if best == 0 {
             UniformRatio.fit(source, target)?
         } else {
-            let defaults = if self.use_defaults {
-                default_candidates_for(self.seed, source.cols())
-            } else {
-                Vec::new()
-            };
+            let defaults = self.default_set(source.cols());
             let c = defaults
                 .iter()
                 .chain(&self.candidates)
@@ -429,11 +751,33 @@ impl RatioEstimator for AutoRatio {
                 .expect("the chosen name comes from this list");
             c.estimator.fit(source, target)?
         };
+        if let Some(c) = win.cap {
+            let upper = if win.cap_is_truncation {
+                (source.rows() as f64).sqrt().max(1.0)
+            } else {
+                c
+            };
+            let st = stabilize(
+                &fitted.source_weights,
+                &StabilizeOptions::new().upper(upper),
+            )?;
+            let scale = st
+                .report
+                .steps
+                .iter()
+                .find(|s| s.step == "normalize")
+                .and_then(|s| s.value)
+                .unwrap_or(1.0);
+            fitted.source_weights = st.weights;
+            fitted.cap = Some(WeightCap { scale, upper });
+        }
         let mut warnings = Vec::new();
         let d = source.cols();
         if self.use_defaults && d > QUADRATIC_DEFAULT_MAX_COLUMNS {
             warnings.push(format!(
-                "the quadratic classifier is not among the default candidates above                  {QUADRATIC_DEFAULT_MAX_COLUMNS} columns (here {d}: {} quadratic features, and each                  Newton step costs O(rows x features^2)); add it as an explicit candidate to score it",
+                "the quadratic classifier is not among the default candidates above \
+                 {QUADRATIC_DEFAULT_MAX_COLUMNS} columns (here {d}: {} quadratic features, and each \
+                 Newton step costs O(rows x features^2)); add it as an explicit candidate to score it",
                 FeatureMap::Quadratic.dim(d)
             ));
         }
@@ -454,8 +798,8 @@ impl RatioEstimator for AutoRatio {
         if best == 0 {
             warnings.push(format!(
                 "no candidate estimator beat uniform weights (w = 1, no correction) on the held-out \
-                 least-squares criterion by more than {} standard error(s); uniform weights were chosen: \
-                 the data give no evidence that weighting would help",
+                 criterion by more than {} standard error(s); uniform weights were chosen: the data \
+                 give no evidence that weighting would help",
                 self.se_margin
             ));
         }
@@ -463,27 +807,42 @@ impl RatioEstimator for AutoRatio {
         let mut chosen = fitted.selection.chosen.clone();
         chosen.insert("folds".into(), self.folds as f64);
         chosen.insert("se_margin".into(), self.se_margin);
+        chosen.insert("tail_k".into(), self.tail_k);
+        chosen.insert("max_rows".into(), self.max_rows as f64);
+        chosen.insert(
+            "prefer_stable".into(),
+            if self.prefer_stable { 1.0 } else { 0.0 },
+        );
+        chosen.insert(
+            "scored_source_rows".into(),
+            source.rows().min(self.max_rows) as f64,
+        );
+        chosen.insert(
+            "scored_target_rows".into(),
+            target.rows().min(self.max_rows) as f64,
+        );
+        if let Some(c) = &fitted.cap {
+            chosen.insert("cap".into(), c.upper);
+        }
         fitted.selection = Selection {
-            criterion:
-                "held-out least-squares criterion J(w) = 1/2 mean_source(w^2) - mean_target(w), \
-                        mean over folds (lower is better); candidates whose held-out source weights \
-                        have a Pareto tail shape k >= 1 are not chosen"
-                    .into(),
+            criterion: format!(
+                "{}; candidates whose held-out raw source weights have a Pareto tail shape k >= {} \
+                 are not chosen{}",
+                self.score.describe(),
+                self.tail_k,
+                if self.prefer_stable {
+                    "; among candidates within one standard error of the best, the largest \
+                     effective sample size wins"
+                } else {
+                    ""
+                }
+            ),
             chosen,
             table: scores
                 .iter()
-                .map(|s| {
-                    let mut p = params([("std_error", s.std_error)]);
-                    if let Some(k) = s.pareto_k {
-                        p.insert("pareto_k".into(), k);
-                    }
-                    if s.excluded.is_some() {
-                        p.insert("excluded".into(), 1.0);
-                    }
-                    ScoreRow {
-                        params: p,
-                        score: s.mean,
-                    }
+                .map(|s| ScoreRow {
+                    params: row_params(s),
+                    score: s.mean,
                 })
                 .collect(),
             labels: scores.iter().map(|s| s.name.clone()).collect(),
@@ -492,6 +851,105 @@ impl RatioEstimator for AutoRatio {
         fitted.meta.seed = self.seed;
         Ok(fitted)
     }
+}
+
+/// The automatic choice of a fitted model in plain words: which estimator and why (its score
+/// and standard error against uniform weights', its effective sample size), which cap, what was
+/// excluded and why; or, when uniform weights were kept, that no correction was found to help.
+/// None for a model that did not come from [`AutoRatio`].
+pub fn decision_summary(m: &FittedRatio) -> Option<String> {
+    let sel = &m.selection;
+    let chosen = sel.candidate.as_ref()?;
+    if sel.labels.is_empty() {
+        return None;
+    }
+    let row = |name: &str| {
+        sel.labels
+            .iter()
+            .position(|l| l == name)
+            .map(|i| &sel.table[i])
+    };
+    let mut out = Vec::new();
+    let ess = kish_fraction(&m.source_weights);
+    let scored = sel.chosen.get("scored_source_rows").copied();
+    if chosen == UNIFORM_NAME {
+        out.push(format!(
+            "Kept uniform weights (no correction): no candidate estimator beat them on held-out rows \
+             by more than {} standard error(s), so the data give no evidence that weighting would help.",
+            sel.chosen.get("se_margin").copied().unwrap_or(1.0)
+        ));
+    } else if let Some(r) = row(chosen) {
+        let se = r.params.get("std_error").copied().unwrap_or(f64::NAN);
+        out.push(format!(
+            "Chose {chosen}: held-out score {:.4} (standard error {se:.4}) against -0.5 for uniform \
+             weights (lower is better).",
+            r.score
+        ));
+        match m.cap {
+            Some(c) => out.push(format!(
+                "Its weights are capped at {:.3} times the mean weight{} and rescaled to mean 1; \
+                 the raw estimate remains available.",
+                c.upper,
+                if r.params.get("cap_is_truncation") == Some(&1.0) {
+                    " (Ionides' truncation level sqrt(n))"
+                } else {
+                    ""
+                }
+            )),
+            None => out.push("Its weights are the raw estimates (no cap).".into()),
+        }
+        out.push(format!(
+            "Effective sample size of the weights: {:.0} of {} source rows ({:.1}%).",
+            ess * m.source_weights.len() as f64,
+            m.source_weights.len(),
+            100.0 * ess
+        ));
+    }
+    let excluded: Vec<String> = sel
+        .labels
+        .iter()
+        .zip(&sel.table)
+        .filter(|(_, r)| r.params.get("excluded") == Some(&1.0))
+        .map(|(l, r)| {
+            format!(
+                "{l} (Pareto k {:.2} of its raw weights)",
+                r.params.get("pareto_k").copied().unwrap_or(f64::NAN)
+            )
+        })
+        .collect();
+    if !excluded.is_empty() {
+        out.push(format!(
+            "Not eligible because their weights have too heavy a tail: {}.",
+            excluded.join(", ")
+        ));
+    }
+    let failed: Vec<&String> = sel
+        .labels
+        .iter()
+        .zip(&sel.table)
+        .filter(|(_, r)| r.score.is_infinite())
+        .map(|(l, _)| l)
+        .collect();
+    if !failed.is_empty() {
+        out.push(format!(
+            "Could not be scored: {}.",
+            failed
+                .iter()
+                .map(|s| s.as_str())
+                .collect::<Vec<_>>()
+                .join(", ")
+        ));
+    }
+    if let (Some(n), true) = (
+        scored,
+        (m.meta.n_source as f64) > scored.unwrap_or(f64::INFINITY),
+    ) {
+        out.push(format!(
+            "Candidates were scored on a seeded subsample of {n:.0} source rows; the winner was refitted on all {} rows.",
+            m.meta.n_source
+        ));
+    }
+    Some(out.join(" "))
 }
 
 #[cfg(test)]
@@ -557,8 +1015,11 @@ mod tests {
             error: None,
             pareto_k: k,
             excluded: k
-                .filter(|k| *k >= TAIL_NO_MEAN_K)
+                .filter(|k| *k >= TAIL_UNRELIABLE_K)
                 .map(|_| "heavy tail".into()),
+            cap: None,
+            cap_is_truncation: false,
+            ess_fraction: 0.5,
         }
     }
 
@@ -581,36 +1042,71 @@ mod tests {
     #[test]
     fn heavy_tailed_candidates_are_not_chosen_however_low_their_score() {
         let uniform = row(UNIFORM_NAME, -0.5, 0.0, None);
-        // Scores and k as measured on a 1-D Gaussian pair (400 rows a side): the linear classifier
-        // scored -407.5 with k = 1.29, uLSIF -19.1 with k = 0.86.
+        // Rule under test: k >= TAIL_UNRELIABLE_K (0.7, Vehtari et al. 2024) is not eligible.
         let table = vec![
             uniform.clone(),
-            row("ulsif", -19.1, 7.2, Some(0.86)),
-            row("classifier_linear", -407.5, 161.3, Some(1.29)),
+            row("bounded", -1.9, 0.2, Some(0.4)),
+            row("heavy", -407.5, 161.3, Some(0.82)),
         ];
-        assert_eq!(choose(&table, 1.0), 1);
+        assert_eq!(choose(&table, 1.0, false), 1);
+        assert_eq!(choose(&table, 1.0, true), 1);
         // Only heavy-tailed candidates: uniform weights.
-        let table = vec![uniform.clone(), row("a", -400.0, 1.0, Some(1.0))];
-        assert_eq!(choose(&table, 1.0), 0);
-        // k at the boundary's safe side, or unknown: chosen on its score.
+        let table = vec![uniform.clone(), row("a", -400.0, 1.0, Some(0.7))];
+        assert_eq!(choose(&table, 1.0, true), 0);
+        // k below the limit, or unknown: chosen on its score.
         let table = vec![
             uniform.clone(),
-            row("a", -2.0, 0.1, Some(0.99)),
+            row("a", -2.0, 0.1, Some(0.69)),
             row("b", -3.0, 0.1, None),
         ];
-        assert_eq!(choose(&table, 1.0), 2);
-        // The lowest mean is too noisy to beat uniform by one standard error (-8.0 + 9.1 > -0.5,
-        // as measured for uLSIF on that pair with other folds); the steady runner-up is chosen.
+        assert_eq!(choose(&table, 1.0, false), 2);
+        // The lowest mean is too noisy to beat uniform by one standard error (-8.0 + 9.1 > -0.5);
+        // the steady runner-up is chosen.
         let table = vec![
             uniform.clone(),
-            row("ulsif", -8.0, 9.1, Some(0.98)),
-            row("rulsif", -5.9, 0.3, Some(0.31)),
+            row("noisy", -8.0, 9.1, Some(0.5)),
+            row("steady", -5.9, 0.3, Some(0.31)),
         ];
-        assert_eq!(choose(&table, 1.0), 2);
-        assert_eq!(choose(&table, 0.0), 1);
+        assert_eq!(choose(&table, 1.0, false), 2);
+        assert_eq!(choose(&table, 0.0, false), 1);
         // Failed candidates (infinite mean, NaN standard error) are never eligible.
         let table = vec![uniform, row("failed", f64::INFINITY, f64::NAN, None)];
-        assert_eq!(choose(&table, 1.0), 0);
+        assert_eq!(choose(&table, 1.0, true), 0);
+    }
+
+    #[test]
+    fn the_stable_rule_takes_the_largest_ess_within_one_standard_error() {
+        let with_ess = |name: &str, mean: f64, se: f64, ess: f64| CandidateScore {
+            ess_fraction: ess,
+            ..row(name, mean, se, None)
+        };
+        let table = vec![
+            row(UNIFORM_NAME, -0.5, 0.0, None),
+            with_ess("best", -2.0, 0.3, 0.10),
+            with_ess("close_and_steady", -1.8, 0.1, 0.60),
+            with_ess("steadier_but_worse", -1.5, 0.1, 0.90),
+        ];
+        // -1.8 is within -2.0 + 0.3; -1.5 is not.
+        assert_eq!(choose(&table, 1.0, true), 2);
+        assert_eq!(choose(&table, 1.0, false), 1);
+    }
+
+    #[test]
+    fn criteria_of_uniform_weights_and_of_the_truth() {
+        // Both criteria give -1/2 at w = 1 (Kanamori et al. 2009; Yamada et al. 2013).
+        assert_eq!(relative_pearson_criterion(&[1.0; 5], &[1.0; 2]), -0.5);
+        // Relative ratio of w = 3 with alpha 1/2 is 3 / 2: bounded by 1 / alpha = 2.
+        let v = relative_pearson_criterion(&[3.0], &[3.0]);
+        assert!((v - (0.25 * 2.25 + 0.25 * 2.25 - 1.5)).abs() < 1e-12);
+        // Caps: Ionides' sqrt(n) first, then the grid below it.
+        assert_eq!(
+            cap_levels(400),
+            vec![(20.0, true), (10.0, false), (5.0, false), (3.0, false)]
+        );
+        assert_eq!(cap_levels(16), vec![(4.0, true), (3.0, false)]);
+        // The cap's scale gives mean 1: min(s w, 2) over w = (1, 1, 10): s = 1/2 (common arithmetic).
+        let s = cap_scale(&[1.0, 1.0, 10.0], 2.0).unwrap();
+        assert!((s - 0.5).abs() < 1e-12, "{s}");
     }
 
     #[test]
@@ -656,6 +1152,9 @@ mod tests {
         assert!(b.check().is_err());
         assert!(AutoRatio::new().folds(1).check().is_err());
         assert!(AutoRatio::new().se_margin(-1.0).check().is_err());
+        assert!(AutoRatio::new().tail_k(0.0).check().is_err());
+        assert!(AutoRatio::new().max_rows(10).check().is_err());
+        assert!(SelectionScore::from_name("nope").is_err());
     }
 
     #[test]

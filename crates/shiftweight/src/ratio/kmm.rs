@@ -650,6 +650,7 @@ impl RatioEstimator for KernelMeanMatching {
             meta: fit_meta(&source, &target, self.seed),
             warnings,
             encoding: None,
+            cap: None,
         })
     }
 }

@@ -774,6 +774,7 @@ impl RatioEstimator for LeastSquaresRatio {
             meta: fit_meta(&source, &target, self.seed),
             warnings,
             encoding: None,
+            cap: None,
         };
         fitted.source_weights = fitted.ratio(source)?;
         Ok(fitted)

@@ -21,7 +21,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
-pub use auto::{AutoRatio, UniformRatio};
+pub use auto::{decision_summary, AutoRatio, SelectionScore, UniformRatio};
 pub use classifier::{ratio_from_probabilities, ClassifierRatio, FeatureMap, Features};
 pub use kliep::{KLRatio, KliepCv};
 pub use kmm::KernelMeanMatching;
@@ -269,6 +269,29 @@ pub struct FittedRatio {
     /// absent for models fitted on matrices (and in every version-1 model file).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub encoding: Option<TableEncoding>,
+    /// A cap applied on top of the estimate, chosen with it by the automatic choice
+    /// ([`AutoRatio`]): [`FittedRatio::ratio`] and `source_weights` give the capped weights,
+    /// [`FittedRatio::raw_ratio`] the estimate before it. None for a plain estimator.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cap: Option<WeightCap>,
+}
+
+/// Stabilisation that goes with a fitted ratio: the weight handed over is `min(scale * w, upper)`,
+/// w the raw estimate; `scale` makes the capped source weights average exactly 1 (the
+/// normalisation of [`crate::weights::stabilize`] with an upper bound).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct WeightCap {
+    /// Factor applied to the raw estimate before capping.
+    pub scale: f64,
+    /// Largest weight handed over, on the mean-1 scale of the source weights.
+    pub upper: f64,
+}
+
+impl WeightCap {
+    /// The capped weight of a raw estimate.
+    pub fn apply(&self, w: f64) -> f64 {
+        (self.scale * w).min(self.upper)
+    }
 }
 
 /// Format tag of ratio-model files (inside the envelope of [`crate::model`]).
@@ -397,6 +420,22 @@ impl FittedRatio {
 
     /// As [`FittedRatio::ratio`], writing into a caller-provided buffer of length `x.rows()`.
     pub fn ratio_into(&self, x: MatrixView, out: &mut [f64]) -> Result<()> {
+        self.raw_ratio_into(x, out)?;
+        if let Some(cap) = &self.cap {
+            out.par_iter_mut().for_each(|w| *w = cap.apply(*w));
+        }
+        Ok(())
+    }
+
+    /// The estimate before the cap of [`FittedRatio::cap`] (the same as [`FittedRatio::ratio`]
+    /// when there is none), for analysis.
+    pub fn raw_ratio(&self, x: MatrixView) -> Result<Vec<f64>> {
+        let mut out = vec![0.0; x.rows()];
+        self.raw_ratio_into(x, &mut out)?;
+        Ok(out)
+    }
+
+    fn raw_ratio_into(&self, x: MatrixView, out: &mut [f64]) -> Result<()> {
         x.expect_cols("X", self.n_features())?;
         if out.len() != x.rows() {
             return Err(Error::LengthMismatch {
@@ -515,7 +554,8 @@ impl FittedRatio {
                     let sq: f64 = zs.iter().zip(centre).map(|(a, b)| (a - b) * (a - b)).sum();
                     acc += c * kernel::exp_nonpositive(sq * g);
                 }
-                Ok(acc.max(0.0))
+                let w = acc.max(0.0);
+                Ok(self.cap.map_or(w, |c| c.apply(w)))
             }
             _ => Ok(self.ratio(x)?[0]),
         }
@@ -647,6 +687,14 @@ impl FittedRatio {
                 }
             }
         }
+        if let Some(c) = &self.cap {
+            if !(c.scale.is_finite() && c.scale > 0.0 && c.upper.is_finite() && c.upper >= 1.0) {
+                return Err(Error::ModelFile(format!(
+                    "weight cap needs a finite scale > 0 and an upper bound >= 1, got scale {} and upper {}",
+                    c.scale, c.upper
+                )));
+            }
+        }
         if let (Some(c), false) = (&self.selection.candidate, self.selection.labels.is_empty()) {
             if !self.selection.labels.contains(c) {
                 return Err(Error::ModelFile(format!(
@@ -730,7 +778,15 @@ pub fn estimator_defaults() -> serde_json::Value {
         "kliep": value(serde_json::to_value(KLRatio::default())),
         "kmm": value(serde_json::to_value(KernelMeanMatching::default())),
         "classifier": value(serde_json::to_value(ClassifierRatio::default())),
-        "auto": {"folds": auto.folds, "seed": auto.seed, "se_margin": auto.se_margin},
+        "auto": {
+            "folds": auto.folds,
+            "seed": auto.seed,
+            "se_margin": auto.se_margin,
+            "score": auto.score.name(),
+            "prefer_stable": auto.prefer_stable,
+            "tail_k": auto.tail_k,
+            "max_rows": auto.max_rows,
+        },
         "rulsif_alpha": LeastSquaresRatio::RULSIF_ALPHA,
     })
 }

@@ -459,6 +459,7 @@ impl RatioEstimator for KLRatio {
             meta: fit_meta(&source, &target, self.seed),
             warnings,
             encoding: None,
+            cap: None,
         };
         fitted.source_weights = fitted.ratio(source)?;
         Ok(fitted)
