@@ -15,6 +15,7 @@ sources; JSON model files are the safe exchange format.
 from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
 from ._demo import demo_data
 from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
+from ._report import write_report
 from ._evaluate import (
     CrossValidatedRisk,
     MetricEstimate,
@@ -88,6 +89,7 @@ __all__ = [
     "ConformalSets",
     "from_json",
     "shift_test",
+    "write_report",
     "feature_shift",
     "ShiftTestResult",
     "FeatureShiftTable",

@@ -99,6 +99,11 @@ class ConformalIntervals:
         return f"ConformalIntervals({self._summary()})"
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         return f"<div><b>Weighted conformal intervals</b>: {html.escape(self._summary())}</div>"
 
 
@@ -159,6 +164,11 @@ class ConformalSets:
         return f"ConformalSets({self._summary()})"
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         return f"<div><b>Weighted conformal prediction sets</b>: {html.escape(self._summary())}</div>"
 
 

@@ -150,6 +150,11 @@ class ShiftTestResult:
         return "\n".join(["ShiftTestResult"] + ["  " + s for s in self._summary_lines()])
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         items = "".join(f"<li>{html.escape(s)}</li>" for s in self._summary_lines()[1:] + self.notes)
         head = html.escape(self._summary_lines()[0])
         return (
@@ -343,6 +348,11 @@ class FeatureShiftTable:
         return "\n".join([head] + lines)
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         th = "".join(f"<th>{html.escape(c)}</th>" for c in self._SHOWN)
         body = "".join(
             "<tr>" + "".join(f"<td>{html.escape(self._cell(r[c]))}</td>" for c in self._SHOWN) + "</tr>"

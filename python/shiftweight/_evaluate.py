@@ -283,6 +283,11 @@ class CrossValidatedRisk:
         return "CrossValidatedRisk(\n  " + "\n  ".join(self._lines()) + "\n)"
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         rows = "".join(
             f"<tr><td>{k}</td><td>{_fmt(v)}</td><td>{_fmt(s)}</td><td>{_fmt(u)}</td><td>{e:.1f}</td><td>{n}</td></tr>"
             for k, (v, s, u, e, n) in enumerate(
@@ -384,6 +389,11 @@ class WeightingComparison:
         return f"WeightingComparison(verdict={self.verdict!r})\n{self.message}"
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         w, u = self.weighted, self.unweighted
         return (
             f"<div><b>Weighted versus unweighted training ({html.escape(w.scoring)}, estimated on the target)</b>"
@@ -424,6 +434,11 @@ class MetricEstimate:
         )
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         return f"<div>{html.escape(repr(self))}</div>"
 
 

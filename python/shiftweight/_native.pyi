@@ -304,3 +304,18 @@ def class_matched_rows(labels: _F64, proportions: _F64, seed: int) -> npt.NDArra
 def stratified_kfold_assignment(labels: _F64, k: int, seed: int) -> npt.NDArray[np.int64]: ...
 def label_shift_from_json(text: str) -> str: ...
 def class_mix_test_from_json(text: str) -> str: ...
+
+# report.rs
+def write_report(
+    source: _F64,
+    target: _F64,
+    feature_names: List[str],
+    path: str,
+    model_json: Optional[str],
+    weights: Optional[_F64],
+    seed: int,
+    test: str,
+    permutations: int,
+    level: float,
+    json_path: Optional[str],
+) -> str: ...

@@ -158,6 +158,11 @@ class StabilizeReport:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         rows = [(s["step"], f"{s['rows_changed']} rows; value {_fmt(s['value'])}") for s in self.steps]
         return _html_table(rows, f"Stabilised {self.n} weights", [s["note"] for s in self.steps])
 
@@ -334,6 +339,11 @@ class WeightDiagnosis(_Document):
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         return _html_table(self._rows(), f"Weight diagnosis: {self.verdict}", self.warnings)
 
 
@@ -432,6 +442,11 @@ class ClipTradeoff(_Document):
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         head = "".join(f"<th>{c}</th>" for c in _CLIP_COLUMNS)
         body = "".join(
             "<tr>" + "".join(f"<td style='text-align:right'>{html.escape(c)}</td>" for c in row) + "</tr>"
@@ -507,6 +522,11 @@ class OverlapReport(_Document):
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def to_html(self) -> str:
+        """This result as an HTML fragment (what a notebook displays); for the full report of a
+        source/target pair see :func:`shiftweight.write_report`."""
         return _html_table(self._rows(), "Support overlap", self._body["warnings"])
 
 

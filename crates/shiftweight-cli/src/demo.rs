@@ -1,11 +1,11 @@
 //! `shiftweight demo`: the whole job on the invented electricity scenario, with the report files.
 
+use crate::detect::shift_line;
 use crate::estimators::{build_estimator, EstimatorArgs, EstimatorName};
 use crate::io::{self, Table, WeightsWriter};
 use crate::progress::Progress;
-use crate::report::{FactTable, InputFacts, Part, Report};
+use crate::report::{EstimatorPart, FactTable, InputFacts, Part, Report};
 use crate::steps::{finish_weights, run_detection, DetectArgs, StabiliseArgs, TestMethod};
-use crate::weigh::estimator_part;
 use crate::{exit, Failure, Globals};
 use clap::Args;
 use shiftweight::learn::WeightedRidge;
@@ -77,7 +77,11 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         level: 0.05,
     };
     let detection = {
-        let _s = progress.step("testing for a shift");
+        let _s = progress.stage(
+            1,
+            3,
+            "testing for a shift (refitting the classifier for 100 permutations)",
+        );
         run_detection(
             &table(&data.source, &data.feature_names),
             &table(&data.target, &data.feature_names),
@@ -87,16 +91,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let shift_line = match detection {
         Ok(d) => {
-            let line = format!(
-                "  shift test ({}): p = {:.4}, {}",
-                d.shift.method,
-                d.shift.p_value,
-                if d.shift.significant {
-                    "significant"
-                } else {
-                    "not significant"
-                }
-            );
+            let line = format!("  {}", shift_line(&d.shift));
             report.shift = Part::Available(d.shift);
             report.features = d.features;
             line
@@ -117,7 +112,11 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let estimator = build_estimator(&est_args, g.seed)?;
     let mut model = {
-        let _s = progress.step("fitting the density-ratio model");
+        let _s = progress.stage(
+            2,
+            3,
+            "choosing and fitting the weighting (5 held-out folds per candidate)",
+        );
         estimator.fit(s, t)?
     };
     model.meta.feature_names = Some(data.feature_names.clone());
@@ -126,22 +125,16 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     let outcome = finish_weights(&model, &StabiliseArgs::default())?;
     let w = &outcome.weights;
     let ess = outcome.part.effective_sample_size;
-    let diag = |k: &str| {
+    let verdict_line = format!(
+        "  weight diagnostics: {} (Pareto k {}); stabilised by {}",
+        outcome.part.verdict.as_deref().unwrap_or("not available"),
         outcome
             .part
-            .diagnostics
-            .get(k)
-            .cloned()
-            .unwrap_or_else(|| "n/a".into())
-    };
-    let verdict_line = format!(
-        "  weight diagnostics: verdict {} (Pareto k {}; {} rows carry half the weight); stabilised by {}",
-        diag("verdict"),
-        diag("Pareto k"),
-        diag("rows carrying half the weight"),
+            .pareto_k
+            .map_or("not estimable".into(), crate::report::svg::num),
         outcome.part.stabilisation
     );
-    let est = estimator_part(&model, DEMO_ESTIMATOR.label());
+    let est = EstimatorPart::from_model(&model);
     let plain = WeightedRidge::new().l2(1e-6).fit(s, &data.y_source, None)?;
     let weighted = WeightedRidge::new()
         .l2(1e-6)
@@ -163,13 +156,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             ("weighted fit: mean squared error".into(), format!("{e_weighted:.3}")),
         ],
     });
-    let chosen: Vec<String> = est
-        .chosen
-        .iter()
-        .map(|(k, v)| format!("{k} = {}", crate::svg::num(*v)))
-        .collect();
-    let n_candidates = est.candidates.len();
-    let method = est.method.clone();
+    let described = est.description.clone();
     report.estimator = Part::Available(est);
     report.weights = Part::Available(outcome.part);
     report.clipping = outcome.clipping;
@@ -178,7 +165,10 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     let json = args.out.join("report.json");
     let weights_path = args.out.join("weights.csv");
     let model_path = args.out.join("model.json");
-    io::write_text(&html, &report.to_html())?;
+    {
+        let _s = progress.stage(3, 3, "writing the report");
+        io::write_text(&html, &report.to_html())?;
+    }
     io::write_text(&json, &report.to_json())?;
     io::write_text(&model_path, &model.to_json()?)?;
     let mut ww = WeightsWriter::create(&weights_path, None)?;
@@ -194,11 +184,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             data.feature_names.join(", ")
         );
         println!("{shift_line}");
-        println!(
-            "  estimator: {method}, {} (chosen by {} over {n_candidates} candidates)",
-            chosen.join(", "),
-            model.selection.criterion
-        );
+        println!("  weighting: {described}");
         println!(
             "  source weights: mean {:.3}, max {:.2}, effective sample size {:.0} of {} ({:.0}%)",
             mean(w),

@@ -4,8 +4,8 @@ use crate::args::InputArgs;
 use crate::io::{self, numeric_rows, ColumnChoice, Table};
 use crate::progress::Progress;
 use crate::read::{read_typed, TypedTable};
-use crate::report::{InputFacts, Part, Report};
-use crate::steps::{detect_exit_code, feature_rows, run_detection, DetectArgs};
+use crate::report::{FeaturesPart, Part, Report};
+use crate::steps::{detect_exit_code, input_facts, run_detection, DetectArgs};
 use crate::{Failure, Globals};
 use clap::Args;
 use std::path::PathBuf;
@@ -86,34 +86,25 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
                 rows: m.rows(),
             };
             let mut outcome = run_detection(&encoded(&zs), &encoded(&zt), &args.test, g.seed)?;
-            outcome.features = feature_rows(
-                shiftweight::FeatureShift::new()
-                    .seed(g.seed)
-                    .run_table(&s, &t),
-            );
+            outcome.features = match shiftweight::FeatureShift::new()
+                .seed(g.seed)
+                .run_table(&s, &t)
+            {
+                Ok(table) => Part::Available(FeaturesPart::from_typed_table(&table)),
+                Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
+            };
             outcome
         }
     };
     let significant = outcome.shift.significant;
     let mut report = Report::new("detect", g.seed);
     report.inputs = vec![
-        InputFacts::of("source", &args.source, source.rows, source.rows_dropped),
-        InputFacts::of("target", &args.target, target.rows, target.rows_dropped),
+        input_facts("source", &args.source, &source),
+        input_facts("target", &args.target, &target),
     ];
     report.features_used = names.clone();
     if !g.quiet {
-        println!(
-            "{}: {} test, statistic {:.4}, p = {:.4} (level {})",
-            if significant {
-                "shift detected"
-            } else {
-                "no significant shift"
-            },
-            outcome.shift.method,
-            outcome.shift.statistic,
-            outcome.shift.p_value,
-            outcome.shift.level
-        );
+        println!("{}", shift_line(&outcome.shift));
     }
     report.shift = Part::Available(outcome.shift);
     report.features = outcome.features;
@@ -127,4 +118,34 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
         io::write_text(p, &report.to_html())?;
     }
     Ok(detect_exit_code(significant, args.fail_on_shift))
+}
+
+/// One line of plain words on the shift test: verdict, named statistic with its interval, and
+/// the p-value with its resolution (never a false `p = 0.0000`).
+pub fn shift_line(s: &crate::report::ShiftPart) -> String {
+    let stat = match s.interval {
+        Some((lo, hi)) => format!(
+            "{} {} (95% interval {} to {})",
+            s.statistic_name,
+            crate::report::svg::num(s.statistic),
+            crate::report::svg::num(lo),
+            crate::report::svg::num(hi)
+        ),
+        None => format!(
+            "{} {}",
+            s.statistic_name,
+            crate::report::svg::num(s.statistic)
+        ),
+    };
+    format!(
+        "{}: {} test, {stat}, {} (level {})",
+        if s.significant {
+            "shift detected"
+        } else {
+            "no significant shift"
+        },
+        s.method,
+        s.p_text(),
+        s.level
+    )
 }

@@ -23,20 +23,6 @@ pub enum EstimatorName {
     Classifier,
 }
 
-impl EstimatorName {
-    /// Plain name for messages and reports.
-    pub fn label(&self) -> &'static str {
-        match self {
-            EstimatorName::Auto => "automatic choice",
-            EstimatorName::Lsif => "uLSIF",
-            EstimatorName::Rulsif => "RuLSIF",
-            EstimatorName::Kliep => "KLIEP",
-            EstimatorName::Kmm => "KMM",
-            EstimatorName::Classifier => "classifier",
-        }
-    }
-}
-
 /// Estimator options shared by `weigh` (and later any command that fits weights).
 #[derive(Debug, Clone, Args)]
 pub struct EstimatorArgs {

@@ -16,10 +16,12 @@ mod estimators;
 mod io;
 mod progress;
 mod read;
-mod report;
+mod report_cmd;
 mod steps;
-mod svg;
 mod weigh;
+
+/// The report (shared with the Python package).
+use shiftweight_report as report;
 
 /// Exit codes: 0 success, 2 bad input or usage, 3 file I/O failure, 4 internal error,
 /// 10 shift detected with --fail-on-shift.
@@ -41,6 +43,7 @@ const AFTER_HELP: &str = "Examples:
   shiftweight weigh --source train.csv --target recent.csv --exclude label --key id --estimator lsif \\
       --out weights.csv --model ratio.json --report report.html
   shiftweight apply --model ratio.json --input more_rows.csv --out more_weights.csv
+  shiftweight report --source train.csv --target recent.csv --exclude label --out report.html
 
 Exit status: 0 success, 2 bad input or usage, 3 file I/O failure, 4 internal error,
 10 shift detected (detect --fail-on-shift).
@@ -81,6 +84,9 @@ enum Command {
     Apply(apply::ApplyArgs),
     /// Shows how a table is read: each column's type (numeric or categorical), gaps and levels.
     Columns(columns::ColumnsArgs),
+    /// Writes the full HTML report of a source/target pair (shift test, features, weights and
+    /// their health), the same report as the Python package's `write_report`.
+    Report(report_cmd::ReportArgs),
 }
 
 /// Settings shared by every command.
@@ -141,6 +147,7 @@ fn main() -> ExitCode {
         Command::Weigh(a) => weigh::run(a, &g),
         Command::Apply(a) => apply::run(a, &g),
         Command::Columns(a) => columns::run(a, &g),
+        Command::Report(a) => report_cmd::run(a, &g),
     }));
     match result {
         Ok(Ok(code)) => ExitCode::from(code),

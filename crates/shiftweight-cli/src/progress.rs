@@ -1,5 +1,6 @@
-//! Progress display: a spinner on stderr for steps that take longer than a second, shown only
-//! when stderr is a terminal and `--quiet` was not given; silent otherwise.
+//! Progress display: a spinner on stderr for steps that take longer than a second, with the step
+//! number of a longer job or the rows done so far; shown only when stderr is a terminal and
+//! `--quiet` was not given, silent otherwise.
 
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use std::io::IsTerminal;
@@ -24,6 +25,12 @@ impl Progress {
     /// and disappears when the returned guard is dropped.
     pub fn step(&self, message: &str) -> Step {
         self.start(message, "{spinner} {msg} ({elapsed})")
+    }
+
+    /// As [`Progress::step`] for step `k` of `n` of a longer job: shown as
+    /// `[k/n] message (elapsed)`, so the reader sees how far the job has come.
+    pub fn stage(&self, k: usize, n: usize, message: &str) -> Step {
+        self.step(&format!("[{k}/{n}] {message}"))
     }
 
     /// As [`Progress::step`], with a running count (advance it with [`Step::inc`]).

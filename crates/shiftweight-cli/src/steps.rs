@@ -2,12 +2,14 @@
 //! `weigh`, `detect` and `demo` call the same code.
 
 use crate::io::Table;
-use crate::report::{self, ClipRow, FeatureRow, Part, ShiftPart, WeightsPart};
+use crate::read::TypedTable;
+use crate::report::{
+    self, ClipRow, FeaturesPart, InputFacts, Part, ShiftOptions, ShiftPart, TestKind, WeightsPart,
+};
 use crate::{exit, Failure};
 use clap::{Args, ValueEnum};
-use shiftweight::diagnostics::{clip_tradeoff, diagnose, mean_check, mean_warning, Verdict};
 use shiftweight::weights::{stabilize, StabilizeOptions};
-use shiftweight::{ClassifierShiftTest, FeatureShift, FittedRatio, MmdShiftTest};
+use shiftweight::FittedRatio;
 
 /// Options of the weight stabilisation step (`shiftweight::weights::stabilize`). Steps apply in
 /// the library's documented order: flatten (--power), Pareto smoothing (--smooth), clip at a
@@ -113,75 +115,17 @@ pub fn finish_weights(
             )
         }
     };
-    let mut part = report::describe_weights(&weights, &described);
-    // The mean check needs the raw estimates: stabilised weights have mean 1 by construction.
-    let raw_mean = mean_check(&model.source_weights).ok();
-    let clipping = match diagnose(&weights, None) {
-        Ok(mut d) => {
-            part.effective_sample_size = d.ess;
-            if let Some(mc) = raw_mean {
-                if mc.too_low && !d.mean_too_low {
-                    d.verdict = Verdict::Unreliable;
-                    d.warnings.splice(0..0, mean_warning(&mc));
-                }
-                let bound = mc
-                    .upper_bound
-                    .map_or(String::new(), |u| format!(" (99.9% upper bound {u:.3})"));
-                part.diagnostics.insert(
-                    "mean of the raw weights (should be about 1)".into(),
-                    format!(
-                        "{:.3}{bound}{}",
-                        mc.mean,
-                        if mc.too_low {
-                            ": too low, the weights miss much of the target"
-                        } else {
-                            ""
-                        }
-                    ),
-                );
-            }
-            let dm = &mut part.diagnostics;
-            dm.insert("verdict".into(), d.verdict.as_str().into());
-            dm.insert(
-                "Pareto k".into(),
-                d.pareto_k
-                    .map_or("not estimable".into(), |k| format!("{k:.3}")),
-            );
-            dm.insert("ESS fraction".into(), format!("{:.3}", d.ess_fraction));
-            dm.insert(
-                "share of weight in the top 1% of rows".into(),
-                format!("{:.3}", d.top1_share),
-            );
-            dm.insert(
-                "rows carrying half the weight".into(),
-                d.rows_for_half.to_string(),
-            );
-            dm.insert("zero weights".into(), d.n_zero.to_string());
-            for (i, w) in d.warnings.iter().enumerate() {
-                dm.insert(format!("warning {}", i + 1), w.clone());
-            }
-            match clip_tradeoff(&weights, None) {
-                Ok(t) => Part::Available(
-                    t.levels
-                        .iter()
-                        .map(|l| ClipRow {
-                            cap: l.upper,
-                            share_capped: l.rows_clipped as f64 / t.n.max(1) as f64,
-                            effective_sample_size: l.ess,
-                            shift_of_mean: Some(l.mean_shift),
-                        })
-                        .collect(),
-                ),
-                Err(e) => Part::missing(e.to_string()),
-            }
-        }
-        Err(e) => Part::missing(format!("diagnostics failed: {e}")),
-    };
+    let (part, clipping) = report::weight_sections(&model.source_weights, &weights, &described);
     Ok(WeightsOutcome {
         weights,
         part,
         clipping,
     })
+}
+
+/// Facts of one input table read from `path`.
+pub fn input_facts(role: &str, path: &std::path::Path, table: &TypedTable) -> InputFacts {
+    InputFacts::of(role, path, table.rows, table.rows_dropped)
 }
 
 /// Two-sample test methods accepted by `--method`.
@@ -215,7 +159,27 @@ pub struct DetectOutcome {
     /// The test result.
     pub shift: ShiftPart,
     /// Per-feature shift, most shifted first.
-    pub features: Part<Vec<FeatureRow>>,
+    pub features: Part<FeaturesPart>,
+}
+
+impl DetectArgs {
+    /// The report crate's options of the same test.
+    pub fn shift_options(&self) -> Result<ShiftOptions, Failure> {
+        if !(self.level > 0.0 && self.level < 1.0) {
+            return Err(Failure {
+                code: exit::BAD_INPUT,
+                message: format!("--level must be in (0, 1), got {}", self.level),
+            });
+        }
+        Ok(ShiftOptions {
+            test: match self.method {
+                TestMethod::Classifier => TestKind::Classifier,
+                TestMethod::Mmd => TestKind::Mmd,
+            },
+            permutations: self.permutations,
+            level: self.level,
+        })
+    }
 }
 
 /// The shift test (classifier two-sample test or MMD) and the per-feature table.
@@ -225,63 +189,12 @@ pub fn run_detection(
     opts: &DetectArgs,
     seed: u64,
 ) -> Result<DetectOutcome, Failure> {
-    if !(opts.level > 0.0 && opts.level < 1.0) {
-        return Err(Failure {
-            code: exit::BAD_INPUT,
-            message: format!("--level must be in (0, 1), got {}", opts.level),
-        });
-    }
+    let o = opts.shift_options()?;
     let (s, t) = (source.view("source")?, target.view("target")?);
-    let result = match opts.method {
-        TestMethod::Classifier => ClassifierShiftTest::new()
-            .permutations(opts.permutations)
-            .seed(seed)
-            .run(s, t)?,
-        TestMethod::Mmd => MmdShiftTest::new()
-            .permutations(opts.permutations)
-            .seed(seed)
-            .run(s, t)?,
-    };
-    let features = feature_rows(
-        FeatureShift::new()
-            .seed(seed)
-            .run(s, t, Some(&source.names)),
-    );
-    Ok(DetectOutcome {
-        shift: ShiftPart {
-            method: result.method.clone(),
-            statistic: result.statistic,
-            p_value: result.p_value,
-            level: opts.level,
-            significant: result.p_value < opts.level,
-        },
-        features,
-    })
+    let (shift, features) = report::shift_sections(s, t, &source.names, &o, seed)?;
+    Ok(DetectOutcome { shift, features })
 }
 
-/// The report rows of a per-feature shift table (matrix or typed table), most shifted first.
-pub fn feature_rows(
-    table: shiftweight::Result<shiftweight::FeatureShiftTable>,
-) -> Part<Vec<FeatureRow>> {
-    match table {
-        Ok(table) => Part::Available(
-            table
-                .rows
-                .iter()
-                .map(|r| FeatureRow {
-                    feature: r.feature.clone(),
-                    score: r
-                        .wasserstein_sd
-                        .or(r.smd.map(f64::abs))
-                        .or(r.tv_distance)
-                        .unwrap_or(r.auc_drop),
-                    p_value: Some(r.p_adjusted),
-                })
-                .collect(),
-        ),
-        Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
-    }
-}
 
 /// The exit code of `detect`: [`exit::SHIFT_DETECTED`] when the shift is significant and
 /// `--fail-on-shift` was given, 0 otherwise.

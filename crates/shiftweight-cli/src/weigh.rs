@@ -6,8 +6,8 @@ use crate::estimators::{build_estimator, EstimatorArgs};
 use crate::io::{self, numeric_rows, ColumnChoice, WeightsWriter};
 use crate::progress::Progress;
 use crate::read::read_typed;
-use crate::report::{EstimatorPart, InputFacts, Part, Report};
-use crate::steps::{finish_weights, StabiliseArgs};
+use crate::report::{EstimatorPart, Part, Report};
+use crate::steps::{finish_weights, input_facts, StabiliseArgs};
 use crate::{Failure, Globals};
 use clap::Args;
 use shiftweight::MatrixView;
@@ -100,14 +100,16 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
 
     let mut report = Report::new("weigh", g.seed);
     report.inputs = vec![
-        InputFacts::of("source", &args.source, source.rows, source.rows_dropped),
-        InputFacts::of("target", &args.target, target.rows, target.rows_dropped),
+        input_facts("source", &args.source, &source),
+        input_facts("target", &args.target, &target),
     ];
     report.features_used = names.clone();
     report.shift = Part::missing("`weigh` does not test for a shift; run `shiftweight detect`");
     report.features =
         Part::missing("`weigh` does not measure per-feature shift; run `shiftweight detect`");
-    report.estimator = Part::Available(estimator_part(&model, args.estimator.estimator.label()));
+    let est = EstimatorPart::from_model(&model);
+    let described = est.description.clone();
+    report.estimator = Part::Available(est);
     let ess = outcome.part.effective_sample_size;
     report.weights = Part::Available(outcome.part);
     report.clipping = outcome.clipping;
@@ -141,6 +143,7 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
     }
     if !g.quiet {
         let n = outcome.weights.len();
+        eprintln!("weighting: {described}");
         eprintln!(
             "wrote {n} weights to {} (effective sample size {:.0} of {n}){}",
             args.out.display(),
@@ -159,23 +162,4 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
         }
     }
     Ok(0)
-}
-
-/// The report section describing a fitted model.
-pub fn estimator_part(model: &shiftweight::FittedRatio, label: &str) -> EstimatorPart {
-    let alpha = model.selection.chosen.get("alpha").copied().unwrap_or(0.0);
-    let method = match model.kind {
-        shiftweight::EstimatorKind::LeastSquares if alpha > 0.0 => {
-            format!("RuLSIF (alpha = {alpha})")
-        }
-        shiftweight::EstimatorKind::LeastSquares => "uLSIF".to_string(),
-        other => format!("{} ({label})", other.name()),
-    };
-    EstimatorPart {
-        method,
-        criterion: model.selection.criterion.clone(),
-        chosen: model.selection.chosen.clone(),
-        candidates: model.selection.table.clone(),
-        warnings: model.warnings.clone(),
-    }
 }

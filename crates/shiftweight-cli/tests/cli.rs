@@ -613,7 +613,7 @@ fn every_estimator_and_the_shift_test_run_with_clear_codes() {
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("`no_such`"), "{}", stderr(&o));
 
-    for cmd in ["demo", "detect", "weigh", "apply"] {
+    for cmd in ["demo", "detect", "weigh", "apply", "report"] {
         let o = run(&[cmd, "--help"], &f.dir);
         assert!(o.status.success());
         let out = String::from_utf8_lossy(&o.stdout);
@@ -899,10 +899,10 @@ fn check_html(path: &Path) {
         [
             "summary",
             "shift",
+            "features",
             "estimator",
             "weights",
             "clipping",
-            "features",
             "cautions"
         ]
     );
@@ -970,15 +970,21 @@ fn disjoint_supports_are_reported_unreliable_with_and_without_stabilisation() {
         assert!(o.status.success(), "{}", stderr(&o));
         let json: serde_json::Value =
             serde_json::from_str(&std::fs::read_to_string(dir.join("r.json")).unwrap()).unwrap();
-        let diag = &json["weights"]["data"]["diagnostics"];
-        assert_eq!(diag["verdict"], "unreliable", "{extra:?}: {diag}");
-        let mean = diag["mean of the raw weights (should be about 1)"]
-            .as_str()
+        let part = &json["weights"]["data"];
+        assert_eq!(part["verdict"], "unreliable", "{extra:?}: {part}");
+        let mean = part["diagnostics"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|d| d["name"] == "mean of the raw weights")
             .unwrap();
-        assert!(mean.contains("too low"), "{extra:?}: {mean}");
+        assert_eq!(mean["status"], "bad", "{extra:?}: {mean}");
         assert!(
-            diag["warning 1"].as_str().unwrap().contains("far below 1"),
-            "{diag}"
+            part["warnings"][0]
+                .as_str()
+                .unwrap()
+                .contains("far below 1"),
+            "{part}"
         );
         let (_, w) = read_weights(&dir.join("w.csv"));
         assert!(w.iter().all(|v| v.is_finite() && *v >= 0.0));
@@ -1237,4 +1243,45 @@ fn parquet_with_every_common_codec_reads_the_same_numbers() {
         assert_eq!(k.unwrap(), ids(d.n_s), "{name}");
         assert_eq!(w, reference.source_weights, "{name}");
     }
+
+#[test]
+fn report_command_writes_the_full_report_with_plain_words() {
+    let d = data();
+    let f = setup(&d);
+    let o = run(
+        &[
+            "report",
+            "--source",
+            "source.csv",
+            "--target",
+            "target.csv",
+            "--exclude",
+            "kwh,id",
+            "--permutations",
+            "19",
+            "--out",
+            "full.html",
+            "--json",
+            "full.json",
+        ],
+        &f.dir,
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("Weighting: ") && out.contains("full.html"),
+        "{out}"
+    );
+    check_html(&f.dir.join("full.html"));
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(f.dir.join("full.json")).unwrap()).unwrap();
+    for part in ["shift", "features", "estimator", "weights", "clipping"] {
+        assert_eq!(json[part]["status"], "available", "{part}");
+    }
+    // 19 permutations: p is at least 1/20, and the report says how it was obtained.
+    assert!(json["shift"]["data"]["p_value"].as_f64().unwrap() >= 0.05);
+    assert!(json["shift"]["data"]["p_method"]
+        .as_str()
+        .unwrap()
+        .contains("permutation"));
 }

@@ -20,6 +20,7 @@ mod learn;
 mod metrics;
 mod ratio;
 mod table;
+mod report;
 mod weights;
 
 create_exception!(
@@ -197,5 +198,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     diagnostics::register(m)?;
     table::register(m)?;
     label::register(m)?;
+    report::register(m)?;
     Ok(())
 }

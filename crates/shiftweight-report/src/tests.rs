@@ -1,0 +1,225 @@
+use super::*;
+use shiftweight::ratio::LeastSquaresRatio;
+
+fn gaussian(n: usize, d: usize, mean: f64, seed: u64) -> Vec<f64> {
+    // Box-Muller on a seeded xorshift generator (no test-only randomness crate needed).
+    let mut state = seed.wrapping_mul(0x9E37_79B9_7F4A_7C15) | 1;
+    let mut u = || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        ((state >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    };
+    (0..n * d)
+        .map(|_| mean + (-2.0 * u().ln()).sqrt() * (2.0 * std::f64::consts::PI * u()).cos())
+        .collect()
+}
+
+fn parse(html: &str) -> roxmltree::Document<'_> {
+    // reference: roxmltree, an independent strict XML parser (rejects unbalanced tags)
+    roxmltree::Document::parse_with_options(
+        html,
+        roxmltree::ParsingOptions {
+            allow_dtd: true,
+            ..Default::default()
+        },
+    )
+    .unwrap_or_else(|e| panic!("report is not well-formed: {e}"))
+}
+
+fn rows_of<'a>(doc: &'a roxmltree::Document<'a>, id: &str) -> Vec<roxmltree::Node<'a, 'a>> {
+    doc.descendants()
+        .find(|n| n.attribute("id") == Some(id))
+        .unwrap_or_else(|| panic!("no #{id}"))
+        .descendants()
+        .filter(|n| n.has_tag_name("tr") && n.parent().is_some_and(|p| p.has_tag_name("tbody")))
+        .collect()
+}
+
+fn text(n: &roxmltree::Node) -> String {
+    n.descendants().filter_map(|t| t.text()).collect::<String>()
+}
+
+#[test]
+fn quantiles_match_numpy_linear() {
+    // reference: numpy.quantile([1, 2, 3, 4], 0.25) == 1.75 (default method "linear")
+    let d = describe_weights(&[4.0, 1.0, 3.0, 2.0], "none");
+    assert_eq!(d.quantiles[1], (0.25, 1.75));
+    assert_eq!(d.quantiles[2], (0.5, 2.5));
+    // Kish ESS of (1,2,3,4): 100 / 30 (Kish 1965, effective sample size formula)
+    assert!((d.effective_sample_size - 100.0 / 30.0).abs() < 1e-12);
+}
+
+#[test]
+fn repeated_caps_are_shown_once() {
+    let row = |cap: f64, ess: f64| ClipRow {
+        cap,
+        share_capped: 0.0,
+        effective_sample_size: ess,
+        shift_of_mean: Some(-1.776e-15),
+    };
+    let rows = distinct_caps(vec![
+        row(54.7723, 194.0),
+        row(54.7723, 194.0),
+        row(54.772_300_000_000_01, 194.0),
+        row(80.0, 190.0),
+    ]);
+    assert_eq!(rows.len(), 2);
+    assert_eq!(rows[1].cap, 80.0);
+}
+
+#[test]
+fn every_section_is_present_even_when_empty() {
+    let html = Report::new("weigh", 0).to_html();
+    let doc = parse(&html);
+    let ids: Vec<&str> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("section"))
+        .filter_map(|n| n.attribute("id"))
+        .collect();
+    assert_eq!(ids, SECTIONS.map(|(id, _)| id));
+    assert!(html.contains("Not available in this report"));
+}
+
+#[test]
+fn a_full_report_answers_the_reviewers_questions() {
+    let (n, d) = (300, 3);
+    let s = gaussian(n, d, 0.0, 1);
+    let t = gaussian(n, d, 0.7, 2);
+    let (sv, tv) = (
+        MatrixView::new(&s, n, d).unwrap(),
+        MatrixView::new(&t, n, d).unwrap(),
+    );
+    let names: Vec<String> = ["a", "b<c", "d"].iter().map(|x| x.to_string()).collect();
+    let opts = ShiftOptions {
+        permutations: 19,
+        ..Default::default()
+    };
+    let mut r = full_report("report", sv, tv, &names, WeightSource::Automatic, &opts, 7).unwrap();
+    r.extra_sections.push(ExtraSection {
+        id: "label_shift".into(),
+        title: "Label shift".into(),
+        paragraphs: vec!["an optional section".into()],
+        tables: Vec::new(),
+    });
+    let html = r.to_html();
+    let doc = parse(&html);
+
+    // Every candidate by name in the candidates table, exactly one marked chosen.
+    let e = r.estimator.get().unwrap();
+    let rows = rows_of(&doc, "candidates");
+    assert_eq!(rows.len(), e.candidates.len());
+    for (row, c) in rows.iter().zip(&e.candidates) {
+        assert!(text(row).contains(&c.name), "{}", c.name);
+    }
+    let chosen: Vec<_> = rows
+        .iter()
+        .filter(|r| r.attribute("class") == Some("chosen"))
+        .collect();
+    assert_eq!(chosen.len(), 1);
+    assert!(text(chosen[0]).contains("chosen"));
+    assert!(e.candidates.iter().any(|c| c.name == "uniform"));
+
+    // The shift test names its statistic and interval; 19 permutations give p >= 1/20.
+    let s = r.shift.get().unwrap();
+    assert_eq!(s.statistic_name, "AUC");
+    let (lo, hi) = s.interval.unwrap();
+    assert!(lo <= s.statistic && s.statistic <= hi);
+    assert!(html.contains(&format!("AUC = {}", svg::num(s.statistic))));
+    assert!(html.contains(&format!("{} to {}", svg::num(lo), svg::num(hi))));
+    assert_eq!(s.p_floor, Some(0.05));
+    assert!(s.p_value >= 0.05);
+    assert!(html.contains("1/(B+1)"));
+
+    // One distribution figure per most shifted feature (3 features < FEATURE_FIGURES).
+    let figs = doc
+        .descendants()
+        .filter(|n| n.attribute("class") == Some("feature-distribution"))
+        .count();
+    assert_eq!(figs, d.min(FEATURE_FIGURES));
+    assert_eq!(rows_of(&doc, "feature-table").len(), d);
+    assert!(html.contains("b&lt;c"));
+
+    // The clipping table has distinct rows only, and no floating-point noise anywhere.
+    let clip: Vec<String> = rows_of(&doc, "clip-table").iter().map(text).collect();
+    let mut dedup = clip.clone();
+    dedup.sort();
+    dedup.dedup();
+    assert_eq!(dedup.len(), clip.len(), "{clip:?}");
+    // (Exponents like e-17 are legitimate for p-values; noise would show in these tables.)
+    for id in ["clip-table", "diagnostics", "candidates"] {
+        for row in rows_of(&doc, id) {
+            let t = text(&row);
+            assert!(!t.contains("e-1"), "{id}: {t}");
+        }
+    }
+
+    // Optional section before the cautions; nothing external.
+    let ids: Vec<&str> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("section"))
+        .filter_map(|n| n.attribute("id"))
+        .collect();
+    assert_eq!(ids[ids.len() - 2..], ["label_shift", "cautions"]);
+    let lower = html.to_ascii_lowercase();
+    assert!(
+        !lower.contains("http://") && !lower.contains("https://") && !lower.contains("@import")
+    );
+    for n in doc.descendants().filter(|n| n.is_element()) {
+        for a in n.attributes() {
+            if ["src", "href"].contains(&a.name()) {
+                assert!(a.value().starts_with('#'), "{}={}", a.name(), a.value());
+            }
+        }
+    }
+
+    // The JSON carries the same numbers and the summary.
+    let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
+    assert_eq!(json["version"], REPORT_VERSION);
+    assert_eq!(json["shift"]["data"]["statistic"], s.statistic);
+    assert!(json["summary"].as_str().unwrap().contains("AUC"));
+}
+
+#[test]
+fn grid_candidates_are_named_by_their_hyperparameters() {
+    let (n, d) = (120, 2);
+    let s = gaussian(n, d, 0.0, 3);
+    let t = gaussian(n, d, 0.5, 4);
+    let m = LeastSquaresRatio::new()
+        .n_basis(30)
+        .fit(
+            MatrixView::new(&s, n, d).unwrap(),
+            MatrixView::new(&t, n, d).unwrap(),
+        )
+        .unwrap();
+    let e = EstimatorPart::from_model(&m);
+    assert_eq!(e.candidates.len(), m.selection.table.len());
+    assert_eq!(e.candidates.iter().filter(|c| c.chosen).count(), 1);
+    assert!(
+        e.candidates[0].name.starts_with("lam = "),
+        "{}",
+        e.candidates[0].name
+    );
+    assert!(e.description.starts_with("uLSIF"), "{}", e.description);
+    assert!(e.description.contains("leave-one-out"));
+}
+
+#[test]
+fn given_weights_of_the_wrong_length_are_refused_by_name() {
+    let s = gaussian(50, 1, 0.0, 5);
+    let v = MatrixView::new(&s, 50, 1).unwrap();
+    let err = full_report(
+        "report",
+        v,
+        v,
+        &["x".to_string()],
+        WeightSource::Given(&[1.0; 3]),
+        &ShiftOptions {
+            permutations: 9,
+            ..Default::default()
+        },
+        0,
+    )
+    .unwrap_err();
+    assert!(err.to_string().contains("`weights`"), "{err}");
+}
