@@ -204,7 +204,10 @@ def _browser():
     return None
 
 
-@pytest.mark.skipif(_browser() is None, reason="no headless Chromium on PATH (install the system package `chromium` to run this check)")
+_NO_BROWSER = "no headless Chromium on PATH (install the system package `chromium` to run this check)"
+
+
+@pytest.mark.skipif(_browser() is None, reason=_NO_BROWSER)
 def test_report_renders_in_a_headless_browser(tmp_path):
     d = sw.demo_data(300, 150, seed=1)
     page = tmp_path / "report.html"

@@ -15,7 +15,6 @@ sources; JSON model files are the safe exchange format.
 from ._conformal import ConformalIntervals, ConformalSets, conformal_intervals, conformal_sets
 from ._demo import demo_data
 from ._detect import FeatureShiftTable, ShiftTestResult, feature_shift, shift_test
-from ._report import write_report
 from ._evaluate import (
     CrossValidatedRisk,
     MetricEstimate,
@@ -52,6 +51,7 @@ from ._ratio import (
     from_json,
     ratio_from_probabilities,
 )
+from ._report import write_report
 from ._validation import NotFittedError
 from ._weights import (
     ClipTradeoff,

@@ -24,7 +24,7 @@ __all__ = ["write_report"]
 def write_report(
     source: Any,
     target: Any,
-    path: "str | os.PathLike[str]",
+    path: str | os.PathLike[str],
     estimator: Any = None,
     weights: Any = None,
     *,
@@ -32,7 +32,7 @@ def write_report(
     test: str = "classifier",
     permutations: int = 200,
     level: float = 0.05,
-    json_path: "Optional[str | os.PathLike[str]]" = None,
+    json_path: Optional[str | os.PathLike[str]] = None,
 ) -> str:
     """Writes the full HTML report of ``source`` and ``target`` to ``path``; returns its summary.
 

@@ -62,16 +62,17 @@ pub fn run(args: ReportArgs, g: &Globals) -> Result<u8, Failure> {
         }
     };
     let opts = args.input.file_options();
+    let types = args.input.types();
     let source = {
         let _s = progress.stage(1, 3, "reading source and target rows");
-        read_table(&args.source, &opts, &args.input.choice())?
+        read_table(&args.source, &opts, &args.input.choice(), &types)?
     };
     let target_choice = ColumnChoice {
         columns: Some(source.names.clone()),
         exclude: Vec::new(),
         key: None,
     };
-    let target = read_table(&args.target, &opts, &target_choice)?;
+    let target = read_table(&args.target, &opts, &target_choice, &types)?;
     let mut report = {
         let _s = progress.stage(
             2,

@@ -1243,6 +1243,7 @@ fn parquet_with_every_common_codec_reads_the_same_numbers() {
         assert_eq!(k.unwrap(), ids(d.n_s), "{name}");
         assert_eq!(w, reference.source_weights, "{name}");
     }
+}
 
 #[test]
 fn report_command_writes_the_full_report_with_plain_words() {
