@@ -4,7 +4,8 @@ use crate::args::InputArgs;
 use crate::io::{self, numeric_rows, ColumnChoice, Table};
 use crate::progress::Progress;
 use crate::read::{read_typed, TypedTable};
-use crate::report::{FeaturesPart, Part, Report};
+use crate::read::{Values, MISSING_CODE};
+use crate::report::{FeatureFigure, FeaturesPart, Part, Report};
 use crate::steps::{detect_exit_code, input_facts, run_detection, DetectArgs};
 use crate::{Failure, Globals};
 use clap::Args;
@@ -90,7 +91,9 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
                 .seed(g.seed)
                 .run_table(&s, &t)
             {
-                Ok(table) => Part::Available(FeaturesPart::from_typed_table(&table)),
+                Ok(table) => Part::Available(FeaturesPart::from_typed_table(&table, |r| {
+                    typed_figure(&source, &target, &r.feature)
+                })),
                 Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
             };
             outcome
@@ -118,6 +121,36 @@ pub fn run(args: DetectCmdArgs, g: &Globals) -> Result<u8, Failure> {
         io::write_text(p, &report.to_html())?;
     }
     Ok(detect_exit_code(significant, args.fail_on_shift))
+}
+
+/// The source-vs-target figure of the column `name` of two typed tables (the target read with
+/// the source's columns and types); `None` when the column is not found.
+fn typed_figure(source: &TypedTable, target: &TypedTable, name: &str) -> Option<FeatureFigure> {
+    let j = source.columns.iter().position(|c| c.name == name)?;
+    let k = target.columns.iter().position(|c| c.name == name)?;
+    match (&source.values[j], &target.values[k]) {
+        (Values::Numeric(s), Values::Numeric(t)) => {
+            Some(FeatureFigure::from_numbers(name, s, t, false))
+        }
+        (Values::Categorical(s), Values::Categorical(t)) => {
+            let s = level_text(s, &source.columns[j].levels);
+            let t = level_text(t, &target.columns[k].levels);
+            Some(FeatureFigure::from_levels(name, &s, &t))
+        }
+        _ => None,
+    }
+}
+
+/// The text of each level code, `None` for a missing value.
+fn level_text<'a>(codes: &[u32], levels: &'a [String]) -> Vec<Option<&'a str>> {
+    codes
+        .iter()
+        .map(|&c| {
+            (c != MISSING_CODE)
+                .then(|| levels.get(c as usize).map(String::as_str))
+                .flatten()
+        })
+        .collect()
 }
 
 /// One line of plain words on the shift test: verdict, named statistic with its interval, and

@@ -3,8 +3,9 @@
 //! makes, so both give the same report for the same inputs and seed.
 
 use crate::args::InputArgs;
-use crate::io::{self, read_table, ColumnChoice};
+use crate::io::{self, numeric_rows, ColumnChoice, Table};
 use crate::progress::Progress;
+use crate::read::{read_typed, TypedTable};
 use crate::report::{full_report, WeightSource};
 use crate::steps::{input_facts, DetectArgs};
 use crate::{exit, Failure, Globals};
@@ -63,16 +64,29 @@ pub fn run(args: ReportArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let opts = args.input.file_options();
     let types = args.input.types();
-    let source = {
+    let (source, target) = {
         let _s = progress.stage(1, 3, "reading source and target rows");
-        read_table(&args.source, &opts, &args.input.choice(), &types)?
+        let source = read_typed(&args.source, &opts, &args.input.choice(), &types)?;
+        // The target is read with exactly the source's feature columns, by name, and their types.
+        let target_choice = ColumnChoice {
+            columns: Some(source.names()),
+            exclude: Vec::new(),
+            key: None,
+        };
+        let target = read_typed(&args.target, &opts, &target_choice, &source.types())?;
+        (source, target)
     };
-    let target_choice = ColumnChoice {
-        columns: Some(source.names.clone()),
-        exclude: Vec::new(),
-        key: None,
+    // The full report draws every feature from one numeric matrix: a text column or a gap is
+    // an error naming the file, the data row and the column (use `weigh`/`detect --report`).
+    let names = source.names();
+    let plain = |t: &TypedTable, path: &std::path::Path| -> Result<Table, Failure> {
+        Ok(Table {
+            names: names.clone(),
+            values: numeric_rows(path, &names, &t.values, &t.row_numbers)?,
+            rows: t.rows,
+        })
     };
-    let target = read_table(&args.target, &opts, &target_choice, &types)?;
+    let (s, t) = (plain(&source, &args.source)?, plain(&target, &args.target)?);
     let mut report = {
         let _s = progress.stage(
             2,
@@ -81,9 +95,9 @@ pub fn run(args: ReportArgs, g: &Globals) -> Result<u8, Failure> {
         );
         full_report(
             "report",
-            source.view("source")?,
-            target.view("target")?,
-            &source.names,
+            s.view("source")?,
+            t.view("target")?,
+            &names,
             model
                 .as_ref()
                 .map_or(WeightSource::Automatic, WeightSource::Model),

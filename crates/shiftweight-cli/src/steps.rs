@@ -195,7 +195,6 @@ pub fn run_detection(
     Ok(DetectOutcome { shift, features })
 }
 
-
 /// The exit code of `detect`: [`exit::SHIFT_DETECTED`] when the shift is significant and
 /// `--fail-on-shift` was given, 0 otherwise.
 pub fn detect_exit_code(significant: bool, fail_on_shift: bool) -> u8 {

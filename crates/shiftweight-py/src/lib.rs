@@ -19,8 +19,8 @@ mod label;
 mod learn;
 mod metrics;
 mod ratio;
-mod table;
 mod report;
+mod table;
 mod weights;
 
 create_exception!(

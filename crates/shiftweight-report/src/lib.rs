@@ -68,6 +68,11 @@ pub const FEATURE_FIGURES: usize = 4;
 /// Bins of the numeric source-vs-target histograms.
 pub const FEATURE_BINS: usize = 24;
 
+/// Below this share of the source rows the summary calls the effective sample size low and says
+/// what it costs: the variance of a weighted mean is about n / ESS times the unweighted one
+/// (Kish 1965, design effect of weighting 1 + cv^2 = n / ESS); the half is common practice.
+pub const LOW_ESS_FRACTION: f64 = 0.5;
+
 /// A feature with at most this many distinct values is drawn as level frequencies.
 pub const MAX_LEVELS: usize = 12;
 
@@ -725,6 +730,79 @@ pub struct FeatureFigure {
     pub target: Vec<f64>,
 }
 
+impl FeatureFigure {
+    /// The figure of a numeric column: shares per level when `as_levels` or when it has at
+    /// most [`MAX_LEVELS`] distinct values, else shares per bin of [`FEATURE_BINS`] shared bins.
+    /// Missing values (NaN) are left out. O(n log n) in the rows.
+    pub fn from_numbers(feature: &str, source: &[f64], target: &[f64], as_levels: bool) -> Self {
+        let s: Vec<f64> = source.iter().copied().filter(|x| !x.is_nan()).collect();
+        let g: Vec<f64> = target.iter().copied().filter(|x| !x.is_nan()).collect();
+        let mut levels: Vec<f64> = s.iter().chain(&g).copied().collect();
+        levels.sort_by(f64::total_cmp);
+        levels.dedup();
+        if as_levels || levels.len() <= MAX_LEVELS {
+            let share = |v: &[f64]| -> Vec<f64> {
+                levels
+                    .iter()
+                    .map(|l| v.iter().filter(|x| *x == l).count() as f64 / v.len().max(1) as f64)
+                    .collect()
+            };
+            FeatureFigure {
+                feature: feature.into(),
+                kind: "categorical".into(),
+                lo: f64::NAN,
+                hi: f64::NAN,
+                levels: levels.iter().map(|l| num(*l)).collect(),
+                source: share(&s),
+                target: share(&g),
+            }
+        } else {
+            let (lo, hi, hs, ht) = svg::shared_bins(&s, &g, FEATURE_BINS).unwrap_or((
+                f64::NAN,
+                f64::NAN,
+                Vec::new(),
+                Vec::new(),
+            ));
+            FeatureFigure {
+                feature: feature.into(),
+                kind: "numeric".into(),
+                lo,
+                hi,
+                levels: Vec::new(),
+                source: hs,
+                target: ht,
+            }
+        }
+    }
+
+    /// The figure of a text column: the share of each level among the present values of each
+    /// side (`None` is a missing value, left out), levels in order of first appearance.
+    pub fn from_levels(feature: &str, source: &[Option<&str>], target: &[Option<&str>]) -> Self {
+        let mut levels: Vec<&str> = Vec::new();
+        for l in source.iter().chain(target).flatten() {
+            if !levels.contains(l) {
+                levels.push(l);
+            }
+        }
+        let share = |v: &[Option<&str>]| -> Vec<f64> {
+            let present = v.iter().flatten().count().max(1) as f64;
+            levels
+                .iter()
+                .map(|l| v.iter().filter(|x| **x == Some(*l)).count() as f64 / present)
+                .collect()
+        };
+        FeatureFigure {
+            feature: feature.into(),
+            kind: "categorical".into(),
+            lo: f64::NAN,
+            hi: f64::NAN,
+            levels: levels.iter().map(|l| l.to_string()).collect(),
+            source: share(source),
+            target: share(target),
+        }
+    }
+}
+
 /// The per-feature section.
 #[derive(Debug, Clone, Serialize)]
 pub struct FeaturesPart {
@@ -786,12 +864,23 @@ fn feature_row(r: &shiftweight::detect::FeatureShiftRow) -> FeatureRow {
 }
 
 impl FeaturesPart {
-    /// The section from a feature-shift table of typed columns (text levels, gaps): the rows
-    /// only, since the columns are not one numeric matrix to draw from.
-    pub fn from_typed_table(t: &FeatureShiftTable) -> Self {
+    /// The section from a feature-shift table of typed columns (text levels, gaps), with the
+    /// figures the caller draws from its columns ([`FeatureFigure::from_numbers`],
+    /// [`FeatureFigure::from_levels`]): `figure` is asked for the most shifted rows that are not
+    /// missing-value rows, [`FEATURE_FIGURES`] at most.
+    pub fn from_typed_table(
+        t: &FeatureShiftTable,
+        figure: impl Fn(&shiftweight::detect::FeatureShiftRow) -> Option<FeatureFigure>,
+    ) -> Self {
         FeaturesPart {
             rows: t.rows.iter().map(feature_row).collect(),
-            figures: Vec::new(),
+            figures: t
+                .rows
+                .iter()
+                .filter(|r| r.kind != FeatureKind::MissingRate)
+                .filter_map(figure)
+                .take(FEATURE_FIGURES)
+                .collect(),
         }
     }
 
@@ -804,44 +893,7 @@ impl FeaturesPart {
             .take(FEATURE_FIGURES)
             .map(|r| {
                 let (s, g) = (column(source, r.index), column(target, r.index));
-                if r.kind == FeatureKind::Categorical || r.n_distinct <= MAX_LEVELS {
-                    let mut levels: Vec<f64> = s.iter().chain(&g).copied().collect();
-                    levels.sort_by(f64::total_cmp);
-                    levels.dedup();
-                    let share = |v: &[f64]| -> Vec<f64> {
-                        levels
-                            .iter()
-                            .map(|l| {
-                                v.iter().filter(|x| *x == l).count() as f64 / v.len().max(1) as f64
-                            })
-                            .collect()
-                    };
-                    FeatureFigure {
-                        feature: r.feature.clone(),
-                        kind: "categorical".into(),
-                        lo: f64::NAN,
-                        hi: f64::NAN,
-                        levels: levels.iter().map(|l| num(*l)).collect(),
-                        source: share(&s),
-                        target: share(&g),
-                    }
-                } else {
-                    let (lo, hi, hs, ht) = svg::shared_bins(&s, &g, FEATURE_BINS).unwrap_or((
-                        f64::NAN,
-                        f64::NAN,
-                        Vec::new(),
-                        Vec::new(),
-                    ));
-                    FeatureFigure {
-                        feature: r.feature.clone(),
-                        kind: "numeric".into(),
-                        lo,
-                        hi,
-                        levels: Vec::new(),
-                        source: hs,
-                        target: ht,
-                    }
-                }
+                FeatureFigure::from_numbers(&r.feature, &s, &g, r.kind == FeatureKind::Categorical)
             })
             .collect();
         FeaturesPart { rows, figures }
@@ -1106,17 +1158,27 @@ impl Report {
         }
         if let Some(w) = self.weights.get() {
             let rel = match w.verdict.as_deref() {
-                Some("good") => "reliable (good tail diagnostics)",
-                Some("usable") => "usable with care (a heavy tail: estimates converge slowly)",
-                Some("unreliable") => "unreliable (see the diagnostics before using them)",
-                _ => "not diagnosed",
+                Some("good") => "have good tail diagnostics",
+                Some("usable") => "are usable with care (a heavy tail: estimates converge slowly)",
+                Some("unreliable") => "are unreliable (see the diagnostics before using them)",
+                _ => "are not diagnosed",
             };
+            let ess = w.effective_sample_size;
+            let fraction = ess / w.n.max(1) as f64;
             out.push(format!(
-                "The weights are {rel}; their effective sample size is {} of {} source rows ({}%).",
-                num(w.effective_sample_size.round()),
+                "The weights {rel}; their effective sample size is {} of {} source rows ({}%).",
+                num(ess.round()),
                 w.n,
-                num((100.0 * w.effective_sample_size / w.n.max(1) as f64).round())
+                num((100.0 * fraction).round())
             ));
+            if fraction < LOW_ESS_FRACTION && ess > 0.0 {
+                out.push(format!(
+                    "That is low: a weighted estimate rests on about {} rows, and its variance is \
+                     roughly {} times that of an unweighted one on the same rows.",
+                    num(ess.round()),
+                    num((1.0 / fraction * 10.0).round() / 10.0)
+                ));
+            }
         }
         out.join(" ")
     }

@@ -138,6 +138,15 @@ fn a_full_report_answers_the_reviewers_questions() {
         .count();
     assert_eq!(figs, d.min(FEATURE_FIGURES));
     assert_eq!(rows_of(&doc, "feature-table").len(), d);
+    // The wide feature table scrolls inside its own box instead of widening the page.
+    let table = doc
+        .descendants()
+        .find(|n| n.attribute("id") == Some("feature-table"))
+        .unwrap();
+    assert_eq!(
+        table.parent_element().and_then(|p| p.attribute("class")),
+        Some("table-scroll")
+    );
     assert!(html.contains("b&lt;c"));
 
     // The clipping table has distinct rows only, and no floating-point noise anywhere.
@@ -222,4 +231,34 @@ fn given_weights_of_the_wrong_length_are_refused_by_name() {
     )
     .unwrap_err();
     assert!(err.to_string().contains("`weights`"), "{err}");
+}
+
+#[test]
+fn the_summary_names_a_low_effective_sample_size_and_its_cost() {
+    // 20 of 100 rows at weight 5, the rest 0: Kish ESS = (sum w)^2 / sum w^2 = 100^2 / 500 = 20,
+    // and the design effect n / ESS = 5 (Kish 1965).
+    let w: Vec<f64> = (0..100).map(|i| if i < 20 { 5.0 } else { 0.0 }).collect();
+    let (part, _) = weight_sections(&w, &w, "none");
+    assert!((part.effective_sample_size - 20.0).abs() < 1e-9);
+    let mut r = Report::new("weigh", 0);
+    r.weights = Part::Available(part);
+    let s = r.summary();
+    assert!(
+        s.contains("effective sample size is 20 of 100 source rows (20%)"),
+        "{s}"
+    );
+    assert!(s.contains("That is low"), "{s}");
+    assert!(s.contains("roughly 5 times"), "{s}");
+
+    // Equal weights: ESS = n, nothing to warn about.
+    let w = vec![1.0; 100];
+    let (part, _) = weight_sections(&w, &w, "none");
+    let mut r = Report::new("weigh", 0);
+    r.weights = Part::Available(part);
+    let s = r.summary();
+    assert!(
+        s.contains("effective sample size is 100 of 100 source rows (100%)"),
+        "{s}"
+    );
+    assert!(!s.contains("That is low"), "{s}");
 }
