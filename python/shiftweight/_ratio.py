@@ -625,9 +625,11 @@ class AutoRatio(RatioEstimatorBase):
     error of the best, the one with the largest effective sample size wins (``prefer_stable``).
     With none eligible, uniform weights are kept and ``warnings_`` says that no correction was
     found to help. The winner is refitted on all rows and its cap applied: ``ratio`` and
-    ``source_weights_`` are the capped weights (mean 1 over the source rows), ``raw_ratio`` the
-    estimate before the cap. Above ``max_rows`` rows in a sample, candidates are scored on a
-    seeded subsample of that many rows.
+    ``source_weights_`` are the capped weights, ``mass * min(scale * w, cap_)`` with the scale
+    that gives ``min(scale * w, cap_)`` mean 1 and ``mass`` (``raw_mean_``) the raw source weights'
+    mean, so the cap moves weight between rows without hiding how much the raw estimate puts on
+    the source; ``raw_ratio`` is the estimate before the cap. Above ``max_rows`` rows in a
+    sample, candidates are scored on a seeded subsample of that many rows.
 
     KMM cannot be a candidate: it is transductive (no weights for held-out rows, so no honest
     held-out score).
@@ -665,7 +667,10 @@ class AutoRatio(RatioEstimatorBase):
     estimated), ``excluded`` is True for candidates the heavy-tail guard kept from being chosen,
     ``cap`` the candidate's best cap on the mean-1 scale and ``ess_fraction`` the effective sample
     size of its held-out capped source weights as a fraction of the rows; ``cap_``: the cap
-    applied to the winner (None for uniform weights or raw scores); ``chosen_estimator_``: the
+    applied to the winner on the mean-1 scale (None for uniform weights or raw scores);
+    ``raw_mean_``: the mean of the winner's raw source weights, which the capped weights keep
+    (a value far below 1 means the source covers only part of the target; None without a cap);
+    ``chosen_estimator_``: the
     refitted winner as its own class, sharing the capped model (None for uniform);
     ``source_weights_``: the weights handed over.
 
@@ -749,6 +754,7 @@ class AutoRatio(RatioEstimatorBase):
         ]
         cap = model.cap
         self.cap_ = None if cap is None else cap[1]
+        self.raw_mean_ = None if cap is None else cap[2]
         cls = _KIND_TO_CLASS.get(model.kind)
         if cls is None:
             self.chosen_estimator_ = None

@@ -91,8 +91,8 @@ pub fn finish_weights(
             model.source_weights.clone(),
             match model.cap {
                 Some(c) => format!(
-                    "capped at {:.3} times the mean weight and rescaled to mean 1 (chosen with the estimator)",
-                    c.upper
+                    "capped at {:.3} times the mean weight, keeping the raw mean {:.3} (chosen with the estimator)",
+                    c.upper, c.mass
                 ),
                 None => "none (raw estimates)".to_string(),
             },
@@ -149,7 +149,7 @@ pub struct DetectArgs {
     /// Number of permutations for the p-value.
     #[arg(long, default_value_t = 200)]
     pub permutations: usize,
-    /// Significance level: the shift is called significant when p < LEVEL.
+    /// Significance level: the shift is called significant when p <= LEVEL.
     #[arg(long, default_value_t = 0.05)]
     pub level: f64,
 }

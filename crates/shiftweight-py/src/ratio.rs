@@ -47,10 +47,11 @@ impl RatioModel {
         let out = detached(py, move || m.raw_ratio(xv))?;
         Ok(out.into_pyarray(py))
     }
-    /// The cap applied on top of the estimate as (scale, upper), or None.
+    /// The cap applied on top of the estimate as (scale, upper, mass), or None: the weight is
+    /// mass * min(scale * w, upper), mass the mean of the raw source weights.
     #[getter]
-    fn cap(&self) -> Option<(f64, f64)> {
-        self.inner.cap.map(|c| (c.scale, c.upper))
+    fn cap(&self) -> Option<(f64, f64, f64)> {
+        self.inner.cap.map(|c| (c.scale, c.upper, c.mass))
     }
     /// The automatic choice in plain words (None for a model not from the automatic choice).
     fn decision_summary(&self) -> Option<String> {

@@ -18,8 +18,10 @@
 //! source rows, which rarely contain the thin tail where a heavy-tailed estimate explodes, while
 //! E_target[w] sees it, so the most extreme candidate looks best. So each candidate is scored
 //! (with [`SelectionScore::CappedLeastSquares`], the default) through the weights it would hand
-//! over: `g = min(s w, c)`, with `s` the scale that gives the capped training-fold source weights
-//! mean 1 ([`crate::weights::stabilize`] with an upper bound), for each cap `c` of
+//! over: `g = m min(s w, c)`, with `s` the scale that gives the capped training-fold source weights
+//! mean 1 ([`crate::weights::stabilize`] with an upper bound) and `m` the mean of the raw
+//! training-fold source weights (the cap moves weight between rows, not its total; see
+//! [`WeightCap`]), for each cap `c` of
 //! [`CAP_LEVELS`] and Ionides' truncation level sqrt(n) (Ionides 2008, *J. Computational and
 //! Graphical Statistics* 17(2)). Capped weights are bounded, so the variance of the held-out
 //! score is at most c^2 / n_held_out: a heavy tail can no longer buy a low score. Each candidate
@@ -61,8 +63,11 @@
 //! warning.
 //!
 //! The fitted model records the chosen cap in [`FittedRatio::cap`]: its `ratio` and
-//! `source_weights` are the capped weights (mean 1 over the source rows), and
-//! [`FittedRatio::raw_ratio`] gives the estimate before the cap. [`decision_summary`] says in
+//! `source_weights` are the capped weights (with the raw source weights' mean), and
+//! [`FittedRatio::raw_ratio`] gives the estimate before the cap. When the raw source weights'
+//! mean is far below 1 by the rule of [`crate::diagnostics::mean_check`] (the source seems to
+//! cover only part of the target), the fitted model warns, and the capped weights keep that mean
+//! so that [`crate::diagnostics::diagnose`] calls them unreliable. [`decision_summary`] says in
 //! plain words what was chosen and why.
 //!
 //! Complexity: folds x (cost of fitting and scoring every candidate on (folds-1)/folds of the
@@ -78,6 +83,7 @@ use super::{
     RatioEstimator, RatioForm, ScoreRow, Selection, WeightCap,
 };
 use crate::data::{kfold_assignment, validate_pair, Matrix, MatrixView};
+use crate::diagnostics::mean_check;
 use crate::error::{Error, Result};
 use crate::weights::{stabilize, StabilizeOptions};
 use rayon::prelude::*;
@@ -360,6 +366,15 @@ pub fn relative_pearson_criterion(w_source: &[f64], w_target: &[f64]) -> f64 {
     0.5 * a * t2 / nt + 0.5 * (1.0 - a) * s2 - t1 / nt
 }
 
+/// Mean of a non-empty slice (0 for an empty one).
+fn mean_of(w: &[f64]) -> f64 {
+    if w.is_empty() {
+        0.0
+    } else {
+        w.iter().sum::<f64>() / w.len() as f64
+    }
+}
+
 /// The scale s with mean(min(s w, cap)) = 1 over `w` (see [`crate::weights::stabilize`]).
 fn cap_scale(w: &[f64], cap: f64) -> Result<f64> {
     let st = stabilize(w, &StabilizeOptions::new().upper(cap))?;
@@ -572,11 +587,12 @@ impl AutoRatio {
                     if caps.is_empty() {
                         out.push((score.of(&ws, &wt), ws.clone()));
                     } else {
+                        let mass = mean_of(&m.source_weights);
                         for (cap, _) in &caps {
                             let s =
                                 cap_scale(&m.source_weights, *cap).map_err(|e| e.to_string())?;
                             let g = |w: &[f64]| -> Vec<f64> {
-                                w.iter().map(|x| (s * x).min(*cap)).collect()
+                                w.iter().map(|x| mass * (s * x).min(*cap)).collect()
                             };
                             let (gs, gt) = (g(&ws), g(&wt));
                             out.push((score.of(&gs, &gt), gs));
@@ -751,27 +767,39 @@ impl RatioEstimator for AutoRatio {
                 .expect("the chosen name comes from this list");
             c.estimator.fit(source, target)?
         };
+        // The raw source weights' mean, checked before any cap (see the module doc).
+        let raw_mean = if best == 0 {
+            None
+        } else {
+            Some(mean_check(&fitted.source_weights)?)
+        };
         if let Some(c) = win.cap {
             let upper = if win.cap_is_truncation {
                 (source.rows() as f64).sqrt().max(1.0)
             } else {
                 c
             };
-            let st = stabilize(
-                &fitted.source_weights,
-                &StabilizeOptions::new().upper(upper),
-            )?;
-            let scale = st
-                .report
-                .steps
-                .iter()
-                .find(|s| s.step == "normalize")
-                .and_then(|s| s.value)
-                .unwrap_or(1.0);
-            fitted.source_weights = st.weights;
-            fitted.cap = Some(WeightCap { scale, upper });
+            let mass = mean_of(&fitted.source_weights);
+            let scale = cap_scale(&fitted.source_weights, upper)?;
+            let cap = WeightCap { scale, upper, mass };
+            for w in fitted.source_weights.iter_mut() {
+                *w = cap.apply(*w);
+            }
+            fitted.cap = Some(cap);
         }
         let mut warnings = Vec::new();
+        if let Some(mc) = raw_mean {
+            if mc.too_low {
+                warnings.push(format!(
+                    "the raw estimate's mean weight over the source rows is {:.3} (99.9% upper bound \
+                     {:.3}), far below 1: the source seems to cover only part of the target, and no \
+                     weighting corrects for target rows outside the source's support; the weights \
+                     handed over keep that mean so that diagnose() flags them (see check_overlap)",
+                    mc.mean,
+                    mc.upper_bound.unwrap_or(f64::NAN)
+                ));
+            }
+        }
         let d = source.cols();
         if self.use_defaults && d > QUADRATIC_DEFAULT_MAX_COLUMNS {
             warnings.push(format!(
@@ -887,14 +915,15 @@ pub fn decision_summary(m: &FittedRatio) -> Option<String> {
         ));
         match m.cap {
             Some(c) => out.push(format!(
-                "Its weights are capped at {:.3} times the mean weight{} and rescaled to mean 1; \
-                 the raw estimate remains available.",
+                "Its weights are capped at {:.3} times the mean weight{}, keeping the raw estimate's \
+                 mean of {:.3}; the raw estimate remains available.",
                 c.upper,
                 if r.params.get("cap_is_truncation") == Some(&1.0) {
                     " (Ionides' truncation level sqrt(n))"
                 } else {
                     ""
-                }
+                },
+                c.mass
             )),
             None => out.push("Its weights are the raw estimates (no cap).".into()),
         }

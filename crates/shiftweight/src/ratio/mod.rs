@@ -276,21 +276,35 @@ pub struct FittedRatio {
     pub cap: Option<WeightCap>,
 }
 
-/// Stabilisation that goes with a fitted ratio: the weight handed over is `min(scale * w, upper)`,
-/// w the raw estimate; `scale` makes the capped source weights average exactly 1 (the
-/// normalisation of [`crate::weights::stabilize`] with an upper bound).
+/// Stabilisation that goes with a fitted ratio: the weight handed over is
+/// `mass * min(scale * w, upper)`, w the raw estimate. `scale` makes `min(scale * w, upper)`
+/// average exactly 1 over the source rows (the normalisation of [`crate::weights::stabilize`]
+/// with an upper bound); `mass` is the mean of the raw source weights, so the cap moves weight
+/// between source rows without changing its total. That total is evidence in itself: the true
+/// ratio averages P_target(p_source > 0) over the source (Sugiyama, Suzuki & Kanamori 2012,
+/// *Density Ratio Estimation in Machine Learning*, ch. 1), so a raw estimate that puts little mass
+/// on the source rows (a target the source does not cover) still says so after the cap, and
+/// [`crate::diagnostics::diagnose`]'s mean check still sees it.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct WeightCap {
     /// Factor applied to the raw estimate before capping.
     pub scale: f64,
-    /// Largest weight handed over, on the mean-1 scale of the source weights.
+    /// Largest weight on the mean-1 scale of the capped source weights.
     pub upper: f64,
+    /// Mean of the raw source weights, multiplied back after the cap (1 in files written before
+    /// this field existed).
+    #[serde(default = "unit_mass")]
+    pub mass: f64,
+}
+
+fn unit_mass() -> f64 {
+    1.0
 }
 
 impl WeightCap {
     /// The capped weight of a raw estimate.
     pub fn apply(&self, w: f64) -> f64 {
-        (self.scale * w).min(self.upper)
+        self.mass * (self.scale * w).min(self.upper)
     }
 }
 
@@ -688,10 +702,17 @@ impl FittedRatio {
             }
         }
         if let Some(c) = &self.cap {
-            if !(c.scale.is_finite() && c.scale > 0.0 && c.upper.is_finite() && c.upper >= 1.0) {
+            if !(c.scale.is_finite()
+                && c.scale > 0.0
+                && c.upper.is_finite()
+                && c.upper >= 1.0
+                && c.mass.is_finite()
+                && c.mass > 0.0)
+            {
                 return Err(Error::ModelFile(format!(
-                    "weight cap needs a finite scale > 0 and an upper bound >= 1, got scale {} and upper {}",
-                    c.scale, c.upper
+                    "weight cap needs a finite scale > 0, an upper bound >= 1 and a finite mass > 0, \
+                     got scale {}, upper {} and mass {}",
+                    c.scale, c.upper, c.mass
                 )));
             }
         }
