@@ -21,26 +21,19 @@ ROOT = pathlib.Path(__file__).resolve().parents[1]
 FEATURE_FIGURES = 4
 
 
-@pytest.fixture(scope="module")
-def cli():
-    # `make test` builds the binary in the Rust step; this is a no-op then.
-    subprocess.run(["cargo", "build", "-q", "-p", "shiftweight-cli"], cwd=ROOT, check=True)
-    return ROOT / "target" / "debug" / "shiftweight"
-
-
 class Page(html.parser.HTMLParser):
     """Collects tables (rows of cell texts with the row's class), figures, links and sources."""
 
     def __init__(self) -> None:
         super().__init__()
-        self.tables = {}
-        self.row_classes = {}
-        self.figures = []
-        self.refs = []
-        self.text = []
-        self._table = None
-        self._row = None
-        self._cell = None
+        self.tables: dict[str, list[list[str]]] = {}
+        self.row_classes: dict[str, list[str]] = {}
+        self.figures: list[str] = []
+        self.refs: list[str] = []
+        self.text: list[str] = []
+        self._table: str | None = None
+        self._row: list[str] | None = None
+        self._cell: list[str] | None = None
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)

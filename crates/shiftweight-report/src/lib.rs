@@ -166,7 +166,8 @@ pub struct ShiftPart {
     pub p_floor: Option<f64>,
     /// Significance level used for the verdict.
     pub level: f64,
-    /// True when p_value < level.
+    /// True when p_value <= level (a valid p-value is at most the level with probability at most
+    /// the level under no shift, so the test keeps its size; Lehmann & Romano 2005, 3.3).
     pub significant: bool,
     /// Notes of the test (e.g. why an approximation was used).
     pub notes: Vec<String>,
@@ -222,7 +223,7 @@ impl ShiftPart {
             permutations: r.permutations,
             p_floor,
             level,
-            significant: r.p_value < level,
+            significant: r.p_value <= level,
             notes: r.notes.clone(),
         }
     }
