@@ -1,6 +1,7 @@
 # One task runner. `make test` is the README's test command and what CI runs: on a fresh machine it
 # creates the Python virtual environment, installs the test dependencies, builds the extension
-# once, runs the lints (Rust formatting and clippy, ruff, mypy), then the Rust and Python test suites.
+# once, runs the lints (Rust formatting, clippy, rustdoc with every public item documented, ruff,
+# mypy), then the Rust and Python test suites.
 VENV ?= .venv
 PY := $(VENV)/bin/python
 export VIRTUAL_ENV := $(abspath $(VENV))
@@ -39,6 +40,7 @@ study: develop
 lint: develop
 	cargo fmt --all --check
 	cargo clippy --workspace --all-targets -- -D warnings
+	RUSTDOCFLAGS="-D warnings" cargo doc --no-deps -q -p shiftweight -p shiftweight-report
 	$(VENV)/bin/ruff check python tests
 	$(VENV)/bin/mypy
 

@@ -31,6 +31,7 @@
 //! This crate computes no statistics of its own beyond binning values for the charts; every
 //! number comes from the `shiftweight` core. Cost: the shift test and feature table dominate
 //! (see `shiftweight::detect`); the report itself is linear in rows (binning) and candidates.
+#![warn(missing_docs)]
 
 pub mod svg;
 

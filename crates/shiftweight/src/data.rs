@@ -308,7 +308,7 @@ pub struct Standardizer {
 
 impl Standardizer {
     /// Fits on the union of the given matrices (all must have the same width).
-    /// Each fixed row chunk (in parallel, [`crate::par::reduce_chunks`], so the result is the same
+    /// Each fixed row chunk (in parallel, `crate::par::reduce_chunks`, so the result is the same
     /// for any thread count) gets its mean and sum of squared deviations by two passes over the
     /// chunk while it is in cache; the chunks are merged with the pairwise update of Chan, Golub
     /// and LeVeque (1979). Two passes over the data in all (the first finds each column's largest

@@ -183,7 +183,7 @@ pub fn add_lower(dst: &mut Mat<f64>, src: &Mat<f64>) {
 }
 
 /// k' k for a row-major n x b buffer `k`, accumulated over fixed row chunks in parallel with
-/// [`crate::par::reduce_chunks`] (bitwise identical for any thread count). O(n b^2 / 2) flops.
+/// `crate::par::reduce_chunks` (bitwise identical for any thread count). O(n b^2 / 2) flops.
 pub fn gram_of_rows(k: &[f64], n: usize, b: usize) -> Mat<f64> {
     debug_assert_eq!(k.len(), n * b);
     let mut g = crate::par::reduce_chunks(

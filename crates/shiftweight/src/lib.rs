@@ -45,6 +45,7 @@
 //! processes of the domain when the weights feed decisions about people.
 
 // `!(x > 0.0)` is used deliberately throughout: unlike `x <= 0.0` it is also true for NaN.
+#![warn(missing_docs)]
 #![allow(clippy::neg_cmp_op_on_partial_ord)]
 #![allow(clippy::type_complexity)]
 

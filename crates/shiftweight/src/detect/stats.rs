@@ -167,7 +167,7 @@ pub struct KsResult {
 /// Two-sided two-sample Kolmogorov-Smirnov test.
 ///
 /// The statistic is that of scipy.stats.ks_2samp. The p-value follows scipy's `method="auto"`
-/// choice: exact when both samples have at most [`KS_EXACT_MAX_N`] rows, otherwise asymptotic.
+/// choice: exact when both samples have at most `KS_EXACT_MAX_N` rows, otherwise asymptotic.
 /// - Exact: P(D >= d) under the null, by a recursion over the lattice paths from (0, 0) to
 ///   (n1, n2): q(i, j) = 1 at points where |i/n1 - j/n2| >= d, else
 ///   q(i, j) = (i q(i-1, j) + j q(i, j-1)) / (i + j), and p = q(n1, n2). Every term is a

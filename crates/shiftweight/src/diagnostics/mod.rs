@@ -7,7 +7,7 @@
 //! - **Kish effective sample size** (Kish 1965, *Survey Sampling*):
 //!   `ESS = (sum_i w_i)^2 / sum_i w_i^2`. It equals n for equal weights (the largest possible) and 1
 //!   when a single weight is non-zero. Scale-free. O(n), summed over fixed row chunks in parallel
-//!   ([`crate::par::reduce_chunks`]), so results do not depend on the thread count.
+//!   (`crate::par::reduce_chunks`), so results do not depend on the thread count.
 //! - **Pareto k** ([`pareto_k`]): the shape k of a generalised Pareto distribution (GPD)
 //!   `F(x) = 1 - (1 + k x / sigma)^(-1/k)` fitted to the exceedances of the M largest weights over
 //!   the next largest one, with the estimator of Zhang & Stephens (2009, *Technometrics* 51(3)) and
@@ -79,7 +79,7 @@ pub const MIN_TAIL: usize = 5;
 /// [`mean_check`] (reference: statrs `Normal::inverse_cdf(0.999)`; the level is our choice).
 pub const MEAN_Z: f64 = 3.090_232_306_167_813;
 /// The mean weight is flagged when its one-sided upper bound is below this: the weights then miss
-/// more than half of the target mass (E_source[w] = P_target(p_s > 0), see the module doc). Our
+/// more than half of the target mass (E_source\[w\] = P_target(p_s > 0), see the module doc). Our
 /// choice: low enough that a shrunken but sound estimate (regularised uLSIF, RuLSIF) passes, high
 /// enough that a source covering less than half of the target is caught.
 pub const MEAN_FLOOR: f64 = 0.5;

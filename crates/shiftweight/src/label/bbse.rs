@@ -2,7 +2,7 @@
 //! 2018, "Detecting and correcting for label shift with black box predictors", ICML).
 //!
 //! Let yhat be the classifier's predicted class (the largest probability). On held-out source
-//! rows, A[i, j] = P_s(yhat = i | y = j) (columns sum to 1); on target rows, mu[i] = P_t(yhat = i).
+//! rows, A[i, j] = P_s(yhat = i | y = j) (columns sum to 1); on target rows, mu\[i\] = P_t(yhat = i).
 //! When p(x | y) is the same in both populations, so is A, and mu = A q, hence q = A^{-1} mu.
 //! This is the paper's w = C^{-1} mu with C[i, j] = P_s(yhat = i, y = j) = A[i, j] p(j), since
 //! q = p * w elementwise. The raw solution sums to 1 (the columns of A do) but can have negative
@@ -47,7 +47,7 @@ pub struct BbseEstimate {
     pub interval_low: Vec<f64>,
     /// Upper interval ends, clipped to [0, 1].
     pub interval_high: Vec<f64>,
-    /// A[i][j] = share of source rows of class j predicted as class i (row-major, K x K).
+    /// A\[i\]\[j\] = share of source rows of class j predicted as class i (row-major, K x K).
     pub confusion: Vec<Vec<f64>>,
     /// Shares of target rows predicted as each class (mu).
     pub target_predicted_shares: Vec<f64>,

@@ -9,7 +9,7 @@
 //!   p_t(y | x) proportional to w(y) p_s(y | x).
 //!   - Confusion-matrix method, BBSE (Lipton, Wang & Smola 2018, "Detecting and correcting for
 //!     label shift with black box predictors", ICML): with A[i, j] = P_s(predicted i | class j)
-//!     and mu[i] = P_t(predicted i), mu = A q, so q = A^{-1} mu. Its interval is the delta method
+//!     and mu\[i\] = P_t(predicted i), mu = A q, so q = A^{-1} mu. Its interval is the delta method
 //!     over both samples (see [`bbse`]).
 //!   - Maximum likelihood by EM (Saerens, Latinne & Decaestecker 2002, Neural Computation 14,
 //!     21-41) on probabilities calibrated by bias-corrected temperature scaling fitted on the

@@ -16,7 +16,7 @@
 //! **Judged by the weights handed over.** Raw estimates are not what a user should receive, and
 //! on raw weights the held-out J rewards heavy tails: it estimates E_source[w^2] from held-out
 //! source rows, which rarely contain the thin tail where a heavy-tailed estimate explodes, while
-//! E_target[w] sees it, so the most extreme candidate looks best. So each candidate is scored
+//! E_target\[w\] sees it, so the most extreme candidate looks best. So each candidate is scored
 //! (with [`SelectionScore::CappedLeastSquares`], the default) through the weights it would hand
 //! over: `g = m min(s w, c)`, with `s` the scale that gives the capped training-fold source weights
 //! mean 1 ([`crate::weights::stabilize`] with an upper bound) and `m` the mean of the raw

@@ -22,7 +22,7 @@
 //! equals brute-force refits exactly. Above `max_cv_rows` pairs, a seeded subset of pairs is held
 //! out (each still removed from the full statistics), which keeps the criterion unbiased.
 //!
-//! Complexity: O((n_s + n_t) b d) for distances, O(n_sigma (n_s + [alpha > 0] n_t) b^2) for the
+//! Complexity: O((n_s + n_t) b d) for distances, O(n_sigma (n_s + 1(alpha > 0) n_t) b^2) for the
 //! statistics H (accumulated over row chunks; no n x b matrix is ever held), O(n_sigma (b^3 +
 //! n_lambda m b^2)) for the cross-validation, O(n b d) to score n rows. Memory O(n_sigma b^2 + m b).
 

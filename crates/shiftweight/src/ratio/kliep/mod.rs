@@ -9,8 +9,8 @@
 //! subject to  1/n_s sum_s sum_l alpha_l k(x_s, c_l) = 1,   alpha >= 0
 //! ```
 //!
-//! Solver: [`sqp`] (sequential quadratic programming on the simplex, with the updatable
-//! Cholesky factor of [`factor`]).
+//! Solver: `sqp` (sequential quadratic programming on the simplex, with the updatable
+//! Cholesky factor of `factor`).
 //!
 //! Width selection (`sigma = None`): likelihood cross-validation over `sigma_multiples` x the
 //! median pairwise distance, with `folds` seeded folds. Two variants:
