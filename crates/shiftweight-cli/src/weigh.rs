@@ -60,7 +60,7 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
     let progress = Progress::new(g.quiet);
     let opts = args.input.file_options();
     let types = args.input.types();
-    let source = {
+    let mut source = {
         let _s = progress.step("reading source rows");
         read_typed(&args.source, &opts, &args.input.choice(), &types)?
     };
@@ -70,7 +70,7 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
         exclude: Vec::new(),
         key: None,
     };
-    let target = {
+    let mut target = {
         let _s = progress.step("reading target rows");
         read_typed(&args.target, &opts, &target_choice, &source.types())?
     };
@@ -83,6 +83,10 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
             let d = names.len();
             let s = numeric_rows(&args.source, &names, &source.values, &source.row_numbers)?;
             let t = numeric_rows(&args.target, &names, &target.values, &target.row_numbers)?;
+            // The column-wise copies are not needed after this: free them before the fit, so the
+            // values are held once (row-major) while the estimator runs.
+            source.values = Vec::new();
+            target.values = Vec::new();
             let mut m = estimator.fit(
                 MatrixView::named(&s, source.rows, d, "source")?,
                 MatrixView::named(&t, target.rows, d, "target")?,
