@@ -319,3 +319,15 @@ def write_report(
     level: float,
     json_path: Optional[str],
 ) -> str: ...
+def write_report_table(
+    source: Table,
+    target: Table,
+    path: str,
+    model_json: Optional[str],
+    weights: Optional[_F64],
+    seed: int,
+    test: str,
+    permutations: int,
+    level: float,
+    json_path: Optional[str],
+) -> str: ...

@@ -15,7 +15,7 @@ import os
 from typing import Any, Optional
 
 from . import _native
-from ._detect import _pair
+from ._detect import _pair, _tables
 from ._validation import as_count, as_seed, as_vector
 
 __all__ = ["write_report"]
@@ -38,7 +38,9 @@ def write_report(
 
     Parameters
     ----------
-    source, target : 2-D arrays or DataFrames with the same columns.
+    source, target : 2-D arrays, or data frames (pandas, polars, pyarrow) with the same columns;
+        text and categorical columns and missing values take the typed path, as on the command
+        line (each column tested by its type and drawn as it is in the data).
     path : where to write the HTML file (replaced atomically: written to a temporary file in the
         same folder, then renamed).
     estimator : a fitted ratio estimator (e.g. ``sw.AutoRatio().fit(source, target)``) whose
@@ -66,7 +68,7 @@ def write_report(
     """
     if estimator is not None and weights is not None:
         raise _native.ShiftweightError("give either `estimator` or `weights`, not both")
-    s, t, names = _pair(source, target)
+    tables = _tables(source, target, None, None)
     model_json: Optional[str] = None
     if estimator is not None:
         if not hasattr(estimator, "to_json"):
@@ -74,12 +76,36 @@ def write_report(
                 f"`estimator` must be a fitted shiftweight ratio estimator, got {type(estimator).__name__}"
             )
         model_json = estimator.to_json()
-    w = None if weights is None else as_vector(weights, "weights", s.shape[0])
+    n_source = tables[0].rows if tables is not None else None
+    s = t = None
+    names: Any = None
+    if tables is None:
+        s, t, names = _pair(source, target)
+        n_source = s.shape[0]
+    w = None if weights is None else as_vector(weights, "weights", n_source)
     if test not in ("classifier", "mmd"):
         raise _native.ShiftweightError(f'`test` must be "classifier" or "mmd", got {test!r}')
     lvl = float(level)
     if not 0.0 < lvl < 1.0:
         raise _native.ShiftweightError(f"`level` must be in (0, 1), got {level!r}")
+    json_out = None if json_path is None else os.fspath(json_path)
+    if tables is not None:
+        # Typed columns (text levels, gaps): the same call as the command line's `report`.
+        return str(
+            _native.write_report_table(
+                tables[0],
+                tables[1],
+                os.fspath(path),
+                model_json,
+                w,
+                as_seed(seed),
+                test,
+                as_count(permutations, "permutations"),
+                lvl,
+                json_out,
+            )
+        )
+    assert s is not None and t is not None
     feature_names = list(names) if names else [f"x{j}" for j in range(s.shape[1])]
     return str(
         _native.write_report(
@@ -93,6 +119,6 @@ def write_report(
             test,
             as_count(permutations, "permutations"),
             lvl,
-            None if json_path is None else os.fspath(json_path),
+            json_out,
         )
     )

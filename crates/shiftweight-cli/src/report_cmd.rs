@@ -1,12 +1,12 @@
 //! `shiftweight report`: the full HTML (and optionally JSON) report of a source/target pair,
-//! through `shiftweight_report::full_report`, the same call the Python package's `write_report`
+//! through `shiftweight_report::full_report_table`, the same call the Python package's `write_report`
 //! makes, so both give the same report for the same inputs and seed.
 
 use crate::args::InputArgs;
-use crate::io::{self, numeric_rows, ColumnChoice, Table};
+use crate::io::{self, ColumnChoice};
 use crate::progress::Progress;
-use crate::read::{read_typed, TypedTable};
-use crate::report::{full_report, WeightSource};
+use crate::read::read_typed;
+use crate::report::{full_report_table, WeightSource};
 use crate::steps::{input_facts, DetectArgs};
 use crate::{exit, Failure, Globals};
 use clap::Args;
@@ -76,28 +76,19 @@ pub fn run(args: ReportArgs, g: &Globals) -> Result<u8, Failure> {
         let target = read_typed(&args.target, &opts, &target_choice, &source.types())?;
         (source, target)
     };
-    // The full report draws every feature from one numeric matrix: a text column or a gap is
-    // an error naming the file, the data row and the column (use `weigh`/`detect --report`).
-    let names = source.names();
-    let plain = |t: &TypedTable, path: &std::path::Path| -> Result<Table, Failure> {
-        Ok(Table {
-            names: names.clone(),
-            values: numeric_rows(path, &names, &t.values, &t.row_numbers)?,
-            rows: t.rows,
-        })
-    };
-    let (s, t) = (plain(&source, &args.source)?, plain(&target, &args.target)?);
+    // Typed columns (text levels, gaps) take the core's typed path; all-numeric tables give
+    // exactly the report of the same numbers as a matrix (Python's `write_report` on arrays).
+    let (s, t) = (source.to_core(&args.source)?, target.to_core(&args.target)?);
     let mut report = {
         let _s = progress.stage(
             2,
             3,
             "testing for a shift, measuring each feature and fitting the weights",
         );
-        full_report(
+        full_report_table(
             "report",
-            s.view("source")?,
-            t.view("target")?,
-            &names,
+            &s,
+            &t,
             model
                 .as_ref()
                 .map_or(WeightSource::Automatic, WeightSource::Model),

@@ -620,7 +620,11 @@ fn every_estimator_and_the_shift_test_run_with_clear_codes() {
         assert!(out.contains("Examples:"), "{cmd} --help has examples");
     }
     let o = run(&["detect", "--help"], &f.dir);
-    assert!(String::from_utf8_lossy(&o.stdout).contains("--fail-on-shift"));
+    let help = String::from_utf8_lossy(&o.stdout);
+    assert!(help.contains("--fail-on-shift"));
+    // The classifier test's statistic is its out-of-fold AUC, not an accuracy.
+    assert!(help.contains("out-of-fold AUC"), "{help}");
+    assert!(!help.contains("accuracy"), "{help}");
 }
 
 #[test]

@@ -2,11 +2,14 @@
 //! the same call as the command line's `shiftweight report`, so both give the same report for the
 //! same inputs and seed.
 
+use crate::table::PyTable;
 use crate::{detached, vector, view};
 use numpy::{PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 use shiftweight::{Error, FittedRatio};
-use shiftweight_report::{full_report, InputFacts, ShiftOptions, TestKind, WeightSource};
+use shiftweight_report::{
+    full_report, full_report_table, InputFacts, Report, ShiftOptions, TestKind, WeightSource,
+};
 use std::io::Write as _;
 use std::path::{Path, PathBuf};
 
@@ -38,8 +41,53 @@ fn write_atomic(dest: &Path, text: &str, argument: &str) -> shiftweight::Result<
     Ok(())
 }
 
-/// Builds the full report and writes it (HTML to `path`, JSON to `json_path` when given);
-/// returns the summary paragraph.
+fn test_kind(test: &str) -> PyResult<TestKind> {
+    match test {
+        "classifier" => Ok(TestKind::Classifier),
+        "mmd" => Ok(TestKind::Mmd),
+        other => Err(crate::to_py(Error::param(
+            "test",
+            format!("must be \"classifier\" or \"mmd\", got {other:?}"),
+        ))),
+    }
+}
+
+/// Where the weights come from: the model read from `model_json`, the given weights, or the
+/// automatic choice.
+fn weight_source<'a>(model: &'a Option<FittedRatio>, w: Option<&'a [f64]>) -> WeightSource<'a> {
+    match (model, w) {
+        (Some(m), _) => WeightSource::Model(m),
+        (None, Some(w)) => WeightSource::Given(w),
+        (None, None) => WeightSource::Automatic,
+    }
+}
+
+/// Adds the inputs of Python data to `r`, writes the HTML (and JSON) atomically and returns the
+/// summary paragraph.
+fn finish(
+    mut r: Report,
+    rows: (usize, usize),
+    path: &Path,
+    json_path: Option<&Path>,
+) -> shiftweight::Result<String> {
+    r.inputs = [("source", rows.0), ("target", rows.1)]
+        .iter()
+        .map(|(role, n)| InputFacts {
+            role: role.to_string(),
+            path: "data from Python".into(),
+            rows: *n,
+            rows_dropped: 0,
+        })
+        .collect();
+    write_atomic(path, &r.to_html(), "path")?;
+    if let Some(j) = json_path {
+        write_atomic(j, &r.to_json(), "json_path")?;
+    }
+    Ok(r.summary())
+}
+
+/// Builds the full report of two numeric matrices and writes it (HTML to `path`, JSON to
+/// `json_path` when given); returns the summary paragraph.
 #[pyfunction]
 #[pyo3(signature = (source, target, feature_names, path, model_json, weights, seed, test, permutations, level, json_path))]
 #[allow(clippy::too_many_arguments)]
@@ -62,18 +110,8 @@ fn write_report(
         Some(a) => Some(vector(a, "weights")?),
         None => None,
     };
-    let test = match test {
-        "classifier" => TestKind::Classifier,
-        "mmd" => TestKind::Mmd,
-        other => {
-            return Err(crate::to_py(Error::param(
-                "test",
-                format!("must be \"classifier\" or \"mmd\", got {other:?}"),
-            )))
-        }
-    };
     let opts = ShiftOptions {
-        test,
+        test: test_kind(test)?,
         permutations,
         level,
     };
@@ -82,43 +120,59 @@ fn write_report(
             .as_deref()
             .map(FittedRatio::from_json)
             .transpose()?;
-        let source_of_weights = match (&model, w) {
-            (Some(m), _) => WeightSource::Model(m),
-            (None, Some(w)) => WeightSource::Given(w),
-            (None, None) => WeightSource::Automatic,
-        };
-        let mut r = full_report(
+        let r = full_report(
             "report",
             s,
             t,
             &feature_names,
-            source_of_weights,
+            weight_source(&model, w),
             &opts,
             seed,
         )?;
-        r.inputs = vec![
-            InputFacts {
-                role: "source".into(),
-                path: "array from Python".into(),
-                rows: s.rows(),
-                rows_dropped: 0,
-            },
-            InputFacts {
-                role: "target".into(),
-                path: "array from Python".into(),
-                rows: t.rows(),
-                rows_dropped: 0,
-            },
-        ];
-        write_atomic(&path, &r.to_html(), "path")?;
-        if let Some(j) = &json_path {
-            write_atomic(j, &r.to_json(), "json_path")?;
-        }
-        Ok(r.summary())
+        finish(r, (s.rows(), t.rows()), &path, json_path.as_deref())
+    })
+}
+
+/// As [`write_report`] for two typed tables (numeric and categorical columns, missing values),
+/// through the same call as the command line's `shiftweight report`.
+#[pyfunction]
+#[pyo3(signature = (source, target, path, model_json, weights, seed, test, permutations, level, json_path))]
+#[allow(clippy::too_many_arguments)]
+fn write_report_table(
+    py: Python<'_>,
+    source: &PyTable,
+    target: &PyTable,
+    path: PathBuf,
+    model_json: Option<String>,
+    weights: Option<PyReadonlyArray1<'_, f64>>,
+    seed: u64,
+    test: &str,
+    permutations: usize,
+    level: f64,
+    json_path: Option<PathBuf>,
+) -> PyResult<String> {
+    let (s, t) = (source.inner.clone(), target.inner.clone());
+    let w = match &weights {
+        Some(a) => Some(vector(a, "weights")?),
+        None => None,
+    };
+    let opts = ShiftOptions {
+        test: test_kind(test)?,
+        permutations,
+        level,
+    };
+    detached(py, move || {
+        let model = model_json
+            .as_deref()
+            .map(FittedRatio::from_json)
+            .transpose()?;
+        let r = full_report_table("report", &s, &t, weight_source(&model, w), &opts, seed)?;
+        finish(r, (s.rows(), t.rows()), &path, json_path.as_deref())
     })
 }
 
 pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(write_report, m)?)?;
+    m.add_function(wrap_pyfunction!(write_report_table, m)?)?;
     Ok(())
 }

@@ -121,7 +121,7 @@ fn feature_figures(f: &FeaturesPart) -> Vec<Figure> {
                 Figure {
                     svg: svg::two_sample_histogram(g.lo, g.hi, &g.source, &g.target, &title, &g.feature),
                     caption: format!(
-                        "Histograms of {} as shares of each sample on shared bins: source as filled bars, target as a dashed outline (range: pooled 0.5% to 99.5% quantiles).",
+                        "Histograms of {} as shares of each sample on shared bins: source as filled bars, target as a dashed outline (range: pooled 0.5% to 99.5% quantiles; rows outside it are counted in the end bins; missing values left out).",
                         g.feature
                     ),
                 }
@@ -144,7 +144,17 @@ fn env() -> Environment<'static> {
         v.map_or("n/a".to_string(), svg::p_value)
     });
     env.add_filter("pct", |v: Option<f64>| {
-        v.map_or("n/a".to_string(), |v| format!("{}%", svg::num(100.0 * v)))
+        // One decimal: shares of rows or weight; magnitudes below the noise floor print as 0%.
+        v.map_or("n/a".to_string(), |v| {
+            if v.abs() < svg::NOISE {
+                "0%".to_string()
+            } else if v.abs() < 0.0005 {
+                // No false zero: a share that rounds to 0.0% is not nothing.
+                format!("{}%", svg::num(100.0 * v))
+            } else {
+                format!("{:.1}%", 100.0 * v)
+            }
+        })
     });
     env.add_filter("whole", |v: Option<f64>| {
         v.map_or("n/a".to_string(), |v| svg::num(v.round()))

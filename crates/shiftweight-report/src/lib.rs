@@ -247,6 +247,8 @@ impl ShiftPart {
 pub struct CandidateRow {
     /// Candidate name (an estimator's, or its hyperparameters for a grid search).
     pub name: String,
+    /// What the candidate is, in plain words, when the name is an estimator's identifier.
+    pub words: Option<String>,
     /// Selection score (lower is better; infinite when it failed).
     pub score: f64,
     /// Standard error of the score, when recorded.
@@ -435,8 +437,10 @@ impl EstimatorPart {
                 } else {
                     None
                 };
+                let words = Some(candidate_words(&name)).filter(|w| *w != name);
                 CandidateRow {
                     name,
+                    words,
                     score: r.score,
                     std_error: p("std_error"),
                     effective_sample_size: p("ess"),
@@ -509,7 +513,8 @@ pub struct ClipRow {
     pub share_capped: f64,
     /// Effective sample size after capping.
     pub effective_sample_size: f64,
-    /// Change of the weighted mean of the weights' own values after capping and renormalising.
+    /// Share of the total weight removed by the cap: 1 minus the mean of the capped weights when
+    /// the uncapped ones have mean 1 (0 without capping); a proxy for the bias capping adds.
     pub shift_of_mean: Option<f64>,
 }
 
@@ -829,11 +834,17 @@ fn feature_row(r: &shiftweight::detect::FeatureShiftRow) -> FeatureRow {
         ),
         FeatureKind::Categorical => match &r.top_level {
             Some(level) => format!(
-                "level shares differ; most changed: {level:?}, {} of the source, {} of the target",
+                "largest change in level {level:?}: {} of the source, {} of the target",
                 pct(r.top_level_source),
                 pct(r.top_level_target)
             ),
-            None => "level shares differ".to_string(),
+            // Numbers used as levels: their mean says which way the levels moved.
+            None => match r.smd {
+                Some(s) if s.abs() < 0.05 => "about the same mean level".to_string(),
+                Some(s) if s > 0.0 => "higher levels in the target".to_string(),
+                Some(_) => "lower levels in the target".to_string(),
+                None => "see the level shares".to_string(),
+            },
         },
         FeatureKind::Continuous => match r.smd {
             Some(s) if s.abs() < 0.05 => "about the same centre".to_string(),
@@ -991,6 +1002,31 @@ impl Default for ShiftOptions {
     }
 }
 
+/// Runs the two-sample test of `opts` on `source` and `target` (the level is checked here).
+fn run_test(
+    source: MatrixView,
+    target: MatrixView,
+    opts: &ShiftOptions,
+    seed: u64,
+) -> shiftweight::Result<ShiftTestResult> {
+    if !(opts.level > 0.0 && opts.level < 1.0) {
+        return Err(shiftweight::Error::param(
+            "level",
+            format!("must be in (0, 1), got {}", opts.level),
+        ));
+    }
+    match opts.test {
+        TestKind::Classifier => ClassifierShiftTest::new()
+            .permutations(opts.permutations)
+            .seed(seed)
+            .run(source, target),
+        TestKind::Mmd => MmdShiftTest::new()
+            .permutations(opts.permutations)
+            .seed(seed)
+            .run(source, target),
+    }
+}
+
 /// Runs the shift test and the per-feature table on `source` and `target` and returns their
 /// sections (a failed feature table becomes a missing section; a failed test is an error).
 pub fn shift_sections(
@@ -1000,22 +1036,7 @@ pub fn shift_sections(
     opts: &ShiftOptions,
     seed: u64,
 ) -> shiftweight::Result<(ShiftPart, Part<FeaturesPart>)> {
-    if !(opts.level > 0.0 && opts.level < 1.0) {
-        return Err(shiftweight::Error::param(
-            "level",
-            format!("must be in (0, 1), got {}", opts.level),
-        ));
-    }
-    let result = match opts.test {
-        TestKind::Classifier => ClassifierShiftTest::new()
-            .permutations(opts.permutations)
-            .seed(seed)
-            .run(source, target)?,
-        TestKind::Mmd => MmdShiftTest::new()
-            .permutations(opts.permutations)
-            .seed(seed)
-            .run(source, target)?,
-    };
+    let result = run_test(source, target, opts, seed)?;
     let features = match FeatureShift::new()
         .seed(seed)
         .run(source, target, Some(names))
@@ -1078,14 +1099,19 @@ pub fn full_report(
         (Some(m), _) => m.ratio(source)?,
         (None, _) => unreachable!("a model exists unless weights were given"),
     };
+    weights_into(&mut report, model, &w);
+    Ok(report)
+}
+
+/// Fills the estimator, weights and clipping sections from the model (if any) and the weights.
+fn weights_into(report: &mut Report, model: Option<&FittedRatio>, w: &[f64]) {
     report.estimator = match model {
         Some(m) => Part::Available(EstimatorPart::from_model(m)),
         None => Part::missing("the weights were given, not estimated here"),
     };
-    let (wp, clip) = weight_sections(&w, &w, "none (as estimated or given)");
+    let (wp, clip) = weight_sections(w, w, "none (as estimated or given)");
     report.weights = Part::Available(wp);
     report.clipping = clip;
-    Ok(report)
 }
 
 impl Report {
@@ -1129,7 +1155,7 @@ impl Report {
                 };
                 out.push(if s.significant {
                     format!(
-                        "Shift found: source and target inputs differ ({stat}, {}, below the level {}).",
+                        "Shift found: source and target inputs differ ({stat}, {}, at or below the level {}).",
                         s.p_text(),
                         num(s.level)
                     )
@@ -1144,15 +1170,19 @@ impl Report {
             None => out.push("The shift test was not run.".into()),
         }
         if let Some(f) = self.features.get() {
+            let level = self.shift.get().map_or(0.05, |s| s.level);
             let moved: Vec<&str> = f
                 .rows
                 .iter()
-                .filter(|r| r.p_adjusted < 0.05)
+                .filter(|r| r.p_adjusted <= level)
                 .take(3)
                 .map(|r| r.feature.as_str())
                 .collect();
             if !moved.is_empty() {
-                out.push(format!("Features that moved most: {}.", moved.join(", ")));
+                out.push(format!(
+                    "Features that moved most (adjusted p at or below the level): {}.",
+                    moved.join(", ")
+                ));
             }
         }
         if let Some(e) = self.estimator.get() {
@@ -1200,6 +1230,8 @@ impl Report {
 }
 
 mod html;
+mod tables;
+pub use tables::full_report_table;
 
 #[cfg(test)]
 mod tests;
