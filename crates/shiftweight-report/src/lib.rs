@@ -380,6 +380,11 @@ impl EstimatorPart {
             (other, _) => (other.name().into(), other.name().into()),
         };
         let description = match &sel.candidate {
+            // The base already says what was chosen: do not repeat it in brackets.
+            Some(name) if base.starts_with(&candidate_words(name)) => format!(
+                "{base}; chosen among {} candidates by the held-out least-squares score",
+                sel.labels.len()
+            ),
             Some(name) => format!(
                 "{base}; chosen among {} candidates ({}) by the held-out least-squares score",
                 sel.labels.len(),
@@ -497,6 +502,9 @@ pub struct WeightsPart {
     pub diagnostics: Vec<DiagnosticRow>,
     /// Warnings of the diagnosis, most important first.
     pub warnings: Vec<String>,
+    /// Values of the target the source never has, in short words (`column = "level": k of n
+    /// target rows`); no weighting of source rows covers those rows. Empty for plain matrices.
+    pub uncovered: Vec<String>,
     /// Stabilisation applied, in plain words (`none` when raw).
     pub stabilisation: String,
     /// The weights themselves (for the histogram; not written to JSON).
@@ -548,6 +556,7 @@ pub fn describe_weights(w: &[f64], stabilisation: &str) -> WeightsPart {
         pareto_k: None,
         diagnostics: Vec::new(),
         warnings: Vec::new(),
+        uncovered: Vec::new(),
         stabilisation: stabilisation.to_string(),
         values: w.to_vec(),
     }
@@ -1203,6 +1212,13 @@ impl Report {
                 w.n,
                 num((100.0 * fraction).round())
             ));
+            if !w.uncovered.is_empty() {
+                out.push(format!(
+                    "Some target rows have values the source never has ({}); no weighting of \
+                     the source rows covers them.",
+                    w.uncovered.join("; ")
+                ));
+            }
             if fraction < LOW_ESS_FRACTION && ess > 0.0 {
                 out.push(format!(
                     "That is low: a weighted estimate rests on about {} rows, and its variance is \

@@ -157,6 +157,19 @@ pub fn full_report_table(
         let n_target = target.rows();
         wp.warnings
             .splice(0..0, gaps.iter().map(|g| g.describe(n_target)));
+        wp.uncovered = gaps
+            .iter()
+            .map(|g| {
+                let what = match &g.level {
+                    Some(l) => format!("{l:?}"),
+                    None => "missing".to_string(),
+                };
+                format!(
+                    "{} = {what}: {} of {n_target} target rows",
+                    g.column, g.target_rows
+                )
+            })
+            .collect();
     }
     Ok(report)
 }

@@ -338,6 +338,13 @@ fn a_typed_table_report_shows_columns_as_they_are() {
         "{:?}",
         w.warnings
     );
+    // ... and the summary says so: 40 of 200 target rows (every 5th) are "district".
+    assert!(
+        r.summary()
+            .contains("heating = \"district\": 40 of 200 target rows"),
+        "{}",
+        r.summary()
+    );
     let html = r.to_html();
     parse(&html);
     assert!(html.contains("heating: source and target"));
