@@ -43,6 +43,7 @@ RULES = {
     "capped J": dict(score="capped_least_squares", prefer_stable=False, tail_k=1.0),
     "capped J + k<0.7": dict(score="capped_least_squares", prefer_stable=False, tail_k=0.7),
     "capped J + k<0.7 + 1SE-ESS": dict(score="capped_least_squares", prefer_stable=True, tail_k=0.7),
+    "capped J + k<1 + 1SE-ESS": dict(score="capped_least_squares", prefer_stable=True, tail_k=1.0),
     "relative PE + k<0.7 + 1SE-ESS": dict(score="relative_pearson", prefer_stable=True, tail_k=0.7),
 }
 
@@ -97,6 +98,7 @@ def main():
     ap.add_argument("--seeds", type=int, default=6)
     ap.add_argument("--cases", default="demo,gauss1d,cancer,sinc,diabetes,cancer_clf")
     ap.add_argument("--no-singles", action="store_true")
+    ap.add_argument("--rules", default="", help="comma-separated rule labels (default: all)")
     args = ap.parse_args()
     names = args.cases.split(",")
     for case in names:
@@ -113,7 +115,8 @@ def main():
                         continue  # transductive: no weights at the fresh evaluation rows
                     est = make().fit(s, t)
                     risks.setdefault(label, []).append(judge(est, est.source_weights_))
-            for label, rule in RULES.items():
+            chosen_rules = [r for r in args.rules.split(",") if r] or list(RULES)
+            for label, rule in ((k, RULES[k]) for k in chosen_rules):
                 auto = sw.AutoRatio(seed=seed, **rule).fit(s, t)
                 risks.setdefault(label, []).append(judge(auto, auto.source_weights_))
                 cap = "" if auto.cap_ is None else f"@{auto.cap_:.3g}"

@@ -620,8 +620,8 @@ class AutoRatio(RatioEstimatorBase):
 
     Uniform weights (w = 1, score -0.5) are always a candidate. A candidate is eligible if its
     mean score beats uniform's by more than ``se_margin`` of its standard errors and the Pareto
-    tail shape k of its held-out raw source weights is below ``tail_k`` (0.7: above it weighted
-    estimates are unreliable, Vehtari et al. 2024). Among eligible candidates within one standard
+    tail shape k of its held-out raw source weights is below ``tail_k`` (1: at k >= 1 the fitted
+    tail has no finite mean, so the estimate is not a credible ratio; Vehtari et al. 2024). Among eligible candidates within one standard
     error of the best, the one with the largest effective sample size wins (``prefer_stable``).
     With none eligible, uniform weights are kept and ``warnings_`` says that no correction was
     found to help. The winner is refitted on all rows and its cap applied: ``ratio`` and
@@ -695,7 +695,7 @@ class AutoRatio(RatioEstimatorBase):
         se_margin: float = 1.0,
         score: str = "capped_least_squares",
         prefer_stable: bool = True,
-        tail_k: float = 0.7,
+        tail_k: float = 1.0,
         max_rows: int = 20000,
     ):
         self.candidates = candidates
