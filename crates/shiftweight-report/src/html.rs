@@ -162,6 +162,8 @@ fn env() -> Environment<'static> {
     // The template is part of the crate and checked by its tests; a failure here is a bug.
     env.add_template("report.html", crate::TEMPLATE)
         .expect("the report template parses");
+    env.add_template("label_shift.html", crate::label::TEMPLATE)
+        .expect("the label-shift template parses");
     env
 }
 
@@ -178,6 +180,7 @@ pub(crate) fn render(r: &Report) -> String {
         clipping_figure => none_or(&r.clipping, |c| clipping_figure(c)),
         feature_figures => none_or(&r.features, feature_figures).unwrap_or_default(),
         feature_figures_max => crate::FEATURE_FIGURES,
+        label_shift_section => context!{ id => crate::label::LABEL_SHIFT_SECTION.0, title => crate::label::LABEL_SHIFT_SECTION.1 },
     };
     let env = env();
     match env.get_template("report.html").and_then(|t| t.render(ctx)) {

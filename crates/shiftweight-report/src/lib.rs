@@ -33,6 +33,7 @@
 //! (see `shiftweight::detect`); the report itself is linear in rows (binning) and candidates.
 #![warn(missing_docs)]
 
+pub mod label;
 pub mod svg;
 
 use serde::Serialize;
@@ -977,6 +978,10 @@ pub struct Report {
     pub clipping: Part<Vec<ClipRow>>,
     /// Optional sections (e.g. label shift), shown before the cautions.
     pub extra_sections: Vec<ExtraSection>,
+    /// The label-shift section ([`label`]), when a class mix was estimated; shown before the
+    /// other optional sections.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub label_shift: Option<label::LabelShiftPart>,
     /// Cautions.
     pub cautions: Vec<String>,
 }
@@ -1143,6 +1148,7 @@ impl Report {
             weights: Part::missing(none()),
             clipping: Part::missing(none()),
             extra_sections: Vec::new(),
+            label_shift: None,
             cautions: CAUTIONS.iter().map(|s| s.to_string()).collect(),
         }
     }
@@ -1227,6 +1233,9 @@ impl Report {
                     num((1.0 / fraction * 10.0).round() / 10.0)
                 ));
             }
+        }
+        if let Some(l) = &self.label_shift {
+            out.push(l.summary());
         }
         out.join(" ")
     }
