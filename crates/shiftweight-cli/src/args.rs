@@ -35,7 +35,7 @@ pub struct InputArgs {
     pub drop_missing: bool,
 }
 
-fn parse_delimiter(s: &str) -> Result<u8, String> {
+pub(crate) fn parse_delimiter(s: &str) -> Result<u8, String> {
     match s {
         "tab" | "\\t" | "\t" => Ok(b'\t'),
         _ if s.len() == 1 && s.is_ascii() => Ok(s.as_bytes()[0]),

@@ -2,13 +2,15 @@
 //!
 //! `demo` runs the whole job on the invented scenario; `detect` tests for a shift; `weigh` fits
 //! importance weights for the source rows; `apply` scores new rows with a saved model, streaming;
-//! `columns` shows how a table is read (column types, gaps, levels).
+//! `columns` shows how a table is read (column types, gaps, levels); `class-mix` estimates a new
+//! class mix (label shift) from a classifier's probabilities.
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
 mod apply;
 mod args;
+mod class_mix;
 mod columns;
 mod demo;
 mod detect;
@@ -44,6 +46,8 @@ const AFTER_HELP: &str = "Examples:
       --out weights.csv --model ratio.json --report report.html
   shiftweight apply --model ratio.json --input more_rows.csv --out more_weights.csv
   shiftweight report --source train.csv --target recent.csv --exclude label --out report.html
+  shiftweight class-mix --source oof_proba.csv --label y --target target_proba.csv --columns p_no,p_yes \
+      --out class_mix.csv
 
 Exit status: 0 success, 2 bad input or usage, 3 file I/O failure, 4 internal error,
 10 shift detected (detect --fail-on-shift).
@@ -87,6 +91,10 @@ enum Command {
     /// Writes the full HTML report of a source/target pair (shift test, features, weights and
     /// their health), the same report as the Python package's `write_report`.
     Report(report_cmd::ReportArgs),
+    /// Label shift: estimates the target's class mix from a classifier's probabilities (with
+    /// intervals), tests the predicted-class mix, and writes class weights and adjusted
+    /// probabilities.
+    ClassMix(class_mix::ClassMixArgs),
 }
 
 /// Settings shared by every command.
@@ -148,6 +156,7 @@ fn main() -> ExitCode {
         Command::Apply(a) => apply::run(a, &g),
         Command::Columns(a) => columns::run(a, &g),
         Command::Report(a) => report_cmd::run(a, &g),
+        Command::ClassMix(a) => class_mix::run(a, &g),
     }));
     match result {
         Ok(Ok(code)) => ExitCode::from(code),
