@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import html
 import json
+import os
 from typing import Any, Dict, List, Optional, Sequence, Tuple
 
 import numpy as np
@@ -210,6 +211,31 @@ class LabelShiftResult:
 
     def _repr_html_(self) -> str:
         return self.to_html()
+
+    def write_report(
+        self,
+        path: str | os.PathLike[str],
+        mix_test: Optional[ClassMixTestResult] = None,
+        json_path: Optional[str | os.PathLike[str]] = None,
+    ) -> str:
+        """Writes the HTML report page of this estimate (the same page as the command line's
+        ``class-mix --report``): shares with their intervals, method, class weights, the
+        predicted-class mix test when ``mix_test`` is given (:func:`class_mix_test` on the same
+        probabilities), warnings and cautions. The file is replaced atomically. ``json_path``:
+        also write the JSON report. Returns the report's summary paragraph. To add this section
+        to the covariate-shift report, pass ``label_shift=`` to :func:`write_report`."""
+        if mix_test is not None and not isinstance(mix_test, ClassMixTestResult):
+            raise ShiftweightError(
+                f"`mix_test` must be a ClassMixTestResult (from sw.class_mix_test), got {type(mix_test).__name__}"
+            )
+        return str(
+            _native.write_label_shift_report(
+                self.to_json(),
+                None if mix_test is None else mix_test.to_json(),
+                os.fspath(path),
+                None if json_path is None else os.fspath(json_path),
+            )
+        )
 
 
 class LabelShift(ParamsMixin):

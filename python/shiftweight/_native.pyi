@@ -318,6 +318,11 @@ def write_report(
     permutations: int,
     level: float,
     json_path: Optional[str],
+    label_shift_json: Optional[str] = None,
+    mix_test_json: Optional[str] = None,
+) -> str: ...
+def write_label_shift_report(
+    label_shift_json: str, mix_test_json: Optional[str], path: str, json_path: Optional[str]
 ) -> str: ...
 def write_report_table(
     source: Table,
@@ -330,4 +335,6 @@ def write_report_table(
     permutations: int,
     level: float,
     json_path: Optional[str],
+    label_shift_json: Optional[str] = None,
+    mix_test_json: Optional[str] = None,
 ) -> str: ...

@@ -33,6 +33,8 @@ def write_report(
     permutations: int = 200,
     level: float = 0.05,
     json_path: Optional[str | os.PathLike[str]] = None,
+    label_shift: Any = None,
+    mix_test: Any = None,
 ) -> str:
     """Writes the full HTML report of ``source`` and ``target`` to ``path``; returns its summary.
 
@@ -52,6 +54,10 @@ def write_report(
     permutations : permutations of the p-value; its resolution is 1 / (permutations + 1).
     level : significance level of the verdict, in (0, 1).
     json_path : also write the JSON report there.
+    label_shift : a label-shift estimate (``sw.LabelShift().fit(...)`` or its ``result_``) to add
+        as a section: estimated class shares with intervals, method, class weights, cautions.
+    mix_test : with ``label_shift``, the predicted-class mix test (``sw.class_mix_test``) shown in
+        that section.
 
     Returns
     -------
@@ -89,6 +95,7 @@ def write_report(
     if not 0.0 < lvl < 1.0:
         raise _native.ShiftweightError(f"`level` must be in (0, 1), got {level!r}")
     json_out = None if json_path is None else os.fspath(json_path)
+    label_json, mix_json = _label_documents(label_shift, mix_test)
     if tables is not None:
         # Typed columns (text levels, gaps): the same call as the command line's `report`.
         return str(
@@ -103,6 +110,8 @@ def write_report(
                 as_count(permutations, "permutations"),
                 lvl,
                 json_out,
+                label_json,
+                mix_json,
             )
         )
     assert s is not None and t is not None
@@ -120,5 +129,29 @@ def write_report(
             as_count(permutations, "permutations"),
             lvl,
             json_out,
+            label_json,
+            mix_json,
         )
     )
+
+
+def _label_documents(label_shift: Any, mix_test: Any) -> tuple[Optional[str], Optional[str]]:
+    """The JSON documents of the optional label-shift section (checked by type)."""
+    from ._label import ClassMixTestResult, LabelShift, LabelShiftResult
+
+    if label_shift is None:
+        if mix_test is not None:
+            raise _native.ShiftweightError("`mix_test` is shown in the label-shift section: pass `label_shift` too")
+        return None, None
+    result = label_shift
+    if isinstance(label_shift, LabelShift) and hasattr(label_shift, "result_"):
+        result = label_shift.result_
+    if not isinstance(result, LabelShiftResult):
+        raise _native.ShiftweightError(
+            f"`label_shift` must be a fitted sw.LabelShift or a LabelShiftResult, got {type(label_shift).__name__}"
+        )
+    if mix_test is not None and not isinstance(mix_test, ClassMixTestResult):
+        raise _native.ShiftweightError(
+            f"`mix_test` must be a ClassMixTestResult (from sw.class_mix_test), got {type(mix_test).__name__}"
+        )
+    return result.to_json(), None if mix_test is None else mix_test.to_json()

@@ -6,10 +6,12 @@ use crate::table::PyTable;
 use crate::{detached, vector, view};
 use numpy::{PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
+use shiftweight::label::{ClassMixTestResult, LabelShiftEstimate};
 use shiftweight::{Error, FittedRatio};
 use shiftweight_report::{
     full_report, full_report_table, InputFacts, Report, ShiftOptions, TestKind, WeightSource,
 };
+use shiftweight_report::label::LabelShiftPart;
 use std::io::Write as _;
 use std::path::{Path, PathBuf};
 
@@ -89,7 +91,7 @@ fn finish(
 /// Builds the full report of two numeric matrices and writes it (HTML to `path`, JSON to
 /// `json_path` when given); returns the summary paragraph.
 #[pyfunction]
-#[pyo3(signature = (source, target, feature_names, path, model_json, weights, seed, test, permutations, level, json_path))]
+#[pyo3(signature = (source, target, feature_names, path, model_json, weights, seed, test, permutations, level, json_path, label_shift_json=None, mix_test_json=None))]
 #[allow(clippy::too_many_arguments)]
 fn write_report(
     py: Python<'_>,
@@ -104,6 +106,8 @@ fn write_report(
     permutations: usize,
     level: f64,
     json_path: Option<PathBuf>,
+    label_shift_json: Option<String>,
+    mix_test_json: Option<String>,
 ) -> PyResult<String> {
     let (s, t) = (view(&source, "source")?, view(&target, "target")?);
     let w = match &weights {
@@ -120,7 +124,7 @@ fn write_report(
             .as_deref()
             .map(FittedRatio::from_json)
             .transpose()?;
-        let r = full_report(
+        let mut r = full_report(
             "report",
             s,
             t,
@@ -129,6 +133,7 @@ fn write_report(
             &opts,
             seed,
         )?;
+        r.label_shift = label_part(label_shift_json.as_deref(), mix_test_json.as_deref())?;
         finish(r, (s.rows(), t.rows()), &path, json_path.as_deref())
     })
 }
@@ -136,7 +141,7 @@ fn write_report(
 /// As [`write_report`] for two typed tables (numeric and categorical columns, missing values),
 /// through the same call as the command line's `shiftweight report`.
 #[pyfunction]
-#[pyo3(signature = (source, target, path, model_json, weights, seed, test, permutations, level, json_path))]
+#[pyo3(signature = (source, target, path, model_json, weights, seed, test, permutations, level, json_path, label_shift_json=None, mix_test_json=None))]
 #[allow(clippy::too_many_arguments)]
 fn write_report_table(
     py: Python<'_>,
@@ -150,6 +155,8 @@ fn write_report_table(
     permutations: usize,
     level: f64,
     json_path: Option<PathBuf>,
+    label_shift_json: Option<String>,
+    mix_test_json: Option<String>,
 ) -> PyResult<String> {
     let (s, t) = (source.inner.clone(), target.inner.clone());
     let w = match &weights {
@@ -166,13 +173,54 @@ fn write_report_table(
             .as_deref()
             .map(FittedRatio::from_json)
             .transpose()?;
-        let r = full_report_table("report", &s, &t, weight_source(&model, w), &opts, seed)?;
+        let mut r = full_report_table("report", &s, &t, weight_source(&model, w), &opts, seed)?;
+        r.label_shift = label_part(label_shift_json.as_deref(), mix_test_json.as_deref())?;
         finish(r, (s.rows(), t.rows()), &path, json_path.as_deref())
+    })
+}
+
+/// The label-shift section from the estimate's document and, optionally, the mix test's.
+fn label_part(
+    estimate: Option<&str>,
+    mix_test: Option<&str>,
+) -> shiftweight::Result<Option<LabelShiftPart>> {
+    let Some(e) = estimate else {
+        return Ok(None);
+    };
+    let est = LabelShiftEstimate::from_json(e)?;
+    let test = mix_test.map(ClassMixTestResult::from_json).transpose()?;
+    Ok(Some(LabelShiftPart::new(&est, test.as_ref())))
+}
+
+/// Writes the report page of a label-shift estimate alone (its section, no covariate-shift
+/// sections), as the command line's `class-mix --report`; returns the summary paragraph.
+#[pyfunction]
+#[pyo3(signature = (label_shift_json, mix_test_json, path, json_path))]
+fn write_label_shift_report(
+    py: Python<'_>,
+    label_shift_json: String,
+    mix_test_json: Option<String>,
+    path: PathBuf,
+    json_path: Option<PathBuf>,
+) -> PyResult<String> {
+    detached(py, move || {
+        let seed = LabelShiftEstimate::from_json(&label_shift_json)?.seed;
+        let mut r = Report::new("label-shift", seed);
+        r.label_shift = label_part(Some(&label_shift_json), mix_test_json.as_deref())?;
+        if let Some(l) = &r.label_shift {
+            r.features_used = l.rows.iter().map(|row| row.class.clone()).collect();
+        }
+        write_atomic(&path, &r.to_html(), "path")?;
+        if let Some(j) = &json_path {
+            write_atomic(j, &r.to_json(), "json_path")?;
+        }
+        Ok(r.summary())
     })
 }
 
 pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(write_report, m)?)?;
+    m.add_function(wrap_pyfunction!(write_label_shift_report, m)?)?;
     m.add_function(wrap_pyfunction!(write_report_table, m)?)?;
     Ok(())
 }
