@@ -421,7 +421,7 @@ def test_report_section_from_python(tmp_path):
     np.testing.assert_array_equal([r["target_share"] for r in report["label_shift"]["rows"]], est.target_proportions_)
     assert report["label_shift"]["mix_test"]["p_value"] == test.p_value
 
-    x, y = _data("wine")
+    x, _ = _data("wine")
     sw.write_report(x[:80], x[80:], tmp_path / "full.html", permutations=19, label_shift=est, mix_test=test)
     full = (tmp_path / "full.html").read_text()
     assert 'id="label-shift"' in full and 'id="shift"' in full

@@ -57,8 +57,10 @@ def test_class_mix_matches_python_and_writes_files(cli: pathlib.Path, tmp_path: 
     table = _read(tmp_path / "mix.csv")
     assert list(table["class"]) == classes
     np.testing.assert_array_equal(table["target_share"], est.target_proportions_)
-    np.testing.assert_array_equal(table["interval_low"], est.interval_[0])
-    np.testing.assert_array_equal(table["interval_high"], est.interval_[1])
+    assert est.interval_ is not None
+    low, high = est.interval_
+    np.testing.assert_array_equal(table["interval_low"], low)
+    np.testing.assert_array_equal(table["interval_high"], high)
     np.testing.assert_array_equal(table["class_weight"], est.class_weights_)
     w = _read(tmp_path / "w.csv")
     np.testing.assert_array_equal(w["weight"], est.sample_weight(labels))
