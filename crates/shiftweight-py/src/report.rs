@@ -8,10 +8,10 @@ use numpy::{PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::prelude::*;
 use shiftweight::label::{ClassMixTestResult, LabelShiftEstimate};
 use shiftweight::{Error, FittedRatio};
+use shiftweight_report::label::LabelShiftPart;
 use shiftweight_report::{
     full_report, full_report_table, InputFacts, Report, ShiftOptions, TestKind, WeightSource,
 };
-use shiftweight_report::label::LabelShiftPart;
 use std::io::Write as _;
 use std::path::{Path, PathBuf};
 
