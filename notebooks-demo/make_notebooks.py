@@ -48,8 +48,8 @@ import shiftweight as sw
 
 sw.set_threads(2)
 d = sw.demo_data(n_source=800, n_target=400, seed=0, as_frame=True)
-source, target = d["source"], d["target"]  # pandas DataFrames with named columns
-source.describe().round(2)"""
+source, target = d["source"], d["target"]  # DataFrames: `heating` is categorical, some ages missing
+source.describe(include="all").round(2)"""
     ),
     new_markdown_cell(
         """## 1. Is there a shift?
@@ -178,11 +178,12 @@ from sklearn.linear_model import Ridge
 
 sw.set_threads(2)
 d = sw.demo_data(n_source=800, n_target=400, seed=0, as_frame=True)
-source, target = d["source"], d["target"]
+records, records_target = d["source"], d["target"]  # as recorded: `heating` categorical, gaps
+source, target = d["source_numeric"], d["target_numeric"]  # the same rows as numbers, for Ridge
 y_source = d["y_source"]  # daily kWh of the coastal households
 y_target = d["y_target"]  # known only because this is a demo; unknown in practice
 
-est = sw.AutoRatio(seed=0).fit(source, target)  # the automatic choice of the first notebook
+est = sw.AutoRatio(seed=0).fit(records, records_target)  # the automatic choice of the first notebook
 w = sw.stabilize(est.source_weights_, upper_quantile=0.99)
 sw.diagnose(w)"""
     ),
@@ -241,7 +242,8 @@ about missing overlap."""
 fit_rows, cal_rows = np.arange(n) < n // 2, np.arange(n) >= n // 2
 m = Ridge(alpha=1.0).fit(source[fit_rows], y_source[fit_rows], sample_weight=w[fit_rows])
 intervals = sw.conformal_intervals(
-    m, source[cal_rows], y_source[cal_rows], est.ratio(source[cal_rows]), target, est.ratio(target), alpha=0.1
+    m, source[cal_rows], y_source[cal_rows], est.ratio(records[cal_rows]), target, est.ratio(records_target),
+    alpha=0.1,
 )
 print(intervals)
 print("share of target outcomes covered (demo labels):", round(float(intervals.covers(y_target).mean()), 3))"""

@@ -89,3 +89,61 @@ def test_types_can_be_given_on_the_command_line(cli: pathlib.Path, tmp_path: pat
     r = run("--numeric", "size")
     assert r.returncode == 2
     assert "data row 2" in r.stderr and "`size`" in r.stderr and "--categorical size" in r.stderr
+
+
+def test_weights_as_parquet_equal_the_csv_weights(cli: pathlib.Path, tmp_path: pathlib.Path) -> None:
+    # `weigh` and `apply` write Parquet for a .parquet name; pyarrow.parquet.read_table reads it
+    # back, and the values are bitwise the CSV output's (CSV text of a float64 reads back exactly).
+    src, tgt = _rows(240, 0.0, seed=3), _rows(200, 0.6, seed=4)
+    src["id"] = [f"h{i:04d}" for i in range(240)]
+    pacsv.write_csv(pa.table(src), tmp_path / "s.csv")
+    pacsv.write_csv(pa.table(tgt), tmp_path / "t.csv")
+
+    def run(*a: str) -> None:
+        r = subprocess.run([str(cli), "--quiet", *a], cwd=tmp_path, capture_output=True, text=True)
+        assert r.returncode == 0, r.stderr
+
+    for out in ["w.csv", "w.parquet"]:
+        run("weigh", "--source", "s.csv", "--target", "t.csv", "--key", "id", "--estimator", "lsif",
+            "--out", out, "--model", "m.json")
+    want = pacsv.read_csv(tmp_path / "w.csv")
+    got = pq.read_table(tmp_path / "w.parquet")
+    assert got.column_names == ["id", "weight"]
+    assert got.schema.field("weight").type == pa.float64()
+    assert got.column("id").to_pylist() == src["id"]
+    np.testing.assert_array_equal(got.column("weight").to_numpy(), want.column("weight").to_numpy())
+
+    # apply: 5,000 rows in chunks of 2,048, so the Parquet file holds several record batches.
+    new = _rows(5000, 0.3, seed=5)
+    pacsv.write_csv(pa.table(new), tmp_path / "new.csv")
+    for out in ["a.csv", "a.pq"]:
+        run("apply", "--model", "m.json", "--input", "new.csv", "--out", out, "--chunk-rows", "2048")
+    want = pacsv.read_csv(tmp_path / "a.csv").column("weight").to_numpy()
+    got = pq.read_table(tmp_path / "a.pq")
+    assert got.column_names == ["weight"] and got.num_rows == 5000
+    np.testing.assert_array_equal(got.column("weight").to_numpy(), want)
+    assert not list(tmp_path.glob(".*.partial")), "no temporary file is left behind"
+
+
+def test_cli_weights_on_text_and_gaps_equal_the_library(cli: pathlib.Path, tmp_path: pathlib.Path) -> None:
+    # The same CSV files (text column, empty cells) through `shiftweight weigh` and through
+    # sw.LeastSquaresRatio().fit on pandas.read_csv frames, same seed and options: the same
+    # typed rows, the same encoding, bitwise the same weights.
+    pd = pytest.importorskip("pandas")
+    import shiftweight as sw
+
+    src, tgt = _rows(240, 0.0, seed=6), _rows(200, 0.6, seed=7)
+    pacsv.write_csv(pa.table(src), tmp_path / "s.csv")
+    pacsv.write_csv(pa.table(tgt), tmp_path / "t.csv")
+    assert ",," in (tmp_path / "s.csv").read_text() or '""' in (tmp_path / "s.csv").read_text()
+    r = subprocess.run(
+        [str(cli), "--quiet", "--seed", "4", "weigh", "--source", "s.csv", "--target", "t.csv",
+         "--estimator", "lsif", "--n-basis", "60", "--out", "w.csv"],
+        cwd=tmp_path, capture_output=True, text=True,
+    )
+    assert r.returncode == 0, r.stderr
+    cli_w = np.loadtxt(tmp_path / "w.csv", delimiter=",", skiprows=1)
+    s, t = pd.read_csv(tmp_path / "s.csv"), pd.read_csv(tmp_path / "t.csv")
+    assert s["heating"].isna().any() and s["x2"].isna().any()
+    est = sw.LeastSquaresRatio(n_basis=60, seed=4).fit(s, t)
+    np.testing.assert_array_equal(cli_w, est.source_weights_)

@@ -113,7 +113,10 @@ def test_bad_inputs_get_specific_errors(fitted):
 
 def test_dataframes_keep_names_and_match_numpy():
     pytest.importorskip("pandas")
-    d = sw.demo_data(300, 200, seed=2, as_frame=True)
+    f = sw.demo_data(300, 200, seed=2, as_frame=True)
+    # The complete numeric view of the demo rows, as DataFrames.
+    d = {"source": f["source_numeric"], "target": f["target_numeric"],
+         "feature_names": list(f["source_numeric"].columns)}
     a = sw.LeastSquaresRatio(n_basis=30).fit(d["source"], d["target"])
     b = sw.LeastSquaresRatio(n_basis=30).fit(d["source"].to_numpy(), d["target"].to_numpy())
     np.testing.assert_array_equal(a.source_weights_, b.source_weights_)

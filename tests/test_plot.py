@@ -120,10 +120,31 @@ def test_ratio_along_follows_the_estimator_with_others_at_median():
 
 def test_ratio_along_uses_column_names_of_frames():
     pd = pytest.importorskip("pandas")
-    d = sw.demo_data(300, 200, seed=2, as_frame=True)
+    f = sw.demo_data(300, 200, seed=2, as_frame=True)
+    d = {"source": f["source_numeric"], "target": f["target_numeric"]}  # complete numeric view
     est = sw.LeastSquaresRatio(n_basis=30).fit(d["source"], d["target"])
     ax = sw.plot.ratio_along(est, d["source"], "outdoor_temp_c", points=10)
     assert ax.get_xlabel() == "outdoor_temp_c"
     assert isinstance(d["source"], pd.DataFrame)
     with pytest.raises(ValueError, match="not a column"):
         sw.plot.ratio_along(est, d["source"], "no_such_column")
+
+
+def test_ratio_along_takes_typed_tables():
+    # The demo's recorded tables: `heating` categorical, gaps in `home_age_years`. The curve is the
+    # estimator's own ratio at rows built from typical values, so it must equal est.ratio on a
+    # frame made by hand (pandas median of present values, most frequent level).
+    pd = pytest.importorskip("pandas")
+    d = sw.demo_data(300, 200, seed=2, as_frame=True)
+    src = d["source"]
+    est = sw.LeastSquaresRatio(n_basis=30).fit(src, d["target"])
+    ax = sw.plot.ratio_along(est, src, "home_age_years", points=7)
+    y = ax.lines[0].get_ydata()
+    present = src["home_age_years"].dropna().to_numpy()
+    grid = np.linspace(*np.percentile(present, [1.0, 99.0]), 7)
+    rows = pd.DataFrame({c: [src[c].median()] * 7 for c in src.columns if c != "heating"})
+    rows["heating"] = pd.Categorical([src["heating"].mode()[0]] * 7, categories=src["heating"].cat.categories)
+    rows["home_age_years"] = grid
+    np.testing.assert_array_equal(y, est.ratio(rows))
+    with pytest.raises(ValueError, match="'heating' is not numeric"):
+        sw.plot.ratio_along(est, src, "heating")

@@ -127,6 +127,9 @@ class _DemoData(TypedDict):
     y_source: _F64
     target: _F64  # n_target x 6
     y_target: _F64
+    # typed tables: (name, float64 values with NaN) or (name, (levels, int64 codes, -1 = missing))
+    source_columns: List[Tuple[str, Any]]
+    target_columns: List[Tuple[str, Any]]
 
 def demo_electricity(n_source: int = 2000, n_target: int = 1000, seed: int = 0) -> _DemoData: ...
 

@@ -35,6 +35,13 @@ def plain(x: Any) -> Any:
     return x
 
 
+def _vector(values: Any, dtype: Any) -> np.ndarray:
+    """A C-contiguous, aligned vector of ``dtype``: the array itself when it already is one (no
+    copy), else a copy. Arrays rebuilt from a byte buffer (a Dask worker's unpickled partition)
+    can be unaligned, and the native side reads only aligned memory."""
+    return np.require(values, dtype=dtype, requirements=["C", "A"])
+
+
 def _module(x: Any) -> str:
     return type(x).__module__.split(".")[0]
 
@@ -122,12 +129,12 @@ def _pandas_columns(x: Any) -> List[Tuple[str, str, Any]]:
         key = str(name)
         if isinstance(dt, pd.CategoricalDtype):
             levels = [str(c) for c in dt.categories]
-            codes = np.ascontiguousarray(s.cat.codes.to_numpy(), dtype=np.int64)
+            codes = _vector(s.cat.codes.to_numpy(), np.int64)
             cols.append((key, "categorical", (levels, codes)))
         elif pd.api.types.is_bool_dtype(dt):
             cols.append((key, "bool", [None if v is pd.NA else bool(v) for v in s.tolist()]))
         elif pd.api.types.is_numeric_dtype(dt):
-            cols.append((key, "numeric", np.ascontiguousarray(s.to_numpy(dtype=np.float64, na_value=np.nan))))
+            cols.append((key, "numeric", _vector(s.to_numpy(dtype=np.float64, na_value=np.nan), np.float64)))
         else:
             cols.append((key, "text", _text(s.tolist())))
     return cols
@@ -144,7 +151,7 @@ def _polars_columns(x: Any) -> List[Tuple[str, str, Any]]:
             cols.append((key, "bool", s.to_list()))
         elif dt.is_numeric():
             arr = s.cast(pl.Float64).fill_null(float("nan")).to_numpy()
-            cols.append((key, "numeric", np.ascontiguousarray(arr, dtype=np.float64)))
+            cols.append((key, "numeric", _vector(arr, np.float64)))
         elif isinstance(dt, (pl.Categorical, pl.Enum)):
             cols.append((key, "text_categorical", s.cast(pl.String).to_list()))
         else:
@@ -165,7 +172,7 @@ def _arrow_columns(x: Any) -> List[Tuple[str, str, Any]]:
             cols.append((key, "bool", c.to_pylist()))
         elif pa.types.is_integer(t) or pa.types.is_floating(t):
             arr = pc.fill_null(pc.cast(c, pa.float64()), float("nan")).to_numpy()
-            cols.append((key, "numeric", np.ascontiguousarray(arr, dtype=np.float64)))
+            cols.append((key, "numeric", _vector(arr, np.float64)))
         elif pa.types.is_dictionary(t):
             cols.append((key, "text_categorical", _text(c.to_pylist())))
         else:

@@ -22,6 +22,7 @@ from typing import Any, Optional, Union
 
 import numpy as np
 
+from ._tables import is_table_input
 from ._validation import as_matrix, as_vector
 from ._weights import ClipTradeoff
 from ._weights import clip_tradeoff as _clip_tradeoff
@@ -157,7 +158,14 @@ def ratio_along(estimator: Any, X: Any, feature: Union[int, str], ax: Any = None
     ``feature`` is a column position or, for named columns, a name. The grid spans the 1st to the
     99th percentile of that feature in ``X``; a rug marks the observed values. A slice through
     one feature hides interactions; read it as a sketch, not the whole ratio. Returns the Axes.
+
+    ``X`` may be a table with categorical columns or missing values (a pandas or polars DataFrame,
+    a pyarrow Table) when the estimator was fitted on tables: the other columns are then held at
+    the median of their present values (numeric) or their most frequent level (categorical), and
+    ``feature`` must be a numeric column.
     """
+    if is_table_input(X):
+        return _ratio_along_table(estimator, X, feature, ax, points)
     mat, names = as_matrix(X, "X")
     if isinstance(feature, str):
         if names is None or feature not in names:
@@ -189,4 +197,51 @@ def ratio_along(estimator: Any, X: Any, feature: Union[int, str], ax: Any = None
     ax.set_xlabel(str(label))
     ax.set_ylabel("w(x) = p_target / p_source")
     ax.set_title(f"Ratio along {label} (others at their median)")
+    return ax
+
+
+def _ratio_along_table(estimator: Any, X: Any, feature: Union[int, str], ax: Any, points: int) -> Any:
+    import pandas as pd
+
+    frame = X if isinstance(X, pd.DataFrame) else X.to_pandas()
+    names = [str(c) for c in frame.columns]
+    if isinstance(feature, str):
+        if feature not in names:
+            raise ValueError(f"feature {feature!r} is not a column of `X` (columns: {names})")
+        j = names.index(feature)
+    else:
+        j = int(feature)
+        if not 0 <= j < len(names):
+            raise ValueError(f"feature index {j} is out of range for {len(names)} column(s)")
+    label = names[j]
+    col = frame.iloc[:, j]
+    if not (pd.api.types.is_numeric_dtype(col.dtype) and not pd.api.types.is_bool_dtype(col.dtype)):
+        raise ValueError(f"feature {label!r} is not numeric (dtype {col.dtype}); pick a numeric column")
+    values = col.to_numpy(dtype=np.float64, na_value=np.nan)
+    values = values[~np.isnan(values)]
+    if values.size == 0:
+        raise ValueError(f"feature {label!r} has no present values")
+    lo, hi = np.percentile(values, [1.0, 99.0])
+    if hi <= lo:
+        lo, hi = lo - 0.5, hi + 0.5
+    grid = np.linspace(lo, hi, int(points))
+    # One row of typical values, repeated: medians of numbers, most frequent levels otherwise.
+    typical = {}
+    for name in frame.columns:
+        c = frame[name]
+        if pd.api.types.is_numeric_dtype(c.dtype) and not pd.api.types.is_bool_dtype(c.dtype):
+            typical[name] = pd.Series(np.full(grid.size, float(c.median())), dtype=c.dtype)
+        else:
+            top = c.mode(dropna=True)
+            typical[name] = pd.Series([top.iloc[0] if len(top) else None] * grid.size, dtype=c.dtype)
+    query = pd.DataFrame(typical)
+    query[frame.columns[j]] = pd.Series(grid, dtype=np.float64)
+    w = estimator.ratio(query)
+    ax = _axes(ax)
+    ax.plot(grid, w, color="tab:blue")
+    ax.axhline(1.0, color="grey", linestyle="--", linewidth=1)
+    ax.plot(values, np.zeros_like(values), "|", color="black", alpha=0.2, markersize=8)
+    ax.set_xlabel(label)
+    ax.set_ylabel("w(x) = p_target / p_source")
+    ax.set_title(f"Ratio along {label} (others at their median or most frequent level)")
     return ax

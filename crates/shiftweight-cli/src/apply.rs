@@ -29,7 +29,8 @@ pub struct ApplyArgs {
     pub input: PathBuf,
     #[command(flatten)]
     pub columns: InputArgs,
-    /// Where to write the weights (CSV), replaced atomically when every row is scored.
+    /// Where to write the weights, replaced atomically when every row is scored: Parquet for a
+    /// `.parquet`/`.pq` name, else CSV.
     #[arg(long, value_name = "FILE")]
     pub out: PathBuf,
     /// Rows read, scored and written at a time; rounded up to a multiple of 2048 (the library's

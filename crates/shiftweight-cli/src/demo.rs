@@ -1,14 +1,21 @@
 //! `shiftweight demo`: the whole job on the invented electricity scenario, with the report files.
+//!
+//! It runs on the scenario's typed tables (the categorical column `heating` and gaps in
+//! `home_age_years`), so it takes the same path as `detect` and `weigh` on a file with text
+//! columns and empty cells: one encoding fitted on the pooled rows, the shift test on the encoded
+//! rows, per-column tests by type, and a model file that stores the encoding.
 
 use crate::detect::shift_line;
 use crate::estimators::{build_estimator, EstimatorArgs, EstimatorName};
 use crate::io::{self, Table, WeightsWriter};
 use crate::progress::Progress;
 use crate::report::{EstimatorPart, FactTable, InputFacts, Part, Report};
+use crate::report::{FeatureFigure, FeaturesPart};
 use crate::steps::{finish_weights, run_detection, DetectArgs, StabiliseArgs, TestMethod};
 use crate::{exit, Failure, Globals};
 use clap::Args;
 use shiftweight::learn::WeightedRidge;
+use shiftweight::table::{ColumnData, Table as TypedTable};
 use std::path::PathBuf;
 
 /// The estimator the demo uses.
@@ -46,6 +53,22 @@ fn table(m: &shiftweight::Matrix, names: &[String]) -> Table {
     }
 }
 
+/// The source-vs-target figure of the column `name` of two typed tables.
+fn figure(source: &TypedTable, target: &TypedTable, name: &str) -> Option<FeatureFigure> {
+    let (s, t) = (source.column(name)?, target.column(name)?);
+    match (s.data(), t.data()) {
+        (ColumnData::Numeric(a), ColumnData::Numeric(b)) => {
+            Some(FeatureFigure::from_numbers(name, a, b, false))
+        }
+        (ColumnData::Categorical { .. }, ColumnData::Categorical { .. }) => {
+            let a: Vec<Option<&str>> = (0..s.len()).map(|i| s.level(i)).collect();
+            let b: Vec<Option<&str>> = (0..t.len()).map(|i| t.level(i)).collect();
+            Some(FeatureFigure::from_levels(name, &a, &b))
+        }
+        _ => None,
+    }
+}
+
 pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     std::fs::create_dir_all(&args.out).map_err(|e| Failure {
         code: exit::IO,
@@ -53,7 +76,13 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     })?;
     let progress = Progress::new(g.quiet);
     let data = shiftweight::demo::electricity(args.n_source, args.n_target, g.seed);
-    let (s, t) = (data.source.view(), data.target.view());
+    let (st, tt) = (&data.source_table, &data.target_table);
+    let names: Vec<String> = st.names().iter().map(|n| n.to_string()).collect();
+    // One encoding of the pooled rows: the shift test and the linear models work on it; the
+    // estimator fits the same encoding again and stores it in the model file.
+    let (enc, zs, zt, _) = shiftweight::table::encode_pair(st, tt)?;
+    let encoded_names = enc.feature_names();
+    let (s, t) = (zs.view(), zt.view());
     let mut report = Report::new("demo", g.seed);
     report.inputs = vec![
         InputFacts {
@@ -69,7 +98,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             rows_dropped: 0,
         },
     ];
-    report.features_used = data.feature_names.clone();
+    report.features_used = names.clone();
 
     let detect_opts = DetectArgs {
         method: TestMethod::Classifier,
@@ -83,11 +112,24 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             "testing for a shift (refitting the classifier for 100 permutations)",
         );
         run_detection(
-            &table(&data.source, &data.feature_names),
-            &table(&data.target, &data.feature_names),
+            &table(&zs, &encoded_names),
+            &table(&zt, &encoded_names),
             &detect_opts,
             g.seed,
         )
+        .map(|mut d| {
+            // Per-column tests by type (chi-square for `heating`, missing rates for the gaps).
+            d.features = match shiftweight::FeatureShift::new()
+                .seed(g.seed)
+                .run_table(st, tt)
+            {
+                Ok(table) => Part::Available(FeaturesPart::from_typed_table(&table, |r| {
+                    figure(st, tt, &r.feature)
+                })),
+                Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
+            };
+            d
+        })
     };
     let shift_line = match detection {
         Ok(d) => {
@@ -111,15 +153,15 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         alpha: None,
     };
     let estimator = build_estimator(&est_args, g.seed)?;
-    let mut model = {
+    let model = {
         let _s = progress.stage(
             2,
             3,
             "choosing and fitting the weighting (5 held-out folds per candidate)",
         );
-        estimator.fit(s, t)?
+        estimator.fit_table(st, tt)?
     };
-    model.meta.feature_names = Some(data.feature_names.clone());
+    let gaps = shiftweight::table::support_gaps(st, tt)?;
     // The automatic choice hands over weights with their cap chosen and applied; the demo adds
     // no stabilisation of its own, so it shows what `weigh` and Python give by default.
     let outcome = finish_weights(&model, &StabiliseArgs::default())?;
@@ -150,7 +192,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let (e_plain, e_weighted) = (mse(&plain)?, mse(&weighted)?);
     report.extra.push(FactTable {
-        caption: "Linear model of daily kWh, error on the target town (target labels are known only in this demo)".into(),
+        caption: "Linear model of daily kWh on the encoded columns, error on the target town (target labels are known only in this demo)".into(),
         rows: vec![
             ("unweighted fit: mean squared error".into(), format!("{e_plain:.3}")),
             ("weighted fit: mean squared error".into(), format!("{e_weighted:.3}")),
@@ -181,9 +223,18 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
             "  rows: {} source, {} target, features: {}",
             s.rows(),
             t.rows(),
-            data.feature_names.join(", ")
+            names.join(", ")
+        );
+        println!(
+            "  typed columns: `heating` is categorical ({}); `home_age_years` is missing for {} source and {} target rows",
+            shiftweight::demo::HEATING_LEVELS.join(", "),
+            st.column("home_age_years").map_or(0, |c| c.n_missing()),
+            tt.column("home_age_years").map_or(0, |c| c.n_missing()),
         );
         println!("{shift_line}");
+        for gap in &gaps {
+            println!("  support gap: {}", gap.describe(tt.rows()));
+        }
         println!("  weighting: {described}");
         println!(
             "  source weights: mean {:.3}, max {:.2}, effective sample size {:.0} of {} ({:.0}%)",
@@ -197,7 +248,7 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         if let Some(words) = shiftweight::ratio::decision_summary(&model) {
             println!("  why: {words}");
         }
-        println!("  linear model of daily kWh, error on the target town (labels known only in this demo):");
+        println!("  linear model of daily kWh on the encoded columns, error on the target town (labels known only in this demo):");
         println!("    unweighted fit: mean squared error {e_plain:.2}");
         println!("    weighted fit:   mean squared error {e_weighted:.2}");
         println!("  Caution: weighting corrects covariate shift only; it needs overlap between the towns,");

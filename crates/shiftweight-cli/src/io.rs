@@ -130,6 +130,7 @@ pub struct AtomicFile {
     dest: PathBuf,
     tmp: PathBuf,
     out: Option<BufWriter<File>>,
+    committed: bool,
 }
 
 impl AtomicFile {
@@ -150,6 +151,7 @@ impl AtomicFile {
             dest: dest.to_path_buf(),
             tmp,
             out: Some(BufWriter::new(file)),
+            committed: false,
         })
     }
 
@@ -157,6 +159,18 @@ impl AtomicFile {
     pub fn writer(&mut self) -> &mut BufWriter<File> {
         // `out` is only taken by `commit`, which consumes self.
         self.out.as_mut().expect("writer used after commit")
+    }
+
+    /// Hands the writer to an encoder that owns it (the Parquet writer); give it back with
+    /// [`AtomicFile::put_writer`] before [`AtomicFile::commit`]. Dropped meanwhile, the temporary
+    /// file is still removed.
+    pub fn take_writer(&mut self) -> BufWriter<File> {
+        self.out.take().expect("writer taken once")
+    }
+
+    /// Gives back the writer taken by [`AtomicFile::take_writer`].
+    pub fn put_writer(&mut self, out: BufWriter<File>) {
+        self.out = Some(out);
     }
 
     /// Writes bytes, mapping failures to an I/O failure naming the destination.
@@ -169,7 +183,10 @@ impl AtomicFile {
 
     /// Flushes, fsyncs and renames the temporary file over the destination.
     pub fn commit(mut self) -> Result<(), Failure> {
-        let out = self.out.take().expect("commit called once");
+        let out = self
+            .out
+            .take()
+            .expect("commit called once, with the writer in place");
         let file = out
             .into_inner()
             .map_err(|e| io_fail(&self.dest, "cannot write", e.error()))?;
@@ -177,6 +194,7 @@ impl AtomicFile {
             .map_err(|e| io_fail(&self.dest, "cannot flush", e))?;
         drop(file);
         fs::rename(&self.tmp, &self.dest).map_err(|e| io_fail(&self.dest, "cannot replace", e))?;
+        self.committed = true;
         // Make the rename itself durable where the platform allows opening a directory.
         if let Some(dir) = self.dest.parent().filter(|p| !p.as_os_str().is_empty()) {
             if let Ok(d) = File::open(dir) {
@@ -189,7 +207,7 @@ impl AtomicFile {
 
 impl Drop for AtomicFile {
     fn drop(&mut self) {
-        if self.out.is_some() {
+        if !self.committed {
             self.out = None;
             let _ = fs::remove_file(&self.tmp);
         }
@@ -203,68 +221,150 @@ pub fn write_text(dest: &Path, text: &str) -> Result<(), Failure> {
     f.commit()
 }
 
-/// Streams weights as CSV: a header (`key,weight` or `weight`) then one line per row.
+/// Streams weights as CSV (a header `key,weight` or `weight`, then one line per row) or, for a
+/// `.parquet`/`.pq` name, as Parquet (columns `key` as text, when a key column was named, and
+/// `weight` as float64; snappy pages, row groups of [`PARQUET_ROW_GROUP`] rows, so memory stays
+/// flat in the number of rows). Either way the file is written atomically ([`AtomicFile`]).
 pub struct WeightsWriter {
-    file: AtomicFile,
+    sink: Sink,
     key_name: Option<String>,
-    line: String,
 }
 
-/// Refuses output names this build cannot write.
-pub fn check_weights_path(path: &Path) -> Result<(), Failure> {
-    match path
-        .extension()
-        .and_then(|e| e.to_str())
-        .map(|e| e.to_ascii_lowercase())
-    {
-        Some(e) if e == "parquet" || e == "pq" => Err(bad(format!(
-            "`{}`: weights are written as CSV; choose a .csv name",
-            path.display()
-        ))),
-        _ => Ok(()),
+/// Rows per Parquet row group of a weights file.
+pub const PARQUET_ROW_GROUP: usize = 65_536;
+
+enum Sink {
+    Csv {
+        file: AtomicFile,
+        line: String,
+    },
+    Parquet {
+        file: AtomicFile,
+        writer: Box<parquet::arrow::ArrowWriter<BufWriter<File>>>,
+        schema: std::sync::Arc<arrow_schema::Schema>,
+    },
+}
+
+/// Whether `path` names a Parquet file (by extension, `.parquet` or `.pq`, any letter case).
+pub fn is_parquet_path(path: &Path) -> bool {
+    matches!(
+        path.extension()
+            .and_then(|e| e.to_str())
+            .map(|e| e.to_ascii_lowercase())
+            .as_deref(),
+        Some("parquet" | "pq")
+    )
+}
+
+fn parquet_fail(dest: &Path, e: impl std::fmt::Display) -> Failure {
+    Failure {
+        code: crate::exit::IO,
+        message: format!("cannot write `{}` as Parquet: {e}", dest.display()),
     }
 }
 
 impl WeightsWriter {
-    /// Starts the file; `key_name` is the name of the key column, if any.
+    /// Starts the file; `key_name` is the name of the key column, if any. The format follows the
+    /// extension of `path` (see [`WeightsWriter`]).
     pub fn create(path: &Path, key_name: Option<&str>) -> Result<Self, Failure> {
-        check_weights_path(path)?;
         let mut file = AtomicFile::create(path)?;
-        let header = match key_name {
-            Some(k) => format!("{},weight\n", csv_field(k)),
-            None => "weight\n".to_string(),
+        let sink = if is_parquet_path(path) {
+            use arrow_schema::{DataType, Field, Schema};
+            use parquet::basic::Compression;
+            use parquet::file::properties::WriterProperties;
+            let mut fields = Vec::new();
+            if let Some(k) = key_name {
+                fields.push(Field::new(k, DataType::Utf8, false));
+            }
+            fields.push(Field::new("weight", DataType::Float64, false));
+            let schema = std::sync::Arc::new(Schema::new(fields));
+            let props = WriterProperties::builder()
+                .set_compression(Compression::SNAPPY)
+                .set_max_row_group_size(PARQUET_ROW_GROUP)
+                .build();
+            let out = file.take_writer();
+            let writer = parquet::arrow::ArrowWriter::try_new(out, schema.clone(), Some(props))
+                .map_err(|e| parquet_fail(path, e))?;
+            Sink::Parquet {
+                file,
+                writer: Box::new(writer),
+                schema,
+            }
+        } else {
+            let header = match key_name {
+                Some(k) => format!("{},weight\n", csv_field(k)),
+                None => "weight\n".to_string(),
+            };
+            file.write_all(header.as_bytes())?;
+            Sink::Csv {
+                file,
+                line: String::new(),
+            }
         };
-        file.write_all(header.as_bytes())?;
         Ok(WeightsWriter {
-            file,
+            sink,
             key_name: key_name.map(str::to_string),
-            line: String::new(),
         })
     }
 
     /// Appends rows; `keys` must be given exactly when a key column was named.
     pub fn write(&mut self, weights: &[f64], keys: Option<&[String]>) -> Result<(), Failure> {
         use std::fmt::Write as _;
-        for (i, w) in weights.iter().enumerate() {
-            self.line.clear();
-            if self.key_name.is_some() {
-                let k = keys
-                    .and_then(|k| k.get(i))
-                    .map(String::as_str)
-                    .unwrap_or("");
-                self.line.push_str(&csv_field(k));
-                self.line.push(',');
+        let key = |i: usize| -> &str {
+            keys.and_then(|k| k.get(i))
+                .map(String::as_str)
+                .unwrap_or("")
+        };
+        match &mut self.sink {
+            Sink::Csv { file, line } => {
+                for (i, w) in weights.iter().enumerate() {
+                    line.clear();
+                    if self.key_name.is_some() {
+                        line.push_str(&csv_field(key(i)));
+                        line.push(',');
+                    }
+                    // Rust's `Display` for f64 prints the shortest text that reads back to the
+                    // same value.
+                    let _ = writeln!(line, "{w}");
+                    file.write_all(line.as_bytes())?;
+                }
             }
-            // Rust's `Display` for f64 prints the shortest text that reads back to the same value.
-            let _ = writeln!(self.line, "{w}");
-            self.file.write_all(self.line.as_bytes())?;
+            Sink::Parquet {
+                file,
+                writer,
+                schema,
+            } => {
+                use arrow_array::{ArrayRef, Float64Array, RecordBatch, StringArray};
+                let mut cols: Vec<ArrayRef> = Vec::new();
+                if self.key_name.is_some() {
+                    let k: StringArray = (0..weights.len()).map(|i| Some(key(i))).collect();
+                    cols.push(std::sync::Arc::new(k));
+                }
+                cols.push(std::sync::Arc::new(Float64Array::from(weights.to_vec())));
+                let batch = RecordBatch::try_new(schema.clone(), cols)
+                    .map_err(|e| parquet_fail(&file.dest, e))?;
+                writer
+                    .write(&batch)
+                    .map_err(|e| parquet_fail(&file.dest, e))?;
+            }
         }
         Ok(())
     }
 
     /// Makes the file visible under its name.
     pub fn commit(self) -> Result<(), Failure> {
-        self.file.commit()
+        match self.sink {
+            Sink::Csv { file, .. } => file.commit(),
+            Sink::Parquet {
+                mut file, writer, ..
+            } => {
+                let out = writer
+                    .into_inner()
+                    .map_err(|e| parquet_fail(&file.dest, e))?;
+                file.put_writer(out);
+                file.commit()
+            }
+        }
     }
 }
 

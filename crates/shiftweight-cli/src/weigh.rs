@@ -39,7 +39,7 @@ pub struct WeighArgs {
     pub estimator: EstimatorArgs,
     #[command(flatten)]
     pub stabilise: StabiliseArgs,
-    /// Where to write the weights (CSV), replaced atomically.
+    /// Where to write the weights, replaced atomically: Parquet for a `.parquet`/`.pq` name, else CSV.
     #[arg(long, value_name = "FILE")]
     pub out: PathBuf,
     /// Also write the fitted model (JSON), for `shiftweight apply` or the Python package.
@@ -55,7 +55,6 @@ pub struct WeighArgs {
 
 /// Runs `weigh`.
 pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
-    io::check_weights_path(&args.out)?;
     let estimator = build_estimator(&args.estimator, g.seed)?;
     let progress = Progress::new(g.quiet);
     let opts = args.input.file_options();
