@@ -45,8 +45,9 @@ def demo_data(n_source: int = 2000, n_target: int = 1000, seed: int = 0, as_fram
     >>> str(f["source"]["heating"].dtype), list(f["source"]["heating"].cat.categories)
     ('category', ['gas', 'oil', 'heat pump', 'direct electric'])
     """
-    d = dict(_native.demo_electricity(n_source, n_target, seed))
-    typed = {"source": d.pop("source_columns"), "target": d.pop("target_columns")}
+    native = _native.demo_electricity(n_source, n_target, seed)
+    typed = {"source": native["source_columns"], "target": native["target_columns"]}
+    d: Dict[str, Any] = {k: v for k, v in native.items() if k not in ("source_columns", "target_columns")}
     if as_frame:
         import pandas as pd
 
