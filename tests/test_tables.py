@@ -185,3 +185,28 @@ def test_check_overlap_counts_levels_absent_from_the_source():
     assert rep.n_outside_support == 10  # rows 0-9: 6 with "wood", 7 missing, 3 with both
     assert rep.flagged
     assert any("`heating`" in m and "wood" in m for m in rep.warnings)
+
+
+def test_public_functions_take_the_demo_tables(tmp_path):
+    # The demo's recorded tables (categorical `heating`, gaps in `home_age_years`) through every
+    # public function that takes rows; learners (WeightedRidge, WeightedLogistic) take numbers.
+    d = sw.demo_data(300, 150, seed=1, as_frame=True)
+    s, t = d["source"], d["target"]
+    rows = {r["feature"]: r for r in sw.feature_shift(s, t, repeats=2).to_dict()["rows"]}
+    # The heating row is the chi-square of the 2 x 4 table of level counts:
+    # scipy.stats.chi2_contingency (every expected count is above 5 here, so nothing is pooled).
+    counts = np.array([[np.sum(x["heating"] == lv) for lv in x["heating"].cat.categories] for x in (s, t)])
+    ref = stats.chi2_contingency(counts)
+    assert ref.expected_freq.min() >= 5
+    assert rows["heating"]["statistic"] == pytest.approx(ref.statistic, rel=1e-12)
+    assert np.isfinite(rows["heating"]["auc_drop"])
+    assert "home_age_years (missing)" in rows
+    assert sw.shift_test(s, t, permutations=19).p_value <= 0.05  # smallest p is 1/20
+    est = sw.LeastSquaresRatio(n_basis=40).fit(s, t)
+    # Every level and the gaps occur in the source, so no target row is outside its support.
+    rep = sw.check_overlap(est.ratio(t), source=s, target=t)
+    assert rep.n_outside_support == 0 and rep.support_gaps == []
+    summary = sw.write_report(s, t, tmp_path / "r.html", permutations=9)
+    assert "heating" in (tmp_path / "r.html").read_text() and summary
+    with pytest.raises(sw.ShiftweightError, match="heating"):
+        sw.WeightedRidge().fit(s, d["y_source"])

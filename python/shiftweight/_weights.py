@@ -362,6 +362,11 @@ def diagnose(w: Any, groups: Any = None) -> WeightDiagnosis:
     weights rescaled to mean 1, not weights rescaled to sum 1. Runs in O(n) with selection, no full
     sort.
 
+    ``diagnose`` sees only the source weights, so it cannot see target rows that no source row
+    resembles (a level or a missing pattern the source never has): weights of source rows are
+    silent about them. Count those with ``check_overlap(est.ratio(target), source=source,
+    target=target)``, which takes the tables.
+
     >>> import shiftweight as sw
     >>> sw.diagnose([1.0] * 1000).verdict
     'good'
@@ -493,12 +498,17 @@ def clip_for_ess(w: Any, ess_fraction: float) -> Dict[str, Any]:
 class OverlapReport(_Document):
     """Result of :func:`check_overlap`: ``n_target``, ``limit``, ``tolerance``, ``n_poorly_covered``,
     ``share_poorly_covered``, ``max_ratio``, ``median_ratio``, ``flagged``, ``source`` and
-    ``warnings`` (always ending with the caution that no weighting fixes missing support)."""
+    ``warnings`` (always ending with the caution that no weighting fixes missing support), and
+    ``support_gaps`` and ``n_outside_support``: the target levels and missing values the source
+    never has and the target rows with any of them, counted only when ``check_overlap`` was given
+    the tables (``[]`` and 0 otherwise, and when there are none)."""
 
     _format = "shiftweight.overlap-report"
 
     def __init__(self, document: str):
         super().__init__(document)
+        self.support_gaps: List[Dict[str, Any]] = []
+        self.n_outside_support: int = 0
         for k, v in self._body.items():
             setattr(self, k, v)
 
