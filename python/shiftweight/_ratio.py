@@ -621,8 +621,9 @@ class AutoRatio(RatioEstimatorBase):
     Uniform weights (w = 1, score -0.5) are always a candidate. A candidate is eligible if its
     mean score beats uniform's by more than ``se_margin`` of its standard errors and the Pareto
     tail shape k of its held-out raw source weights is below ``tail_k`` (1: at k >= 1 the fitted
-    tail has no finite mean, so the estimate is not a credible ratio; Vehtari et al. 2024). Among eligible candidates within one standard
-    error of the best, the one with the largest effective sample size wins (``prefer_stable``).
+    tail has no finite mean, so the estimate is not a credible ratio; Vehtari et al. 2024).
+    Among eligible candidates within one standard error of the best, the one with the largest
+    effective sample size wins (``prefer_stable``).
     With none eligible, uniform weights are kept and ``warnings_`` says that no correction was
     found to help. The winner is refitted on all rows and its cap applied: ``ratio`` and
     ``source_weights_`` are the capped weights, ``mass * min(scale * w, cap_)`` with the scale

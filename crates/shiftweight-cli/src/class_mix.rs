@@ -137,6 +137,21 @@ fn csv_row(cells: &[String]) -> String {
 }
 
 /// Runs `class-mix`.
+/// Refuses a Parquet name for an output this step writes as CSV.
+fn csv_only(path: &std::path::Path) -> Result<(), Failure> {
+    match path
+        .extension()
+        .and_then(|e| e.to_str())
+        .map(|e| e.to_ascii_lowercase())
+    {
+        Some(e) if e == "parquet" || e == "pq" => Err(bad(format!(
+            "`{}`: this output is written as CSV; choose a .csv name",
+            path.display()
+        ))),
+        _ => Ok(()),
+    }
+}
+
 pub fn run(args: ClassMixArgs, g: &Globals) -> Result<u8, Failure> {
     if args.columns.len() < 2 {
         return Err(bad(format!(
@@ -144,9 +159,10 @@ pub fn run(args: ClassMixArgs, g: &Globals) -> Result<u8, Failure> {
             args.columns.len()
         )));
     }
-    io::check_weights_path(&args.out)?;
-    for p in args.weights.iter().chain(&args.adjusted) {
-        io::check_weights_path(p)?;
+    // The class table and the adjusted probabilities are written as CSV text (the per-row
+    // weights follow the extension, like `weigh`'s).
+    for p in std::iter::once(&args.out).chain(&args.adjusted) {
+        csv_only(p)?;
     }
     let method = LabelShiftMethod::parse(&args.method)?;
     let progress = Progress::new(g.quiet);
