@@ -96,43 +96,25 @@ def write_report(
         raise _native.ShiftweightError(f"`level` must be in (0, 1), got {level!r}")
     json_out = None if json_path is None else os.fspath(json_path)
     label_json, mix_json = _label_documents(label_shift, mix_test)
+    # Everything after the two inputs (and the matrix path's feature names) is shared.
+    rest = (
+        os.fspath(path),
+        model_json,
+        w,
+        as_seed(seed),
+        test,
+        as_count(permutations, "permutations"),
+        lvl,
+        json_out,
+        label_json,
+        mix_json,
+    )
     if tables is not None:
         # Typed columns (text levels, gaps): the same call as the command line's `report`.
-        return str(
-            _native.write_report_table(
-                tables[0],
-                tables[1],
-                os.fspath(path),
-                model_json,
-                w,
-                as_seed(seed),
-                test,
-                as_count(permutations, "permutations"),
-                lvl,
-                json_out,
-                label_json,
-                mix_json,
-            )
-        )
+        return str(_native.write_report_table(tables[0], tables[1], *rest))
     assert s is not None and t is not None
     feature_names = list(names) if names else [f"x{j}" for j in range(s.shape[1])]
-    return str(
-        _native.write_report(
-            s,
-            t,
-            feature_names,
-            os.fspath(path),
-            model_json,
-            w,
-            as_seed(seed),
-            test,
-            as_count(permutations, "permutations"),
-            lvl,
-            json_out,
-            label_json,
-            mix_json,
-        )
-    )
+    return str(_native.write_report(s, t, feature_names, *rest))
 
 
 def _label_documents(label_shift: Any, mix_test: Any) -> tuple[Optional[str], Optional[str]]:

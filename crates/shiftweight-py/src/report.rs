@@ -43,15 +43,23 @@ fn write_atomic(dest: &Path, text: &str, argument: &str) -> shiftweight::Result<
     Ok(())
 }
 
-fn test_kind(test: &str) -> PyResult<TestKind> {
-    match test {
-        "classifier" => Ok(TestKind::Classifier),
-        "mmd" => Ok(TestKind::Mmd),
-        other => Err(crate::to_py(Error::param(
-            "test",
-            format!("must be \"classifier\" or \"mmd\", got {other:?}"),
-        ))),
-    }
+/// The shift-test options of a report; `test` is "classifier" or "mmd".
+fn shift_options(test: &str, permutations: usize, level: f64) -> PyResult<ShiftOptions> {
+    let test = match test {
+        "classifier" => TestKind::Classifier,
+        "mmd" => TestKind::Mmd,
+        other => {
+            return Err(crate::to_py(Error::param(
+                "test",
+                format!("must be \"classifier\" or \"mmd\", got {other:?}"),
+            )))
+        }
+    };
+    Ok(ShiftOptions {
+        test,
+        permutations,
+        level,
+    })
 }
 
 /// Where the weights come from: the model read from `model_json`, the given weights, or the
@@ -114,11 +122,7 @@ fn write_report(
         Some(a) => Some(vector(a, "weights")?),
         None => None,
     };
-    let opts = ShiftOptions {
-        test: test_kind(test)?,
-        permutations,
-        level,
-    };
+    let opts = shift_options(test, permutations, level)?;
     detached(py, move || {
         let model = model_json
             .as_deref()
@@ -163,11 +167,7 @@ fn write_report_table(
         Some(a) => Some(vector(a, "weights")?),
         None => None,
     };
-    let opts = ShiftOptions {
-        test: test_kind(test)?,
-        permutations,
-        level,
-    };
+    let opts = shift_options(test, permutations, level)?;
     detached(py, move || {
         let model = model_json
             .as_deref()

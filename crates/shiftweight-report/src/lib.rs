@@ -1089,32 +1089,48 @@ pub fn full_report(
     let (shift, features) = shift_sections(source, target, names, opts, seed)?;
     report.shift = Part::Available(shift);
     report.features = features;
-    let fitted;
-    let model = match weights {
-        WeightSource::Automatic => {
-            fitted = AutoRatio::new().seed(seed).fit(source, target)?;
-            Some(&fitted)
-        }
-        WeightSource::Model(m) => Some(m),
-        WeightSource::Given(_) => None,
-    };
-    let w: Vec<f64> = match (model, weights) {
-        (_, WeightSource::Given(w)) => {
-            if w.len() != source.rows() {
+    let mut fitted = None;
+    let (model, w) = resolve_weights(
+        weights,
+        source.rows(),
+        &mut fitted,
+        || AutoRatio::new().seed(seed).fit(source, target),
+        |m| m.ratio(source),
+    )?;
+    weights_into(&mut report, model, &w);
+    Ok(report)
+}
+
+/// The model a report describes (None for given weights) and the source weights it shows.
+/// `fit` runs for [`WeightSource::Automatic`], its model kept in `fitted`; `score` runs when a
+/// model's stored weights are not of these `n_source` rows; given weights need one per row.
+pub(crate) fn resolve_weights<'a>(
+    weights: WeightSource<'a>,
+    n_source: usize,
+    fitted: &'a mut Option<FittedRatio>,
+    fit: impl FnOnce() -> shiftweight::Result<FittedRatio>,
+    score: impl FnOnce(&FittedRatio) -> shiftweight::Result<Vec<f64>>,
+) -> shiftweight::Result<(Option<&'a FittedRatio>, Vec<f64>)> {
+    let model: &'a FittedRatio = match weights {
+        WeightSource::Given(w) => {
+            if w.len() != n_source {
                 return Err(shiftweight::Error::LengthMismatch {
                     argument: "weights".into(),
-                    expected: source.rows(),
+                    expected: n_source,
                     found: w.len(),
                 });
             }
-            w.to_vec()
+            return Ok((None, w.to_vec()));
         }
-        (Some(m), _) if m.source_weights.len() == source.rows() => m.source_weights.clone(),
-        (Some(m), _) => m.ratio(source)?,
-        (None, _) => unreachable!("a model exists unless weights were given"),
+        WeightSource::Model(m) => m,
+        WeightSource::Automatic => fitted.insert(fit()?),
     };
-    weights_into(&mut report, model, &w);
-    Ok(report)
+    let w = if model.source_weights.len() == n_source {
+        model.source_weights.clone()
+    } else {
+        score(model)?
+    };
+    Ok((Some(model), w))
 }
 
 /// Fills the estimator, weights and clipping sections from the model (if any) and the weights.

@@ -14,8 +14,8 @@
 //! rows.
 
 use crate::{
-    full_report, run_test, weights_into, FeatureFigure, FeaturesPart, Part, Report, ShiftOptions,
-    ShiftPart, WeightSource,
+    full_report, resolve_weights, run_test, weights_into, FeatureFigure, FeaturesPart, Part,
+    Report, ShiftOptions, ShiftPart, WeightSource,
 };
 use shiftweight::ratio::{AutoRatio, RatioEstimator};
 use shiftweight::table::{encode_pair, support_gaps, Column, ColumnData, Table, MISSING_CODE};
@@ -127,30 +127,14 @@ pub fn full_report_table(
         })),
         Err(e) => Part::missing(format!("per-feature shift failed: {e}")),
     };
-    let fitted;
-    let model = match weights {
-        WeightSource::Automatic => {
-            fitted = AutoRatio::new().seed(seed).fit_table(source, target)?;
-            Some(&fitted)
-        }
-        WeightSource::Model(m) => Some(m),
-        WeightSource::Given(_) => None,
-    };
-    let w: Vec<f64> = match (model, weights) {
-        (_, WeightSource::Given(w)) => {
-            if w.len() != source.rows() {
-                return Err(shiftweight::Error::LengthMismatch {
-                    argument: "weights".into(),
-                    expected: source.rows(),
-                    found: w.len(),
-                });
-            }
-            w.to_vec()
-        }
-        (Some(m), _) if m.source_weights.len() == source.rows() => m.source_weights.clone(),
-        (Some(m), _) => m.ratio_table(source)?.weights,
-        (None, _) => unreachable!("a model exists unless weights were given"),
-    };
+    let mut fitted = None;
+    let (model, w) = resolve_weights(
+        weights,
+        source.rows(),
+        &mut fitted,
+        || AutoRatio::new().seed(seed).fit_table(source, target),
+        |m| Ok(m.ratio_table(source)?.weights),
+    )?;
     weights_into(&mut report, model, &w);
     if let Part::Available(wp) = &mut report.weights {
         let gaps = support_gaps(source, target)?;
