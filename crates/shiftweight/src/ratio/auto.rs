@@ -54,7 +54,11 @@
 //! Gaussian pairs it excluded the most accurate candidate and fell back to uniform weights).
 //!
 //! **Scale.** Above `max_rows` rows in a sample, the candidates are scored on a seeded random
-//! subsample of `max_rows` rows of that sample; the winner is then refitted on all rows.
+//! subsample of `max_rows` rows of that sample. The winner then runs its own hyperparameter
+//! search once on the whole subsample, and is refitted on all rows with that choice held fixed
+//! ([`RatioEstimator::with_chosen`]; an estimator without it is refitted as it is). A penalty or
+//! kernel width chosen on fewer rows is, if anything, a little smoother than one chosen on all
+//! rows; in exchange the search costs O(`max_rows`) rather than O(n) times its grid.
 //!
 //! Default candidates: uLSIF, RuLSIF (alpha 0.1), KLIEP (width by its source-and-target
 //! likelihood cross-validation) and the classifier with linear, quadratic and Fourier features;
@@ -77,7 +81,8 @@
 //!
 //! Complexity: folds x (cost of fitting and scoring every candidate on (folds-1)/folds of the
 //! (subsampled) rows) + folds x candidates x caps x O(n log n) for the caps' scales, plus one
-//! refit of the winner on all rows. Folds run one after another with the candidates in parallel;
+//! fit of the winner on the subsample and one refit on all rows (with fixed hyperparameters above
+//! `max_rows`: for the classifier, folds + 1 logistic fits instead of folds x grid). Folds run one after another with the candidates in parallel;
 //! memory is one copy of the (subsampled) rows for the current fold plus the pooled held-out
 //! source weights of every candidate and cap.
 
@@ -432,7 +437,7 @@ type FoldScores = (Vec<(f64, Vec<f64>)>, Vec<f64>);
 
 impl AutoRatio {
     /// Defaults: the default candidates plus uniform weights, 5 folds, seed 0, margin 1 SE,
-    /// capped least squares, stable choice within 1 SE, tail guard at k = 0.7, subsample above
+    /// capped least squares, stable choice within 1 SE, tail guard at k = 1, subsample above
     /// 20,000 rows per sample.
     pub fn new() -> Self {
         Self::default()
@@ -556,10 +561,32 @@ impl AutoRatio {
     ) -> Result<(Vec<CandidateScore>, usize)> {
         self.check()?;
         validate_pair(&source, &target, self.folds)?;
-        let sub_s = subsample(source, self.max_rows, self.seed ^ 0x7375_6273);
-        let sub_t = subsample(target, self.max_rows, self.seed ^ 0x7375_6274);
-        let source = sub_s.as_ref().map_or(source, |m| m.view());
-        let target = sub_t.as_ref().map_or(target, |m| m.view());
+        let (sub_s, sub_t) = self.subsamples(source, target);
+        self.evaluate_rows(
+            sub_s.as_ref().map_or(source, |m| m.view()),
+            sub_t.as_ref().map_or(target, |m| m.view()),
+        )
+    }
+
+    /// The seeded scoring subsamples of the source and the target (`None` for a sample of at
+    /// most `max_rows` rows, which is scored whole).
+    fn subsamples(
+        &self,
+        source: MatrixView,
+        target: MatrixView,
+    ) -> (Option<Matrix>, Option<Matrix>) {
+        (
+            subsample(source, self.max_rows, self.seed ^ 0x7375_6273),
+            subsample(target, self.max_rows, self.seed ^ 0x7375_6274),
+        )
+    }
+
+    /// [`AutoRatio::evaluate`] on rows already subsampled.
+    fn evaluate_rows(
+        &self,
+        source: MatrixView,
+        target: MatrixView,
+    ) -> Result<(Vec<CandidateScore>, usize)> {
         let defaults = self.default_set(source.cols());
         let all: Vec<&Candidate> = defaults.iter().chain(&self.candidates).collect();
         let k = self.folds;
@@ -763,9 +790,18 @@ fn row_params(s: &CandidateScore) -> std::collections::BTreeMap<String, f64> {
 
 impl RatioEstimator for AutoRatio {
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
-        let (scores, best) = self.evaluate(source, target)?;
+        self.check()?;
+        validate_pair(&source, &target, self.folds)?;
+        let (sub_s, sub_t) = self.subsamples(source, target);
+        let subsampled = sub_s.is_some() || sub_t.is_some();
+        let (scored_s, scored_t) = (
+            sub_s.as_ref().map_or(source, |m| m.view()),
+            sub_t.as_ref().map_or(target, |m| m.view()),
+        );
+        let (scores, best) = self.evaluate_rows(scored_s, scored_t)?;
         let win = &scores[best];
         let name = win.name.clone();
+        let mut refit_fixed = false;
         let mut fitted = if best == 0 {
             UniformRatio.fit(source, target)?
         } else {
@@ -775,7 +811,20 @@ impl RatioEstimator for AutoRatio {
                 .chain(&self.candidates)
                 .find(|c| c.name == name)
                 .expect("the chosen name comes from this list");
-            c.estimator.fit(source, target)?
+            // Above max_rows the winner's own hyperparameter search runs on the scoring
+            // subsample, and the refit on all rows holds its choice fixed: the search costs
+            // O(max_rows) instead of O(n) times the grid size.
+            let fixed = if subsampled {
+                let on_sub = c.estimator.fit(scored_s, scored_t)?;
+                c.estimator.with_chosen(&on_sub.selection.chosen)
+            } else {
+                None
+            };
+            refit_fixed = fixed.is_some();
+            match fixed {
+                Some(e) => e.fit(source, target)?,
+                None => c.estimator.fit(source, target)?,
+            }
         };
         // The raw source weights' mean, checked before any cap (see the module doc).
         let raw_mean = if best == 0 {
@@ -861,6 +910,9 @@ impl RatioEstimator for AutoRatio {
         );
         if let Some(c) = &fitted.cap {
             chosen.insert("cap".into(), c.upper);
+        }
+        if refit_fixed {
+            chosen.insert("refit_with_subsample_choice".into(), 1.0);
         }
         fitted.selection = Selection {
             criterion: format!(
@@ -983,8 +1035,13 @@ pub fn decision_summary(m: &FittedRatio) -> Option<String> {
         scored,
         (m.meta.n_source as f64) > scored.unwrap_or(f64::INFINITY),
     ) {
+        let fixed = if sel.chosen.contains_key("refit_with_subsample_choice") {
+            ", keeping the hyperparameters it chose on that subsample"
+        } else {
+            ""
+        };
         out.push(format!(
-            "Candidates were scored on a seeded subsample of {n:.0} source rows; the winner was refitted on all {} rows.",
+            "Candidates were scored on a seeded subsample of {n:.0} source rows; the winner was refitted on all {} rows{fixed}.",
             m.meta.n_source
         ));
     }
@@ -1194,6 +1251,77 @@ mod tests {
         assert!(AutoRatio::new().tail_k(0.0).check().is_err());
         assert!(AutoRatio::new().max_rows(10).check().is_err());
         assert!(SelectionScore::from_name("nope").is_err());
+    }
+
+    #[test]
+    fn holding_a_fits_choice_fixed_reproduces_that_fit() {
+        // A refit with the chosen hyperparameters held fixed is the same model as the search's
+        // own final fit on the same rows (the search ends by fitting at its choice), so the refit
+        // of the automatic choice changes only the cost of the search, not what it fits.
+        let s = gaussian(400, 2, 0.0, 21);
+        let t = gaussian(300, 2, 0.7, 22);
+        let (sv, tv) = (
+            MatrixView::new(&s, 400, 2).unwrap(),
+            MatrixView::new(&t, 300, 2).unwrap(),
+        );
+        let searched: Vec<(&str, crate::ratio::BoxedEstimator)> = vec![
+            ("l2", Box::new(ClassifierRatio::new().l2(None).seed(3))),
+            ("lam", Box::new(LeastSquaresRatio::new().seed(3))),
+            ("sigma", Box::new(KLRatio::new().seed(3))),
+        ];
+        for (key, e) in searched {
+            let m = e.fit(sv, tv).unwrap();
+            let fixed = e
+                .with_chosen(&m.selection.chosen)
+                .expect("a searched estimator");
+            let again = fixed.fit(sv, tv).unwrap();
+            assert_eq!(again.selection.chosen[key], m.selection.chosen[key]);
+            assert!(
+                again.selection.table.len() <= 1,
+                "{key}: the refit searched again"
+            );
+            let (a, b) = (m.ratio(sv).unwrap(), again.ratio(sv).unwrap());
+            for (x, y) in a.iter().zip(&b) {
+                assert!(
+                    (x - y).abs() <= 1e-9 * x.abs().max(1.0),
+                    "{key}: {x} vs {y}"
+                );
+            }
+        }
+        // Nothing to hold fixed when nothing was searched.
+        let given = ClassifierRatio::new().l2(Some(1.0));
+        let m = given.fit(sv, tv).unwrap();
+        assert!(given.with_chosen(&m.selection.chosen).is_none());
+    }
+
+    #[test]
+    fn above_max_rows_the_winner_is_refitted_with_its_subsample_choice() {
+        let s = gaussian(900, 2, 0.0, 31);
+        let t = gaussian(700, 2, 1.0, 32);
+        let (sv, tv) = (
+            MatrixView::new(&s, 900, 2).unwrap(),
+            MatrixView::new(&t, 700, 2).unwrap(),
+        );
+        let auto = AutoRatio::new()
+            .without_defaults()
+            .candidate("classifier_linear", ClassifierRatio::new().l2(None).seed(4))
+            .max_rows(300);
+        let m = auto.fit(sv, tv).unwrap();
+        assert_eq!(m.selection.candidate.as_deref(), Some("classifier_linear"));
+        assert_eq!(m.selection.chosen["refit_with_subsample_choice"], 1.0);
+        assert_eq!(m.meta.n_source, 900);
+        assert_eq!(m.source_weights.len(), 900);
+        let text = decision_summary(&m).unwrap();
+        assert!(
+            text.contains("keeping the hyperparameters it chose"),
+            "{text}"
+        );
+        // Below max_rows nothing is subsampled and the winner searches on all rows.
+        let whole = auto.max_rows(5000).fit(sv, tv).unwrap();
+        assert!(!whole
+            .selection
+            .chosen
+            .contains_key("refit_with_subsample_choice"));
     }
 
     #[test]

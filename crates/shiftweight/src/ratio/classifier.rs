@@ -61,6 +61,7 @@ use rand::Rng;
 use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
 
 /// Largest log-weight kept: exp(700) ~ 1e304 is still finite in double precision.
 pub const LOG_WEIGHT_CAP: f64 = 700.0;
@@ -565,6 +566,12 @@ fn fit_warnings(cf: &CrossFit, n_s: usize, n_t: usize) -> Vec<String> {
 }
 
 impl RatioEstimator for ClassifierRatio {
+    /// Holds the penalty fixed when it was searched (`l2` is `None`).
+    fn with_chosen(&self, chosen: &BTreeMap<String, f64>) -> Option<super::BoxedEstimator> {
+        let l2 = chosen.get("l2").copied().filter(|_| self.l2.is_none())?;
+        Some(Box::new(self.clone().l2(Some(l2))))
+    }
+
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         self.check()?;
         validate_pair(&source, &target, self.folds.max(2))?;

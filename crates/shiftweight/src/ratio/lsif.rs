@@ -39,6 +39,7 @@ use faer::prelude::*;
 use faer::{Accum, Mat, Side};
 use rand::seq::index::sample;
 use rayon::prelude::*;
+use std::collections::BTreeMap;
 
 /// uLSIF / RuLSIF configuration. Build with [`LeastSquaresRatio::new`] and the setters.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
@@ -651,6 +652,17 @@ pub(crate) fn solve_theta(h_mat: &Mat<f64>, h: &[f64], lam: f64) -> Result<Vec<f
 }
 
 impl RatioEstimator for LeastSquaresRatio {
+    /// Holds the kernel width and the ridge fixed when either was searched.
+    fn with_chosen(&self, chosen: &BTreeMap<String, f64>) -> Option<super::BoxedEstimator> {
+        if self.sigma.is_some() && self.lam.is_some() {
+            return None;
+        }
+        let mut e = self.clone();
+        e.sigma = Some(*chosen.get("sigma")?);
+        e.lam = Some(*chosen.get("lam")?);
+        Some(Box::new(e))
+    }
+
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         self.check()?;
         validate_pair(&source, &target, 2)?;

@@ -46,7 +46,19 @@ pub trait RatioEstimator {
         model.encoding = Some(encoding);
         Ok(model)
     }
+
+    /// The same estimator with the hyperparameters an earlier fit chose held fixed (`chosen` is
+    /// that fit's [`Selection::chosen`]), so that a refit on more rows skips the search. The
+    /// automatic choice ([`AutoRatio`]) uses it to refit its winner on all rows with the
+    /// hyperparameters it chose on the scoring subsample. `None` (the default) when the estimator
+    /// searches nothing that `chosen` records; the estimator is then refitted as it is.
+    fn with_chosen(&self, _chosen: &BTreeMap<String, f64>) -> Option<BoxedEstimator> {
+        None
+    }
 }
+
+/// A ratio estimator that can be sent across threads, as the automatic choice holds them.
+pub type BoxedEstimator = Box<dyn RatioEstimator + Send + Sync>;
 
 /// Rows encoded at a time by [`FittedRatio::ratio_table`], so that memory stays flat in the
 /// number of rows.

@@ -57,6 +57,7 @@ use crate::kernel;
 use crate::par;
 use crate::simd::{dot_portable, with_wide_simd};
 use sqp::solve_kliep_batch;
+use std::collections::BTreeMap;
 
 mod factor;
 mod sqp;
@@ -343,6 +344,17 @@ fn choose_width(sigmas: &[f64], stats: &[Option<(f64, f64)>], se_margin: f64) ->
 }
 
 impl RatioEstimator for KLRatio {
+    /// Holds the kernel width fixed when it was searched (`sigma` is `None`).
+    fn with_chosen(&self, chosen: &BTreeMap<String, f64>) -> Option<crate::ratio::BoxedEstimator> {
+        let sigma = chosen
+            .get("sigma")
+            .copied()
+            .filter(|_| self.sigma.is_none())?;
+        let mut e = self.clone();
+        e.sigma = Some(sigma);
+        Some(Box::new(e))
+    }
+
     fn fit(&self, source: MatrixView, target: MatrixView) -> Result<FittedRatio> {
         self.check()?;
         validate_pair(&source, &target, self.folds.max(2))?;
