@@ -15,38 +15,44 @@ use std::fs::File;
 use std::path::Path;
 use std::sync::Arc;
 
-/// An open Parquet file: the batch reader and where the features and the key are in a batch.
-pub(super) struct ParquetSource {
+/// What one projected column of a group's batches feeds.
+#[derive(Debug, Clone, Copy)]
+enum Target {
+    /// The feature column with this output index.
+    Feature(usize),
+    /// The key column.
+    Key,
+}
+
+/// A subset of the projected columns decoded by its own batch reader (its own file handle), so
+/// that groups decode in parallel: the Arrow reader decodes the columns of one reader in turn.
+struct Group {
     batches: parquet::arrow::arrow_reader::ParquetRecordBatchReader,
-    /// Column index in the projected batch of each feature, and of the key.
-    feature_at: Vec<usize>,
-    key_at: Option<usize>,
+    /// What each column of this group's batches (file order) feeds.
+    targets: Vec<Target>,
     /// A batch partly handed out, and the offset of its first unread row.
     pending: Option<(RecordBatch, usize)>,
 }
 
-impl ParquetSource {
-    /// Reads up to `max_rows` rows into `chunk` (columns and keys); returns the number read.
-    pub(super) fn read(
+/// What one group read for one chunk: the row count, its feature columns, and the keys if the
+/// key column is in this group.
+type GroupPart = (usize, Vec<(usize, Values)>, Option<Vec<String>>);
+
+impl Group {
+    /// Reads up to `max_rows` rows of this group's columns and converts them.
+    fn read(
         &mut self,
         path: &Path,
-        columns: &mut [ColumnState],
+        mut cols: Vec<(usize, &mut ColumnState)>,
         first_row: usize,
         max_rows: usize,
-        chunk: &mut Chunk,
-    ) -> Result<usize, Failure> {
-        let ParquetSource {
-            batches,
-            feature_at,
-            key_at,
-            pending,
-        } = self;
+    ) -> Result<GroupPart, Failure> {
         let mut parts: Vec<RecordBatch> = Vec::new();
         let mut n = 0;
         while n < max_rows {
-            let (batch, off) = match pending.take() {
+            let (batch, off) = match self.pending.take() {
                 Some(p) => p,
-                None => match batches.next() {
+                None => match self.batches.next() {
                     None => break,
                     Some(Err(e)) => return Err(arrow_fail(path, e)),
                     Some(Ok(b)) => (b, 0),
@@ -56,17 +62,31 @@ impl ParquetSource {
             parts.push(batch.slice(off, take));
             n += take;
             if off + take < batch.num_rows() {
-                *pending = Some((batch, off + take));
+                self.pending = Some((batch, off + take));
             }
         }
-        let cols: Vec<Vec<ArrayRef>> = feature_at
-            .iter()
-            .map(|&c| parts.iter().map(|b| b.column(c).clone()).collect())
-            .collect();
-        chunk.columns = columns
+        let at = |t: usize| {
+            parts
+                .iter()
+                .map(|b| b.column(t).clone())
+                .collect::<Vec<_>>()
+        };
+        let mut key_arrays = None;
+        let mut feature_arrays = Vec::new();
+        for (t, target) in self.targets.iter().enumerate() {
+            match target {
+                Target::Key => key_arrays = Some(at(t)),
+                Target::Feature(j) => feature_arrays.push((*j, at(t))),
+            }
+        }
+        let values = cols
             .par_iter_mut()
-            .zip(cols.par_iter())
-            .map(|(col, arrays)| {
+            .map(|(j, col)| {
+                let arrays = feature_arrays
+                    .iter()
+                    .find(|(k, _)| k == j)
+                    .map(|(_, a)| a.as_slice())
+                    .unwrap_or(&[]);
                 let mut out = match col.kind {
                     ColumnType::Numeric => Values::Numeric(Vec::with_capacity(n)),
                     ColumnType::Categorical => Values::Categorical(Vec::with_capacity(n)),
@@ -76,19 +96,75 @@ impl ParquetSource {
                     arrow_column(path, col, a, row, &mut out)?;
                     row += a.len();
                 }
-                Ok(out)
+                Ok((*j, out))
             })
             .collect::<Result<Vec<_>, Failure>>()?;
-        chunk.keys = match key_at {
-            Some(k) => {
+        let keys = match key_arrays {
+            Some(arrays) => {
                 let mut keys = Vec::with_capacity(n);
-                for b in &parts {
-                    arrow_text(path, b.column(*k), &mut keys)?;
+                for a in &arrays {
+                    arrow_text(path, a, &mut keys)?;
                 }
                 Some(keys)
             }
             None => None,
         };
+        Ok((n, values, keys))
+    }
+}
+
+/// An open Parquet file: the projected columns split into groups that decode in parallel.
+pub(super) struct ParquetSource {
+    groups: Vec<Group>,
+    /// The group of each feature column.
+    group_of: Vec<usize>,
+}
+
+impl ParquetSource {
+    /// Reads up to `max_rows` rows into `chunk` (columns and keys); returns the number read.
+    /// The groups decode and convert in parallel (one rayon task per group, and within a group
+    /// one per column).
+    pub(super) fn read(
+        &mut self,
+        path: &Path,
+        columns: &mut [ColumnState],
+        first_row: usize,
+        max_rows: usize,
+        chunk: &mut Chunk,
+    ) -> Result<usize, Failure> {
+        let mut per_group: Vec<Vec<(usize, &mut ColumnState)>> =
+            self.groups.iter().map(|_| Vec::new()).collect();
+        for (j, col) in columns.iter_mut().enumerate() {
+            per_group[self.group_of[j]].push((j, col));
+        }
+        let parts = self
+            .groups
+            .par_iter_mut()
+            .zip(per_group.into_par_iter())
+            .map(|(g, cols)| g.read(path, cols, first_row, max_rows))
+            .collect::<Result<Vec<_>, Failure>>()?;
+        let n = parts.first().map_or(0, |p| p.0);
+        let mut values: Vec<Option<Values>> = (0..columns.len()).map(|_| None).collect();
+        chunk.keys = None;
+        for (rows, vals, keys) in parts {
+            if rows != n {
+                return Err(bad(format!(
+                    "`{}`: its columns hold different numbers of rows ({n} and {rows} from data \
+                     row {first_row} on)",
+                    path.display()
+                )));
+            }
+            for (j, v) in vals {
+                values[j] = Some(v);
+            }
+            if keys.is_some() {
+                chunk.keys = keys;
+            }
+        }
+        chunk.columns = values
+            .into_iter()
+            .map(|v| v.unwrap_or(Values::Numeric(Vec::new())))
+            .collect();
         Ok(n)
     }
 }
@@ -115,18 +191,24 @@ fn arrow_fail(path: &Path, e: arrow_schema::ArrowError) -> Failure {
     }
 }
 
-/// Reads the footer of `file` and resolves the chosen columns against its schema.
+/// Reads the footer of `file` and resolves the chosen columns against its schema. The projected
+/// columns are dealt into at most twice as many groups as rayon has threads, largest compressed
+/// size first to the lightest group, each group with its own reader and file handle. Text columns
+/// read as levels are decoded as Arrow dictionary arrays, which keep the Parquet dictionary
+/// pages' indices instead of building one string per row.
 pub(super) fn open_parquet(
     path: &Path,
     file: File,
     choice: &ColumnChoice,
     types: &TypeOverrides,
 ) -> Result<(ParquetSource, Vec<ColumnState>), Failure> {
-    use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+    use parquet::arrow::arrow_reader::{
+        ArrowReaderMetadata, ArrowReaderOptions, ParquetRecordBatchReaderBuilder,
+    };
     use parquet::arrow::ProjectionMask;
-    let builder =
-        ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| parquet_fail(path, e))?;
-    let schema: Arc<arrow_schema::Schema> = builder.schema().clone();
+    let meta = ArrowReaderMetadata::load(&file, ArrowReaderOptions::new())
+        .map_err(|e| parquet_fail(path, e))?;
+    let schema: Arc<arrow_schema::Schema> = meta.schema().clone();
     let header: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
     let (positions, key_pos) = resolve(path, &header, choice)?;
     let mut columns = Vec::with_capacity(positions.len());
@@ -149,28 +231,100 @@ pub(super) fn open_parquet(
         c.given = types.of(&header[j]).is_some();
         columns.push(c);
     }
-    // The batches hold the projected columns in file order.
-    let mut proj: Vec<usize> = positions.clone();
-    proj.extend(key_pos);
-    proj.sort_unstable();
-    let at = |j: usize| proj.iter().position(|&p| p == j).unwrap_or(0);
-    let feature_at = positions.iter().map(|&j| at(j)).collect();
-    let key_at = key_pos.map(at);
-    let mask = ProjectionMask::roots(builder.parquet_schema(), proj.iter().copied());
-    let batches = builder
-        .with_projection(mask)
-        .with_batch_size(65_536)
-        .build()
-        .map_err(|e| parquet_fail(path, e))?;
-    Ok((
-        ParquetSource {
+    // Text features read as levels: ask for dictionary arrays (kept when the pages are
+    // dictionary-encoded; otherwise the reader builds the dictionary). If the file's schema does
+    // not take the hint, read it as stored.
+    let mut hinted = false;
+    let fields: Vec<arrow_schema::FieldRef> = schema
+        .fields()
+        .iter()
+        .enumerate()
+        .map(|(j, f)| {
+            let feature = positions.iter().position(|&p| p == j);
+            let as_levels = feature.is_some_and(|i| columns[i].kind == ColumnType::Categorical);
+            match f.data_type() {
+                DataType::Utf8 | DataType::LargeUtf8 if as_levels => {
+                    hinted = true;
+                    let t = DataType::Dictionary(
+                        Box::new(DataType::Int32),
+                        Box::new(f.data_type().clone()),
+                    );
+                    Arc::new(f.as_ref().clone().with_data_type(t))
+                }
+                _ => f.clone(),
+            }
+        })
+        .collect();
+    let meta = if hinted {
+        let hint = Arc::new(arrow_schema::Schema::new_with_metadata(
+            fields,
+            schema.metadata().clone(),
+        ));
+        ArrowReaderMetadata::try_new(
+            meta.metadata().clone(),
+            ArrowReaderOptions::new().with_schema(hint),
+        )
+        .unwrap_or(meta)
+    } else {
+        meta
+    };
+    // Compressed bytes of each root column, to balance the groups.
+    let pq_schema = meta.parquet_schema();
+    let mut size = vec![0i64; header.len()];
+    for rg in meta.metadata().row_groups() {
+        for (leaf, c) in rg.columns().iter().enumerate() {
+            size[pq_schema.get_column_root_idx(leaf)] += c.compressed_size();
+        }
+    }
+    let mut proj: Vec<(usize, Target)> = positions
+        .iter()
+        .enumerate()
+        .map(|(i, &j)| (j, Target::Feature(i)))
+        .collect();
+    proj.extend(key_pos.map(|k| (k, Target::Key)));
+    proj.sort_by_key(|&(j, _)| std::cmp::Reverse(size[j]));
+    let n_groups = proj
+        .len()
+        .min(2 * rayon::current_num_threads().max(1))
+        .max(1);
+    let mut members: Vec<Vec<(usize, Target)>> = vec![Vec::new(); n_groups];
+    let mut load = vec![0i64; n_groups];
+    for (j, t) in proj {
+        let g = (0..n_groups).min_by_key(|&g| load[g]).unwrap_or(0);
+        load[g] += size[j];
+        members[g].push((j, t));
+    }
+    let mut group_of = vec![0; positions.len()];
+    let mut groups = Vec::with_capacity(n_groups);
+    let mut first = Some(file);
+    for mut m in members {
+        if m.is_empty() {
+            continue;
+        }
+        // A batch holds its projected columns in file order.
+        m.sort_by_key(|&(j, _)| j);
+        let own = match first.take() {
+            Some(f) => f,
+            None => File::open(path).map_err(|e| super::io_fail(path, "cannot open", e))?,
+        };
+        let mask = ProjectionMask::roots(pq_schema, m.iter().map(|&(j, _)| j));
+        let batches = ParquetRecordBatchReaderBuilder::new_with_metadata(own, meta.clone())
+            .with_projection(mask)
+            .with_batch_size(65_536)
+            .build()
+            .map_err(|e| parquet_fail(path, e))?;
+        for &(_, t) in &m {
+            if let Target::Feature(i) = t {
+                group_of[i] = groups.len();
+            }
+        }
+        groups.push(Group {
             batches,
-            feature_at,
-            key_at,
+            targets: m.into_iter().map(|(_, t)| t).collect(),
             pending: None,
-        },
-        columns,
-    ))
+        });
+    }
+    Ok((ParquetSource { groups, group_of }, columns))
 }
 
 /// Appends one Arrow column slice to `out`, in the column's type.
@@ -242,13 +396,33 @@ fn arrow_column(
         }
         Values::Categorical(codes) => {
             if let Some(d) = a.as_any_dictionary_opt() {
-                // Intern each dictionary entry once, then map the keys.
-                let map = level_codes(path, col, d.values())?;
+                // Each dictionary entry is interned once, at its first use in row order, so the
+                // levels keep their order of first appearance in the rows.
+                let text = arrow_cast::cast(d.values(), &DataType::Utf8)
+                    .map_err(|e| arrow_fail(path, e))?;
+                let text = text.as_string::<i32>();
+                let mut map: Vec<Option<u32>> = vec![None; text.len()];
                 let keys = d.normalized_keys();
                 let nulls = d.keys().logical_nulls();
+                codes.reserve(keys.len());
                 for (i, k) in keys.into_iter().enumerate() {
-                    let null = nulls.as_ref().is_some_and(|n| n.is_null(i));
-                    codes.push(if null { MISSING_CODE } else { map[k] });
+                    if nulls.as_ref().is_some_and(|n| n.is_null(i)) {
+                        codes.push(MISSING_CODE);
+                        continue;
+                    }
+                    let code = match map[k] {
+                        Some(c) => c,
+                        None => {
+                            let c = if text.is_null(k) {
+                                MISSING_CODE
+                            } else {
+                                level_code(col, text.value(k).trim())
+                            };
+                            map[k] = Some(c);
+                            c
+                        }
+                    };
+                    codes.push(code);
                 }
                 return Ok(());
             }
