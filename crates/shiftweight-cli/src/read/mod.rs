@@ -15,14 +15,17 @@
 //! given as numeric is an error naming the file, the data row (1-based, the header not counted)
 //! and the column.
 //!
-//! CSV: quoted fields (holding delimiters, quotes or line breaks), LF or CRLF line ends and a
-//! UTF-8 byte-order mark are handled by the `csv` crate's reader. Field conversion runs column
-//! by column in parallel over a chunk of records. Parquet goes through the Arrow record-batch
-//! reader (uncompressed, snappy, gzip, lz4, zstd and brotli pages; plain and dictionary-encoded
-//! columns; nullable columns). Memory is bounded by the chunk size plus the level dictionaries.
+//! CSV (`csv.rs`): quoted fields (holding delimiters, quotes or line breaks), LF or CRLF line
+//! ends and a UTF-8 byte-order mark are handled by the `csv` crate's reader. Field conversion
+//! runs column by column in parallel over a chunk of records. Parquet (`parquet.rs`) goes through
+//! the Arrow record-batch reader (uncompressed, snappy, gzip, lz4, zstd and brotli pages; plain
+//! and dictionary-encoded columns; nullable columns), only the chosen columns, split into groups
+//! that decode in parallel. Levels are numbered in order of first appearance in the rows, for
+//! both formats. Memory is bounded by the chunk size plus the level dictionaries.
 //!
-//! Cost: O(rows x columns) conversions; each categorical value is one hash-table lookup (once
-//! per dictionary entry for dictionary-encoded Parquet columns).
+//! Cost: O(rows x columns) conversions; each categorical CSV value is one hash-table lookup; a
+//! Parquet text column costs one lookup per dictionary entry used in a batch plus one array index
+//! per row.
 
 mod csv;
 mod parquet;
