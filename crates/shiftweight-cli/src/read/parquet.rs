@@ -243,12 +243,13 @@ pub(super) fn open_parquet(
             let feature = positions.iter().position(|&p| p == j);
             let as_levels = feature.is_some_and(|i| columns[i].kind == ColumnType::Categorical);
             match f.data_type() {
-                DataType::Utf8 | DataType::LargeUtf8 if as_levels => {
+                DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View if as_levels => {
                     hinted = true;
-                    let t = DataType::Dictionary(
-                        Box::new(DataType::Int32),
-                        Box::new(f.data_type().clone()),
-                    );
+                    let value = match f.data_type() {
+                        DataType::LargeUtf8 => DataType::LargeUtf8,
+                        _ => DataType::Utf8,
+                    };
+                    let t = DataType::Dictionary(Box::new(DataType::Int32), Box::new(value));
                     Arc::new(f.as_ref().clone().with_data_type(t))
                 }
                 _ => f.clone(),
@@ -398,10 +399,27 @@ fn arrow_column(
             if let Some(d) = a.as_any_dictionary_opt() {
                 // Each dictionary entry is interned once, at its first use in row order, so the
                 // levels keep their order of first appearance in the rows.
-                let text = arrow_cast::cast(d.values(), &DataType::Utf8)
-                    .map_err(|e| arrow_fail(path, e))?;
-                let text = text.as_string::<i32>();
-                let mut map: Vec<Option<u32>> = vec![None; text.len()];
+                // Text dictionaries are read in place (no copy per batch); others are spelled by
+                // Arrow's cast to text.
+                let values = d.values();
+                let cast;
+                let (small, large) =
+                    match (values.as_string_opt::<i32>(), values.as_string_opt::<i64>()) {
+                        (None, None) => {
+                            cast = arrow_cast::cast(values, &DataType::Utf8)
+                                .map_err(|e| arrow_fail(path, e))?;
+                            (cast.as_string_opt::<i32>(), None)
+                        }
+                        other => other,
+                    };
+                let text = |k: usize| -> Option<&str> {
+                    match (small, large) {
+                        (Some(s), _) => (!s.is_null(k)).then(|| s.value(k)),
+                        (_, Some(l)) => (!l.is_null(k)).then(|| l.value(k)),
+                        _ => None,
+                    }
+                };
+                let mut map: Vec<Option<u32>> = vec![None; values.len()];
                 let keys = d.normalized_keys();
                 let nulls = d.keys().logical_nulls();
                 codes.reserve(keys.len());
@@ -413,10 +431,9 @@ fn arrow_column(
                     let code = match map[k] {
                         Some(c) => c,
                         None => {
-                            let c = if text.is_null(k) {
-                                MISSING_CODE
-                            } else {
-                                level_code(col, text.value(k).trim())
+                            let c = match text(k) {
+                                None => MISSING_CODE,
+                                Some(t) => level_code(col, t.trim()),
                             };
                             map[k] = Some(c);
                             c
