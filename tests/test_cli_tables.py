@@ -147,3 +147,76 @@ def test_cli_weights_on_text_and_gaps_equal_the_library(cli: pathlib.Path, tmp_p
     assert s["heating"].isna().any() and s["x2"].isna().any()
     est = sw.LeastSquaresRatio(n_basis=60, seed=4).fit(s, t)
     np.testing.assert_array_equal(cli_w, est.source_weights_)
+
+
+def test_parquet_levels_keep_their_order_of_first_appearance(
+    cli: pathlib.Path, tmp_path: pathlib.Path
+) -> None:
+    # 70,000 rows, more than one 65,536-row batch, written four ways: dictionary pages whose
+    # dictionary is in reverse order of appearance (one row group, and row groups of 30,000 rows
+    # so that a batch spans row groups), plain (non-dictionary) pages, and small pages. A level first seen in
+    # the third row group and one first seen after the first batch must still come in order of
+    # first appearance (pandas.unique returns uniques in order of appearance), with the nulls
+    # counted (pyarrow's null_count), exactly as the same rows read from CSV; `apply` with a key
+    # gives bitwise the CSV weights and the same keys.
+    pd = pytest.importorskip("pandas")
+    n = 70_000
+    rng = np.random.default_rng(11)
+    x1 = np.round(rng.normal(0.0, 1.0, n), 3)
+    heating = np.array(["gas", "heat pump"], dtype=object)[rng.integers(0, 2, n)]
+    heating[40_000::7] = "oil"       # first seen in the second row group
+    heating[66_000::5] = "district"  # first seen after the first 65,536-row batch
+    heating[::31] = None
+    tab = pa.table({
+        "id": [f"r{i}" for i in range(n)],
+        "x1": x1,
+        "heating": pa.array(heating.tolist(), type=pa.string()),
+    })
+    order = list(pd.unique(pd.Series(heating).dropna()))
+    assert sorted(order[:2]) == ["gas", "heat pump"] and order[2:] == ["oil", "district"]
+    gaps = tab.column("heating").null_count
+    pacsv.write_csv(tab, tmp_path / "rows.csv")
+    reversed_dict = pa.DictionaryArray.from_arrays(
+        pa.array([None if v is None else order[::-1].index(v) for v in heating], type=pa.int32()),
+        pa.array(order[::-1]),
+    )
+    # The dictionary column once in one row group (its dictionary pages kept as written, in
+    # reverse order of appearance) and once in row groups of 30,000 rows.
+    pq.write_table(tab.set_column(2, "heating", reversed_dict), tmp_path / "dict.parquet")
+    pq.write_table(tab.set_column(2, "heating", reversed_dict), tmp_path / "dict_groups.parquet",
+                   row_group_size=30_000, compression="snappy")
+    pq.write_table(tab, tmp_path / "plain.parquet", row_group_size=30_000, use_dictionary=False,
+                   compression="zstd")
+    pq.write_table(tab, tmp_path / "pages.parquet", row_group_size=30_000, data_page_size=4096)
+    assert pq.ParquetFile(tmp_path / "dict_groups.parquet").metadata.num_row_groups == 3
+    assert pq.read_table(tmp_path / "dict.parquet").column("heating").chunk(0).dictionary.to_pylist() == order[::-1]
+
+    def run(*a: str) -> str:
+        r = subprocess.run([str(cli), "--quiet", *a], cwd=tmp_path, capture_output=True, text=True)
+        assert r.returncode == 0, r.stderr
+        return r.stdout
+
+    def table_lines(name: str) -> list:
+        return run("columns", "--input", name, "--key", "id").splitlines()[1:]
+
+    want = table_lines("rows.csv")
+    line = next(ln for ln in want if ln.startswith("heating"))
+    assert line.split()[1:3] == ["categorical", str(gaps)], want
+    assert line.split(None, 4)[4] == "(" + ", ".join(f'"{v}"' for v in order) + ")", want
+    for name in ["dict.parquet", "dict_groups.parquet", "plain.parquet", "pages.parquet"]:
+        assert table_lines(name) == want, name
+
+    small = tab.slice(0, 300)
+    pacsv.write_csv(small.slice(0, 150), tmp_path / "s.csv")
+    pacsv.write_csv(small.slice(150, 150), tmp_path / "t.csv")
+    run("weigh", "--source", "s.csv", "--target", "t.csv", "--key", "id", "--estimator", "lsif",
+        "--out", "fit.csv", "--model", "m.json")
+    run("apply", "--model", "m.json", "--input", "rows.csv", "--key", "id", "--out", "a.csv")
+    ref = pacsv.read_csv(tmp_path / "a.csv")
+    assert ref.num_rows == n
+    for name in ["dict.parquet", "dict_groups.parquet", "plain.parquet", "pages.parquet"]:
+        run("apply", "--model", "m.json", "--input", name, "--key", "id", "--out", "a.pq")
+        got = pq.read_table(tmp_path / "a.pq")
+        assert got.column("id").to_pylist() == tab.column("id").to_pylist(), name
+        np.testing.assert_array_equal(got.column("weight").to_numpy(),
+                                      ref.column("weight").to_numpy(), err_msg=name)

@@ -15,24 +15,26 @@
 //! given as numeric is an error naming the file, the data row (1-based, the header not counted)
 //! and the column.
 //!
-//! CSV: quoted fields (holding delimiters, quotes or line breaks), LF or CRLF line ends and a
-//! UTF-8 byte-order mark are handled by the `csv` crate's reader. Field conversion runs column
-//! by column in parallel over a chunk of records. Parquet goes through the Arrow record-batch
-//! reader (uncompressed, snappy, gzip, lz4, zstd and brotli pages; plain and dictionary-encoded
-//! columns; nullable columns). Memory is bounded by the chunk size plus the level dictionaries.
+//! CSV (`csv.rs`): quoted fields (holding delimiters, quotes or line breaks), LF or CRLF line
+//! ends and a UTF-8 byte-order mark are handled by the `csv` crate's reader. Field conversion
+//! runs column by column in parallel over a chunk of records. Parquet (`parquet.rs`) goes through
+//! the Arrow record-batch reader (uncompressed, snappy, gzip, lz4, zstd and brotli pages; plain
+//! and dictionary-encoded columns; nullable columns), only the chosen columns, split into groups
+//! that decode in parallel. Levels are numbered in order of first appearance in the rows, for
+//! both formats. Memory is bounded by the chunk size plus the level dictionaries.
 //!
-//! Cost: O(rows x columns) conversions; each categorical value is one hash-table lookup (once
-//! per dictionary entry for dictionary-encoded Parquet columns).
+//! Cost: O(rows x columns) conversions; each categorical CSV value is one hash-table lookup; a
+//! Parquet text column costs one lookup per dictionary entry used in a batch plus one array index
+//! per row.
+
+mod csv;
+mod parquet;
 
 use crate::io::{ColumnChoice, FileOptions, Format};
 use crate::{exit, Failure};
-use arrow_array::{Array, ArrayRef, RecordBatch};
-use arrow_schema::DataType;
-use rayon::prelude::*;
 use std::collections::HashMap;
 use std::fs::File;
 use std::path::{Path, PathBuf};
-use std::sync::Arc;
 
 /// The code of a missing categorical value.
 pub const MISSING_CODE: u32 = u32::MAX;
@@ -222,10 +224,6 @@ fn parse_number(t: &str) -> Result<f64, Problem> {
     }
 }
 
-fn field_text(bytes: &[u8]) -> std::borrow::Cow<'_, str> {
-    String::from_utf8_lossy(bytes)
-}
-
 pub(crate) fn bad(message: String) -> Failure {
     Failure {
         code: exit::BAD_INPUT,
@@ -240,21 +238,10 @@ pub(crate) fn io_fail(path: &Path, what: &str, e: impl std::fmt::Display) -> Fai
     }
 }
 
+/// Where the rows come from.
 enum Source {
-    Csv {
-        reader: csv::Reader<File>,
-        records: Vec<csv::ByteRecord>,
-        positions: Vec<usize>,
-        key_pos: Option<usize>,
-    },
-    Parquet {
-        batches: parquet::arrow::arrow_reader::ParquetRecordBatchReader,
-        /// Column index in the projected batch of each feature, and of the key.
-        feature_at: Vec<usize>,
-        key_at: Option<usize>,
-        /// A batch partly handed out, and the offset of its first unread row.
-        pending: Option<(RecordBatch, usize)>,
-    },
+    Csv(self::csv::CsvSource),
+    Parquet(self::parquet::ParquetSource),
 }
 
 /// Streams a table in chunks of rows, choosing feature columns by name.
@@ -343,39 +330,13 @@ impl TableReader {
         let file = File::open(path).map_err(|e| io_fail(path, "cannot open", e))?;
         let (source, columns) = match opts.format_of(path) {
             Format::Csv => {
-                let mut reader = csv::ReaderBuilder::new()
-                    .delimiter(opts.delimiter)
-                    .has_headers(true)
-                    .flexible(false)
-                    .from_reader(file);
-                let header: Vec<String> = reader
-                    .headers()
-                    .map_err(|e| csv_fail(path, e))?
-                    .iter()
-                    .map(|h| h.trim().to_string())
-                    .collect();
-                if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-                    return Err(bad(format!(
-                        "`{}` is empty or has no header line",
-                        path.display()
-                    )));
-                }
-                let (positions, key_pos) = resolve(path, &header, choice)?;
-                let columns = positions
-                    .iter()
-                    .map(|&j| ColumnState::new(header[j].clone(), types.of(&header[j])))
-                    .collect();
-                (
-                    Source::Csv {
-                        reader,
-                        records: Vec::new(),
-                        positions,
-                        key_pos,
-                    },
-                    columns,
-                )
+                let (s, c) = self::csv::CsvSource::open(path, file, opts, choice, types)?;
+                (Source::Csv(s), c)
             }
-            Format::Parquet => open_parquet(path, file, choice, types)?,
+            Format::Parquet => {
+                let (s, c) = self::parquet::open_parquet(path, file, choice, types)?;
+                (Source::Parquet(s), c)
+            }
         };
         let names: Vec<String> = columns.iter().map(|c| c.name.clone()).collect();
         types.check(path, &names)?;
@@ -407,95 +368,9 @@ impl TableReader {
         let max_rows = max_rows.max(1);
         let first_row = self.rows_seen + 1;
         let rows = match &mut self.source {
-            Source::Csv {
-                reader,
-                records,
-                positions,
-                key_pos,
-            } => {
-                let mut n = 0;
-                while n < max_rows {
-                    if records.len() == n {
-                        records.push(csv::ByteRecord::new());
-                    }
-                    match reader.read_byte_record(&mut records[n]) {
-                        Ok(false) => break,
-                        Ok(true) => n += 1,
-                        Err(e) => return Err(csv_fail(&self.path, e)),
-                    }
-                }
-                let recs = &records[..n];
-                let path = &self.path;
-                chunk.columns = self
-                    .columns
-                    .par_iter_mut()
-                    .zip(positions.par_iter())
-                    .map(|(col, &j)| csv_column(path, col, recs, j, first_row))
-                    .collect::<Result<Vec<_>, Failure>>()?;
-                chunk.keys = key_pos.map(|k| {
-                    recs.iter()
-                        .map(|r| field_text(r.get(k).unwrap_or(b"")).into_owned())
-                        .collect()
-                });
-                n
-            }
-            Source::Parquet {
-                batches,
-                feature_at,
-                key_at,
-                pending,
-            } => {
-                let mut parts: Vec<RecordBatch> = Vec::new();
-                let mut n = 0;
-                while n < max_rows {
-                    let (batch, off) = match pending.take() {
-                        Some(p) => p,
-                        None => match batches.next() {
-                            None => break,
-                            Some(Err(e)) => return Err(arrow_fail(&self.path, e)),
-                            Some(Ok(b)) => (b, 0),
-                        },
-                    };
-                    let take = (batch.num_rows() - off).min(max_rows - n);
-                    parts.push(batch.slice(off, take));
-                    n += take;
-                    if off + take < batch.num_rows() {
-                        *pending = Some((batch, off + take));
-                    }
-                }
-                let path = &self.path;
-                let cols: Vec<Vec<ArrayRef>> = feature_at
-                    .iter()
-                    .map(|&c| parts.iter().map(|b| b.column(c).clone()).collect())
-                    .collect();
-                chunk.columns = self
-                    .columns
-                    .par_iter_mut()
-                    .zip(cols.par_iter())
-                    .map(|(col, arrays)| {
-                        let mut out = match col.kind {
-                            ColumnType::Numeric => Values::Numeric(Vec::with_capacity(n)),
-                            ColumnType::Categorical => Values::Categorical(Vec::with_capacity(n)),
-                        };
-                        let mut row = first_row;
-                        for a in arrays {
-                            arrow_column(path, col, a, row, &mut out)?;
-                            row += a.len();
-                        }
-                        Ok(out)
-                    })
-                    .collect::<Result<Vec<_>, Failure>>()?;
-                chunk.keys = match key_at {
-                    Some(k) => {
-                        let mut keys = Vec::with_capacity(n);
-                        for b in &parts {
-                            arrow_text(path, b.column(*k), &mut keys)?;
-                        }
-                        Some(keys)
-                    }
-                    None => None,
-                };
-                n
+            Source::Csv(s) => s.read(&self.path, &mut self.columns, first_row, max_rows, chunk)?,
+            Source::Parquet(s) => {
+                s.read(&self.path, &mut self.columns, first_row, max_rows, chunk)?
             }
         };
         self.rows_seen += rows;
@@ -544,305 +419,12 @@ impl TableReader {
     }
 }
 
-/// Converts field `j` of `recs` for one column. A column not fixed to numeric turns categorical
-/// at the first non-numeric, non-missing text.
-fn csv_column(
-    path: &Path,
-    col: &mut ColumnState,
-    recs: &[csv::ByteRecord],
-    j: usize,
-    first_row: usize,
-) -> Result<Values, Failure> {
-    let text = |r| trimmed(r, j);
-    if col.kind == ColumnType::Numeric {
-        let mut out = Vec::with_capacity(recs.len());
-        let mut switch_at = None;
-        for (i, r) in recs.iter().enumerate() {
-            let t = text(r);
-            match parse_number(&t) {
-                Ok(v) => out.push(v),
-                Err(Problem::Missing) => out.push(f64::NAN),
-                Err(Problem::NotNumeric) if col.fixed => {
-                    return Err(TableReader::not_numeric(path, first_row + i, &col.name, &t));
-                }
-                Err(Problem::NotNumeric) => {
-                    switch_at = Some(i);
-                    break;
-                }
-            }
-        }
-        let Some(at) = switch_at else {
-            return Ok(Values::Numeric(out));
-        };
-        col.kind = ColumnType::Categorical;
-        let mut codes = col.numbers_to_codes(&out);
-        codes.reserve(recs.len() - at);
-        for r in &recs[at..] {
-            codes.push(level_code(col, &text(r)));
-        }
-        return Ok(Values::Categorical(codes));
-    }
-    Ok(Values::Categorical(
-        recs.iter().map(|r| level_code(col, &text(r))).collect(),
-    ))
-}
-
-/// Field `j` of a record, spaces trimmed (invalid UTF-8 replaced).
-fn trimmed(r: &csv::ByteRecord, j: usize) -> std::borrow::Cow<'_, str> {
-    let b = r.get(j).unwrap_or(b"");
-    match std::str::from_utf8(b) {
-        Ok(s) => std::borrow::Cow::Borrowed(s.trim()),
-        Err(_) => std::borrow::Cow::Owned(String::from_utf8_lossy(b).trim().to_string()),
-    }
-}
-
 fn level_code(col: &mut ColumnState, t: &str) -> u32 {
     if MISSING_TOKENS.contains(&t) {
         MISSING_CODE
     } else {
         col.intern(t)
     }
-}
-
-/// Appends one Arrow column slice to `out`, in the column's type.
-fn arrow_column(
-    path: &Path,
-    col: &mut ColumnState,
-    a: &ArrayRef,
-    first_row: usize,
-    out: &mut Values,
-) -> Result<(), Failure> {
-    use arrow_array::cast::AsArray;
-    match out {
-        Values::Numeric(v) => {
-            if is_text(a.data_type()) {
-                // A text column given as numeric: parse every value.
-                let mut texts = Vec::with_capacity(a.len());
-                arrow_optional_text(path, a, &mut texts)?;
-                for (i, t) in texts.into_iter().enumerate() {
-                    match t.as_deref().map(str::trim) {
-                        None => v.push(f64::NAN),
-                        Some(s) => match parse_number(s) {
-                            Ok(x) => v.push(x),
-                            Err(Problem::Missing) => v.push(f64::NAN),
-                            Err(Problem::NotNumeric) => {
-                                return Err(TableReader::not_numeric(
-                                    path,
-                                    first_row + i,
-                                    &col.name,
-                                    s,
-                                ))
-                            }
-                        },
-                    }
-                }
-                return Ok(());
-            }
-            let f = arrow_cast::cast(a, &DataType::Float64).map_err(|_| {
-                bad(format!(
-                    "column `{}` of `{}` has the Parquet/Arrow type {}, which cannot be read as \
-                     numbers or levels; leave it out with --exclude {}",
-                    col.name,
-                    path.display(),
-                    a.data_type(),
-                    col.name
-                ))
-            })?;
-            let f = f.as_primitive::<arrow_array::types::Float64Type>();
-            if f.null_count() == 0 {
-                v.extend(
-                    f.values()
-                        .iter()
-                        .map(|&x| if x.is_finite() { x } else { f64::NAN }),
-                );
-            } else {
-                v.extend(f.iter().map(|x| match x {
-                    Some(x) if x.is_finite() => x,
-                    _ => f64::NAN,
-                }));
-            }
-            if let Some(i) = f.values().iter().position(|x| x.is_infinite()) {
-                return Err(bad(format!(
-                    "`{}`, data row {} (1-based), column `{}`: an infinite value",
-                    path.display(),
-                    first_row + i,
-                    col.name
-                )));
-            }
-            Ok(())
-        }
-        Values::Categorical(codes) => {
-            if let Some(d) = a.as_any_dictionary_opt() {
-                // Intern each dictionary entry once, then map the keys.
-                let map = level_codes(path, col, d.values())?;
-                let keys = d.normalized_keys();
-                let nulls = d.keys().logical_nulls();
-                for (i, k) in keys.into_iter().enumerate() {
-                    let null = nulls.as_ref().is_some_and(|n| n.is_null(i));
-                    codes.push(if null { MISSING_CODE } else { map[k] });
-                }
-                return Ok(());
-            }
-            codes.extend(level_codes(path, col, a)?);
-            Ok(())
-        }
-    }
-}
-
-/// The level code of every value of an Arrow array (numbers and booleans spelled by Arrow's cast
-/// to text; null as missing).
-fn level_codes(path: &Path, col: &mut ColumnState, a: &dyn Array) -> Result<Vec<u32>, Failure> {
-    use arrow_array::cast::AsArray;
-    let s = arrow_cast::cast(a, &DataType::Utf8).map_err(|e| arrow_fail(path, e))?;
-    Ok(s.as_string::<i32>()
-        .iter()
-        .map(|t| match t {
-            Some(t) => level_code(col, t.trim()),
-            None => MISSING_CODE,
-        })
-        .collect())
-}
-
-fn is_text(t: &DataType) -> bool {
-    match t {
-        DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => true,
-        DataType::Dictionary(_, v) => is_text(v),
-        _ => false,
-    }
-}
-
-/// Whether an Arrow type is read as categorical when no type is given.
-fn is_categorical_type(t: &DataType) -> bool {
-    match t {
-        DataType::Boolean => true,
-        DataType::Dictionary(_, v) => is_categorical_type(v),
-        other => is_text(other),
-    }
-}
-
-/// The values of an Arrow array as optional text (None for null); numbers and booleans are
-/// spelled by Arrow's cast to text.
-fn arrow_optional_text(
-    path: &Path,
-    a: &dyn Array,
-    out: &mut Vec<Option<String>>,
-) -> Result<(), Failure> {
-    use arrow_array::cast::AsArray;
-    let s = arrow_cast::cast(a, &DataType::Utf8).map_err(|e| arrow_fail(path, e))?;
-    let s = s.as_string::<i32>();
-    out.extend(s.iter().map(|x| x.map(str::to_string)));
-    Ok(())
-}
-
-/// Key column values as text (null as the empty string).
-fn arrow_text(path: &Path, a: &ArrayRef, out: &mut Vec<String>) -> Result<(), Failure> {
-    let mut t = Vec::with_capacity(a.len());
-    arrow_optional_text(path, a, &mut t)?;
-    out.extend(t.into_iter().map(Option::unwrap_or_default));
-    Ok(())
-}
-
-fn csv_fail(path: &Path, e: csv::Error) -> Failure {
-    let code = if e.is_io_error() {
-        exit::IO
-    } else {
-        exit::BAD_INPUT
-    };
-    let at = e
-        .position()
-        .map(|p| format!(" (line {})", p.line()))
-        .unwrap_or_default();
-    let detail = match e.kind() {
-        csv::ErrorKind::UnequalLengths {
-            expected_len, len, ..
-        } => {
-            format!("a line has {len} fields but the header has {expected_len}")
-        }
-        _ => e.to_string(),
-    };
-    Failure {
-        code,
-        message: format!("cannot read `{}`{at}: {detail}", path.display()),
-    }
-}
-
-fn parquet_fail(path: &Path, e: parquet::errors::ParquetError) -> Failure {
-    let code = match e {
-        parquet::errors::ParquetError::External(_) => exit::IO,
-        _ => exit::BAD_INPUT,
-    };
-    Failure {
-        code,
-        message: format!("cannot read Parquet file `{}`: {e}", path.display()),
-    }
-}
-
-fn arrow_fail(path: &Path, e: arrow_schema::ArrowError) -> Failure {
-    let code = match e {
-        arrow_schema::ArrowError::IoError(..) => exit::IO,
-        _ => exit::BAD_INPUT,
-    };
-    Failure {
-        code,
-        message: format!("cannot read Parquet file `{}`: {e}", path.display()),
-    }
-}
-
-fn open_parquet(
-    path: &Path,
-    file: File,
-    choice: &ColumnChoice,
-    types: &TypeOverrides,
-) -> Result<(Source, Vec<ColumnState>), Failure> {
-    use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
-    use parquet::arrow::ProjectionMask;
-    let builder =
-        ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| parquet_fail(path, e))?;
-    let schema: Arc<arrow_schema::Schema> = builder.schema().clone();
-    let header: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
-    let (positions, key_pos) = resolve(path, &header, choice)?;
-    let mut columns = Vec::with_capacity(positions.len());
-    for &j in &positions {
-        let f = schema.field(j);
-        let t = f.data_type();
-        if t.is_nested() {
-            return Err(bad(format!(
-                "column `{}` of `{}` is nested ({t}); only plain columns can be features",
-                header[j],
-                path.display()
-            )));
-        }
-        let kind = types.of(&header[j]).or(if is_categorical_type(t) {
-            Some(ColumnType::Categorical)
-        } else {
-            Some(ColumnType::Numeric)
-        });
-        let mut c = ColumnState::new(header[j].clone(), kind);
-        c.given = types.of(&header[j]).is_some();
-        columns.push(c);
-    }
-    // The batches hold the projected columns in file order.
-    let mut proj: Vec<usize> = positions.clone();
-    proj.extend(key_pos);
-    proj.sort_unstable();
-    let at = |j: usize| proj.iter().position(|&p| p == j).unwrap_or(0);
-    let feature_at = positions.iter().map(|&j| at(j)).collect();
-    let key_at = key_pos.map(at);
-    let mask = ProjectionMask::roots(builder.parquet_schema(), proj.iter().copied());
-    let batches = builder
-        .with_projection(mask)
-        .with_batch_size(65_536)
-        .build()
-        .map_err(|e| parquet_fail(path, e))?;
-    Ok((
-        Source::Parquet {
-            batches,
-            feature_at,
-            key_at,
-            pending: None,
-        },
-        columns,
-    ))
 }
 
 /// A whole table in memory, columns typed.
