@@ -114,6 +114,8 @@ impl WeightedLogistic {
             intercept,
             l2: self.l2,
             n_iter,
+            encoding: None,
+            warnings: Vec::new(),
         })
     }
 }

@@ -10,6 +10,14 @@
 //! - [`WeightedRidge`] minimises `sum_i w_i (y_i - x_i beta - b)^2 + l2 |beta|^2`: scikit-learn's
 //!   `Ridge(alpha = l2)` with `sample_weight`. One pass, O(n p^2 + p^3).
 //!
+//! Both also fit on typed tables ([`WeightedRidge::fit_table`], [`WeightedLogistic::fit_table`]):
+//! the encoding of [`crate::table`] (numeric columns standardised with a missing indicator when
+//! needed, categorical columns one-hot) is fitted on the training rows alone
+//! ([`TableEncoding::fit_rows`]), the model is fitted on the encoded matrix, and the encoding is
+//! stored in the model, which then predicts on tables by column name
+//! ([`LinearModel::predict_table`]). The coefficients and the penalty then act on the encoded
+//! columns ([`LinearModel::feature_names`]).
+//!
 //! Fitted models are [`LinearModel`] values that serialise to the model file format
 //! `shiftweight.linear-model`, so a service can train or load and predict without Python:
 //!
@@ -33,21 +41,29 @@
 pub use crate::data::validate_weights;
 mod logistic;
 mod ridge;
+mod table;
 #[cfg(test)]
 mod tests;
 
 pub use logistic::WeightedLogistic;
 pub(crate) use logistic::{fit_logistic_unchecked, fit_logistic_warm};
 pub use ridge::WeightedRidge;
+pub use table::TablePredictions;
 
 use crate::data::MatrixView;
 use crate::error::{Error, Result};
 use crate::model;
+use crate::table::TableEncoding;
 
 use serde::{Deserialize, Serialize};
 
 /// Format tag of linear-model files.
 pub const LINEAR_MODEL_FORMAT: &str = "shiftweight.linear-model";
+/// Version written for a model fitted on a typed table (2: adds the table encoding); a model
+/// fitted on a matrix is written at version 1, readable by every release.
+pub const LINEAR_MODEL_VERSION: u64 = 2;
+/// Versions of linear-model files this library reads.
+pub const LINEAR_MODEL_VERSIONS_READ: [u64; 2] = [1, 2];
 
 /// Which loss a linear model was fitted with.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -72,6 +88,14 @@ pub struct LinearModel {
     pub l2: f64,
     /// Newton iterations used (0 for ridge).
     pub n_iter: usize,
+    /// The typed-table encoding when the model was fitted on a table (the coefficients are then
+    /// those of its encoded columns); absent for models fitted on matrices.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub encoding: Option<TableEncoding>,
+    /// Plain-language warnings raised by the encoding when fitting on a table (for instance rare
+    /// levels pooled).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub warnings: Vec<String>,
 }
 
 impl LinearModel {
@@ -114,17 +138,36 @@ impl LinearModel {
             .map(sigmoid)
             .collect())
     }
-    /// The model file document.
+    /// The model file document: version 1 for a model fitted on a matrix, version
+    /// [`LINEAR_MODEL_VERSION`] (with the encoding) for one fitted on a table.
     pub fn to_json(&self) -> Result<String> {
-        model::to_json_tagged(LINEAR_MODEL_FORMAT, self)
+        let version = if self.encoding.is_some() {
+            LINEAR_MODEL_VERSION
+        } else {
+            model::MODEL_VERSION
+        };
+        model::to_json_versioned(LINEAR_MODEL_FORMAT, version, self)
     }
-    /// Loads a linear model document.
+    /// Loads a linear model document of any version in [`LINEAR_MODEL_VERSIONS_READ`], rejecting
+    /// other formats and versions, non-finite coefficients and an encoding whose width differs
+    /// from the number of coefficients.
     pub fn from_json(text: &str) -> Result<Self> {
-        let m: LinearModel = model::from_json_tagged(LINEAR_MODEL_FORMAT, text)?;
+        let m: LinearModel =
+            model::from_json_versioned(LINEAR_MODEL_FORMAT, &LINEAR_MODEL_VERSIONS_READ, text)?;
         if m.coef.is_empty() || m.coef.iter().any(|v| !v.is_finite()) || !m.intercept.is_finite() {
             return Err(Error::ModelFile(
                 "linear model has no or non-finite coefficients".into(),
             ));
+        }
+        if let Some(enc) = &m.encoding {
+            enc.check()?;
+            if enc.width() != m.coef.len() {
+                return Err(Error::ModelFile(format!(
+                    "the table encoding gives {} columns but the linear model has {} coefficients",
+                    enc.width(),
+                    m.coef.len()
+                )));
+            }
         }
         Ok(m)
     }

@@ -148,6 +148,8 @@ impl WeightedRidge {
             intercept,
             l2: self.l2,
             n_iter: 0,
+            encoding: None,
+            warnings: Vec::new(),
         })
     }
 }

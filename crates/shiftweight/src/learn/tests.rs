@@ -136,3 +136,197 @@ fn warm_start_of_the_wrong_length_or_not_finite_is_rejected() {
         assert!(e.to_string().contains("warm start"), "{e}");
     }
 }
+
+/// A small typed table: `temp` (numeric, one missing value), `heating` (categorical), and the
+/// targets y = 2 temp + level effect + a deterministic wiggle.
+fn typed_rows() -> (crate::table::Table, Vec<f64>, Vec<f64>) {
+    use crate::table::{Column, Table};
+    let n = 24;
+    let levels = ["gas", "oil", "heat pump"];
+    let temp: Vec<f64> = (0..n)
+        .map(|i| {
+            if i == 5 {
+                f64::NAN
+            } else {
+                (i as f64 * 0.7).sin() * 6.0 + 10.0
+            }
+        })
+        .collect();
+    let heating: Vec<Option<String>> = (0..n)
+        .map(|i| Some(levels[(i * 7) % 3].to_string()))
+        .collect();
+    let y: Vec<f64> = (0..n)
+        .map(|i| {
+            let t = if temp[i].is_nan() { 10.0 } else { temp[i] };
+            2.0 * t + [0.0, 3.0, -1.0][(i * 7) % 3] + ((i * 13) % 5) as f64 * 0.1
+        })
+        .collect();
+    let w: Vec<f64> = (0..n).map(|i| 0.5 + (i % 4) as f64 * 0.5).collect();
+    let table = Table::new(vec![
+        Column::numeric("temp", temp).unwrap(),
+        Column::from_text("heating", &heating, None).unwrap(),
+    ])
+    .unwrap();
+    (table, y, w)
+}
+
+#[test]
+fn ridge_on_a_table_is_ridge_on_the_documented_encoding() {
+    // Reference: the encoding as crate::table's module documentation defines it, written out by
+    // hand: temp -> (temp - mean) / sd (sample sd of the present values), missing -> 0 with an
+    // indicator column; heating -> one 0/1 column per level, most frequent first (ties by name).
+    let (table, y, w) = typed_rows();
+    let crate::table::ColumnData::Numeric(temp) = table.column("temp").unwrap().data() else {
+        unreachable!()
+    };
+    let present: Vec<f64> = temp.iter().copied().filter(|v| !v.is_nan()).collect();
+    let mean = present.iter().sum::<f64>() / present.len() as f64;
+    let sd = (present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (present.len() - 1) as f64)
+        .sqrt();
+    let heating = table.column("heating").unwrap();
+    // 24 rows, i * 7 mod 3 cycles through all three levels: 8 rows each, so the order is by name.
+    let order = ["gas", "heat pump", "oil"];
+    let mut z = Vec::new();
+    for (i, t) in temp.iter().enumerate() {
+        z.push(if t.is_nan() { 0.0 } else { (t - mean) / sd });
+        z.push(if t.is_nan() { 1.0 } else { 0.0 });
+        for l in order {
+            z.push(f64::from(heating.level(i) == Some(l)));
+        }
+    }
+    let by_hand = WeightedRidge::new()
+        .l2(0.7)
+        .fit(MatrixView::new(&z, 24, 5).unwrap(), &y, Some(&w))
+        .unwrap();
+    let m = WeightedRidge::new()
+        .l2(0.7)
+        .fit_table(&table, &y, Some(&w))
+        .unwrap();
+    assert_eq!(
+        m.feature_names().unwrap(),
+        [
+            "temp",
+            "temp (missing)",
+            "heating=gas",
+            "heating=heat pump",
+            "heating=oil"
+        ]
+    );
+    for (a, b) in m
+        .coef
+        .iter()
+        .chain([&m.intercept])
+        .zip(by_hand.coef.iter().chain([&by_hand.intercept]))
+    {
+        assert!((a - b).abs() <= 1e-12 * (1.0 + b.abs()), "{a} vs {b}");
+    }
+}
+
+#[test]
+fn table_predictions_find_columns_by_name() {
+    use crate::table::{Column, Table};
+    let (table, y, w) = typed_rows();
+    let m = WeightedRidge::new()
+        .fit_table(&table, &y, Some(&w))
+        .unwrap();
+    let p = m.predict_table(&table).unwrap();
+    assert!(p.unseen.is_empty());
+    // Columns in another order plus an extra column: the same values, bit for bit.
+    let cols = table.columns();
+    let extra = Column::numeric("meter", vec![1.0; 24]).unwrap();
+    let shuffled = Table::new(vec![extra, cols[1].clone(), cols[0].clone()]).unwrap();
+    assert_eq!(m.predict_table(&shuffled).unwrap().values, p.values);
+    // A missing column is an error naming it.
+    let short = Table::new(vec![cols[0].clone()]).unwrap();
+    let e = m.predict_table(&short).unwrap_err().to_string();
+    assert!(e.contains("heating"), "{e}");
+    // A matrix-fitted model has no table encoding and says so.
+    let e = WeightedRidge::new()
+        .fit(
+            MatrixView::new(&[0.0, 1.0, 2.0], 3, 1).unwrap(),
+            &[0.0, 1.0, 3.0],
+            None,
+        )
+        .unwrap()
+        .predict_table(&table)
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("matrix"), "{e}");
+}
+
+#[test]
+fn an_unseen_level_is_counted_and_encoded_as_no_level() {
+    use crate::table::{Column, Table};
+    let (table, y, w) = typed_rows();
+    let m = WeightedRidge::new()
+        .fit_table(&table, &y, Some(&w))
+        .unwrap();
+    // Documented in crate::table: an unseen level gives 0 in every column of its block, so the
+    // prediction is the intercept plus the numeric part alone.
+    let new = Table::new(vec![
+        Column::numeric("temp", vec![12.0, 12.0]).unwrap(),
+        Column::from_text(
+            "heating",
+            &[Some("wood".to_string()), Some("gas".to_string())],
+            None,
+        )
+        .unwrap(),
+    ])
+    .unwrap();
+    let p = m.predict_table(&new).unwrap();
+    let crate::table::ColumnEncoding::Numeric { mean, scale, .. } =
+        &m.encoding.as_ref().unwrap().columns[0]
+    else {
+        unreachable!()
+    };
+    let expected = m.intercept + m.coef[0] * (12.0 - mean) / scale;
+    assert!((p.values[0] - expected).abs() <= 1e-12 * expected.abs());
+    assert!((p.values[1] - (expected + m.coef[2])).abs() <= 1e-12 * expected.abs());
+    assert_eq!(p.unseen.len(), 1);
+    assert_eq!(
+        (
+            p.unseen[0].column.as_str(),
+            p.unseen[0].level.as_deref(),
+            p.unseen[0].rows,
+            p.unseen[0].first_row
+        ),
+        ("heating", Some("wood"), 1, 0)
+    );
+}
+
+#[test]
+fn logistic_on_a_table_predicts_on_tables_and_its_file_keeps_the_encoding() {
+    let (table, y, w) = typed_rows();
+    let labels: Vec<f64> = y.iter().map(|v| f64::from(*v > 20.0)).collect();
+    let m = WeightedLogistic::new()
+        .fit_table(&table, &labels, Some(&w))
+        .unwrap();
+    let proba = m.predict_proba_table(&table).unwrap().values;
+    let eta = m.decision_function_table(&table).unwrap().values;
+    for (p, e) in proba.iter().zip(&eta) {
+        assert_eq!(*p, sigmoid(*e));
+    }
+    let text = m.to_json().unwrap();
+    assert!(text.contains("\"version\":2"), "{text}");
+    let back = LinearModel::from_json(&text).unwrap();
+    assert_eq!(back, m);
+    assert_eq!(back.predict_proba_table(&table).unwrap().values, proba);
+    // A model fitted on a matrix is still written at version 1, without an encoding.
+    let plain = WeightedRidge::new()
+        .fit(
+            MatrixView::new(&[0.0, 1.0, 2.0], 3, 1).unwrap(),
+            &[0.0, 1.0, 3.0],
+            None,
+        )
+        .unwrap()
+        .to_json()
+        .unwrap();
+    assert!(
+        plain.contains("\"version\":1") && !plain.contains("encoding"),
+        "{plain}"
+    );
+    // An encoding whose width does not match the coefficients is refused.
+    let broken = text.replacen("\"coef\":[", "\"coef\":[1.0,", 1);
+    let e = LinearModel::from_json(&broken).unwrap_err().to_string();
+    assert!(e.contains("encoding"), "{e}");
+}
