@@ -112,7 +112,7 @@ def test_pandas_polars_and_pyarrow_give_bitwise_equal_predictions(demo):
         "pyarrow": (pa.Table.from_pandas(s, preserve_index=False), pa.Table.from_pandas(t, preserve_index=False)),
     }
     preds = []
-    for fs, ft in frames.values():
+    for fs, _ in frames.values():
         m = sw.WeightedRidge(l2=0.5).fit(fs, y, sample_weight=w)
         preds += [m.predict(g) for _, g in frames.values()]
     assert all(np.array_equal(p, preds[0]) for p in preds[1:])

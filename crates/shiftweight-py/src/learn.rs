@@ -89,7 +89,10 @@ impl LinearModel {
         x: &PyTable,
     ) -> PyResult<TableOut<'py>> {
         let (m, t) = (self.inner.clone(), x.inner.clone());
-        Ok(table_out(py, detached(py, move || m.decision_function_table(&t))?))
+        Ok(table_out(
+            py,
+            detached(py, move || m.decision_function_table(&t))?,
+        ))
     }
     fn predict_table<'py>(&self, py: Python<'py>, x: &PyTable) -> PyResult<TableOut<'py>> {
         let (m, t) = (self.inner.clone(), x.inner.clone());
@@ -97,7 +100,10 @@ impl LinearModel {
     }
     fn predict_proba_table<'py>(&self, py: Python<'py>, x: &PyTable) -> PyResult<TableOut<'py>> {
         let (m, t) = (self.inner.clone(), x.inner.clone());
-        Ok(table_out(py, detached(py, move || m.predict_proba_table(&t))?))
+        Ok(table_out(
+            py,
+            detached(py, move || m.predict_proba_table(&t))?,
+        ))
     }
     fn decision_function<'py>(
         &self,
@@ -128,9 +134,7 @@ impl LinearModel {
     }
     #[staticmethod]
     fn from_json(text: &str) -> PyResult<Self> {
-        CoreLinear::from_json(text)
-            .map(Self::wrap)
-            .map_err(to_py)
+        CoreLinear::from_json(text).map(Self::wrap).map_err(to_py)
     }
     fn __reduce__(slf: &Bound<'_, Self>) -> PyResult<(Py<PyAny>, (String,))> {
         let f = slf
