@@ -189,7 +189,7 @@ def test_check_overlap_counts_levels_absent_from_the_source():
 
 def test_public_functions_take_the_demo_tables(tmp_path):
     # The demo's recorded tables (categorical `heating`, gaps in `home_age_years`) through every
-    # public function that takes rows; learners (WeightedRidge, WeightedLogistic) take numbers.
+    # public function that takes rows (the learners: tests/test_learn_tables.py).
     d = sw.demo_data(300, 150, seed=1, as_frame=True)
     s, t = d["source"], d["target"]
     rows = {r["feature"]: r for r in sw.feature_shift(s, t, repeats=2).to_dict()["rows"]}
@@ -208,5 +208,5 @@ def test_public_functions_take_the_demo_tables(tmp_path):
     assert rep.n_outside_support == 0 and rep.support_gaps == []
     summary = sw.write_report(s, t, tmp_path / "r.html", permutations=9)
     assert "heating" in (tmp_path / "r.html").read_text() and summary
-    with pytest.raises(sw.ShiftweightError, match="heating"):
-        sw.WeightedRidge().fit(s, d["y_source"])
+    model = sw.WeightedRidge().fit(s, d["y_source"], sample_weight=est.ratio(s))
+    assert "heating=gas" in model.feature_names_in_ and model.predict(t).shape == (len(t),)

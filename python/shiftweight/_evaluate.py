@@ -55,12 +55,14 @@ def _n_rows(X: Any) -> int:
 
 
 def _take(X: Any, idx: np.ndarray) -> Any:
-    """Rows ``idx`` of an array, a pandas/polars frame or series, or a sequence."""
+    """Rows ``idx`` of an array, a pandas/polars frame or series, a pyarrow Table, or a sequence."""
     if hasattr(X, "iloc"):
         return X.iloc[idx]
     mod = type(X).__module__.split(".")[0]
     if mod == "polars":
         return X[idx]
+    if mod == "pyarrow" and hasattr(X, "take"):
+        return X.take(idx)
     if isinstance(X, np.ndarray):
         return X[idx]
     return np.asarray(X)[idx]

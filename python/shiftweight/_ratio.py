@@ -16,7 +16,7 @@ import numpy as np
 
 from . import _native
 from ._base import ParamsMixin
-from ._tables import as_table, is_table_input, plain
+from ._tables import as_table, is_table_input, plain, report_unseen
 from ._validation import NotFittedError, as_count, as_matrix, as_seed, as_vector, check_same_columns
 
 __all__ = [
@@ -122,19 +122,7 @@ class RatioEstimatorBase(ParamsMixin):
             num = [n for n, k in schema if k == "numeric"]
             table = as_table(X, "X", cat, num, columns=[n for n, _ in schema])
             w, unseen = _native.ratio_table(model, table)
-            self.unseen_ = [
-                {"column": c, "level": lv, "rows": r, "first_row": f} for c, lv, r, f in unseen
-            ]
-            if unseen:
-                parts = ", ".join(
-                    f"{r} row(s) with {'a missing value' if lv is None else repr(lv)} in {c!r}"
-                    for c, lv, r, _ in unseen
-                )
-                warnings.warn(
-                    f"values never seen when fitting: {parts}; those rows are scored as documented "
-                    "(an extrapolation: no source row resembles them)",
-                    stacklevel=2,
-                )
+            self.unseen_ = report_unseen(unseen)
             return w
         x, names = as_matrix(plain(X), "X")
         if x.shape[1] != model.n_features:

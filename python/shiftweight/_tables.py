@@ -18,13 +18,14 @@ Column types as they arrive:
 
 from __future__ import annotations
 
-from typing import Any, List, Optional, Sequence, Tuple
+import warnings
+from typing import Any, Dict, List, Optional, Sequence, Tuple
 
 import numpy as np
 
 from . import _native
 
-__all__ = ["is_table_input", "as_table", "plain"]
+__all__ = ["is_table_input", "as_table", "plain", "report_unseen"]
 
 
 def plain(x: Any) -> Any:
@@ -220,3 +221,18 @@ def as_table(
     if not specs:
         raise _native.ShiftweightError(f"`{name}` has no columns to use")
     return _native.Table(specs)
+
+
+def report_unseen(unseen: List[Tuple[str, Optional[str], int, int]], stacklevel: int = 3) -> List[Dict[str, Any]]:
+    """The core's counts of values never seen when fitting, as dicts (the ``unseen_`` attribute);
+    warns once naming them when there are any."""
+    if unseen:
+        parts = ", ".join(
+            f"{r} row(s) with {'a missing value' if lv is None else repr(lv)} in {c!r}" for c, lv, r, _ in unseen
+        )
+        warnings.warn(
+            f"values never seen when fitting: {parts}; those rows are scored as documented "
+            "(an extrapolation: no source row resembles them)",
+            stacklevel=stacklevel,
+        )
+    return [{"column": c, "level": lv, "rows": r, "first_row": f} for c, lv, r, f in unseen]

@@ -60,9 +60,9 @@ pub trait RatioEstimator {
 /// A ratio estimator that can be sent across threads, as the automatic choice holds them.
 pub type BoxedEstimator = Box<dyn RatioEstimator + Send + Sync>;
 
-/// Rows encoded at a time by [`FittedRatio::ratio_table`], so that memory stays flat in the
-/// number of rows.
-const TABLE_BLOCK_ROWS: usize = 32 * CHUNK_ROWS;
+/// Rows encoded at a time by [`FittedRatio::ratio_table`] and [`crate::learn::LinearModel::predict_table`],
+/// so that memory stays flat in the number of rows.
+pub(crate) const TABLE_BLOCK_ROWS: usize = 32 * CHUNK_ROWS;
 
 /// The ratio at the rows of a typed table, and the values the model never saw.
 #[derive(Debug, Clone, PartialEq)]
@@ -360,25 +360,9 @@ impl FittedRatio {
         let mut unseen: Vec<UnseenValues> = Vec::new();
         match &self.encoding {
             Some(enc) => {
-                let mut start = 0;
-                while start < n {
-                    let end = (start + TABLE_BLOCK_ROWS).min(n);
-                    let e = enc.encode_rows(table, "X", start, end)?;
-                    self.ratio_into(e.matrix.view(), &mut weights[start..end])?;
-                    for u in e.unseen {
-                        match unseen
-                            .iter_mut()
-                            .find(|v| v.column == u.column && v.level == u.level)
-                        {
-                            Some(v) => v.rows += u.rows,
-                            None => unseen.push(UnseenValues {
-                                first_row: u.first_row + start,
-                                ..u
-                            }),
-                        }
-                    }
-                    start = end;
-                }
+                unseen = enc.encode_in_blocks(table, "X", TABLE_BLOCK_ROWS, |start, end, x| {
+                    self.ratio_into(x, &mut weights[start..end])
+                })?;
             }
             None => {
                 let d = self.n_features();

@@ -1,5 +1,6 @@
 //! The encoding of a typed table into the numeric matrix the estimators work on, fitted on the
-//! pooled source and target rows and stored in the model file.
+//! pooled source and target rows ([`TableEncoding::fit`]) or, for a learner, on its training rows
+//! ([`TableEncoding::fit_rows`]), and stored in the model file.
 //!
 //! # Encoded columns
 //! - A **numeric** column `x` gives `(x - mean) / sd`, with the mean and standard deviation of its
@@ -177,7 +178,7 @@ impl TableEncoding {
         let mut columns = Vec::with_capacity(source.n_columns());
         for s in source.columns() {
             let t = aligned(s.kind(), target, s.name(), "target")?;
-            columns.push(fit_column(s, &t, &mut warnings));
+            columns.push(fit_column(&[s, &t], &mut warnings));
         }
         for t in target.columns() {
             if source.column(t.name()).is_none() {
@@ -187,6 +188,20 @@ impl TableEncoding {
                 ));
             }
         }
+        Ok((Self { columns }, warnings))
+    }
+
+    /// Fits on the rows of one table (the training rows of a learner, see
+    /// [`crate::learn`]): the same encoding as [`TableEncoding::fit`], with the means, scales,
+    /// levels and missing indicators taken from `table` alone. Returns the encoding and
+    /// plain-language warnings.
+    pub fn fit_rows(table: &Table) -> Result<(Self, Vec<String>)> {
+        let mut warnings = Vec::new();
+        let columns = table
+            .columns()
+            .iter()
+            .map(|c| fit_column(&[c], &mut warnings))
+            .collect();
         Ok((Self { columns }, warnings))
     }
 
@@ -248,6 +263,41 @@ impl TableEncoding {
             matrix: Matrix::new(out, n, w)?,
             unseen,
         })
+    }
+
+    /// Encodes the rows of `table` (named `argument` in errors) in blocks of at most `block`
+    /// rows, handing each block to `f` as `(start, end, matrix)`, so that memory stays flat in
+    /// the number of rows. Returns the values never seen when fitting, merged over the blocks per
+    /// column and level (row numbers count from the table's first row).
+    pub fn encode_in_blocks(
+        &self,
+        table: &Table,
+        argument: &str,
+        block: usize,
+        mut f: impl FnMut(usize, usize, crate::data::MatrixView) -> Result<()>,
+    ) -> Result<Vec<UnseenValues>> {
+        let n = table.rows();
+        let mut unseen: Vec<UnseenValues> = Vec::new();
+        let mut start = 0;
+        while start < n {
+            let end = (start + block.max(1)).min(n);
+            let e = self.encode_rows(table, argument, start, end)?;
+            f(start, end, e.matrix.view())?;
+            for u in e.unseen {
+                match unseen
+                    .iter_mut()
+                    .find(|v| v.column == u.column && v.level == u.level)
+                {
+                    Some(v) => v.rows += u.rows,
+                    None => unseen.push(UnseenValues {
+                        first_row: u.first_row + start,
+                        ..u
+                    }),
+                }
+            }
+            start = end;
+        }
+        Ok(unseen)
     }
 
     /// Checks internal consistency after loading from a model file.
@@ -331,12 +381,23 @@ pub(crate) fn aligned<'a>(
         })
 }
 
-fn fit_column(s: &Column, t: &Column, warnings: &mut Vec<String>) -> ColumnEncoding {
-    let name = s.name().to_string();
-    let any_missing = s.n_missing() + t.n_missing() > 0;
-    match (s.data(), t.data()) {
-        (ColumnData::Numeric(a), ColumnData::Numeric(b)) => {
-            let present = || a.iter().chain(b).filter(|v| !v.is_nan());
+/// The encoding of one column fitted on the pooled rows of `parts` (the same column of one or
+/// more tables, all of the first one's type).
+fn fit_column(parts: &[&Column], warnings: &mut Vec<String>) -> ColumnEncoding {
+    let name = parts[0].name().to_string();
+    let any_missing = parts.iter().any(|c| c.n_missing() > 0);
+    match parts[0].data() {
+        ColumnData::Numeric(_) => {
+            let values: Vec<&[f64]> = parts
+                .iter()
+                .map(|c| match c.data() {
+                    ColumnData::Numeric(v) => v.as_slice(),
+                    ColumnData::Categorical { .. } => {
+                        unreachable!("every part was aligned to the first one's type")
+                    }
+                })
+                .collect();
+            let present = || values.iter().flat_map(|v| v.iter()).filter(|v| !v.is_nan());
             let k = present().count();
             let mean = if k == 0 {
                 0.0
@@ -346,8 +407,13 @@ fn fit_column(s: &Column, t: &Column, warnings: &mut Vec<String>) -> ColumnEncod
             let ss: f64 = present().map(|v| (v - mean) * (v - mean)).sum();
             let sd = (ss / (k.max(2) - 1) as f64).sqrt();
             if k == 0 {
+                let whose = if parts.len() > 1 {
+                    "source or target"
+                } else {
+                    "the rows it was fitted on"
+                };
                 warnings.push(format!(
-                    "column `{name}` has no values in source or target; it carries no information"
+                    "column `{name}` has no values in {whose}; it carries no information"
                 ));
             }
             let scale = if sd.is_finite() && sd > 1e-12 * mean.abs().max(1e-300) {
@@ -362,18 +428,12 @@ fn fit_column(s: &Column, t: &Column, warnings: &mut Vec<String>) -> ColumnEncod
                 missing_indicator: any_missing,
             }
         }
-        (
-            ColumnData::Categorical {
-                levels: la,
-                codes: ca,
-            },
-            ColumnData::Categorical {
-                levels: lb,
-                codes: cb,
-            },
-        ) => {
+        ColumnData::Categorical { .. } => {
             let mut counts: HashMap<&str, usize> = HashMap::new();
-            for (levels, codes) in [(la, ca), (lb, cb)] {
+            for part in parts {
+                let ColumnData::Categorical { levels, codes } = part.data() else {
+                    unreachable!("every part was aligned to the first one's type")
+                };
                 let mut per_code = vec![0usize; levels.len()];
                 for &c in codes.iter().filter(|&&c| c != MISSING_CODE) {
                     per_code[c as usize] += 1;
@@ -411,7 +471,6 @@ fn fit_column(s: &Column, t: &Column, warnings: &mut Vec<String>) -> ColumnEncod
                 missing_level: any_missing,
             }
         }
-        _ => unreachable!("the target column was aligned to the source column's type"),
     }
 }
 
