@@ -94,7 +94,7 @@ fn ticks_n(lo: f64, hi: f64, n: f64) -> Vec<f64> {
 pub const MIN_LOG_TICKS: usize = 3;
 
 /// Most powers of ten labelled on a log axis (every k-th decade beyond that).
-const MAX_DECADES: usize = 8;
+pub const MAX_DECADES: usize = 8;
 
 /// Tick values (not logs) of a log10 axis spanning [10^lo, 10^hi], at least [`MIN_LOG_TICKS`]
 /// of them: powers of ten when the span holds at least that many (every k-th, at most

@@ -428,8 +428,8 @@ fn one_effective_sample_size_is_printed_everywhere() {
                 .filter(|c| c.is_element())
                 .map(|c| {
                     c.descendants()
-                        .filter_map(|t| t.is_text().then(|| t.text()))
-                        .flatten()
+                        .filter(|t| t.is_text())
+                        .filter_map(|t| t.text())
                         .collect()
                 })
                 .collect()
