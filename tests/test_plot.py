@@ -46,8 +46,8 @@ def test_weights_histogram_annotates_kish_ess_and_pareto_k():
     ess = w.sum() ** 2 / (w**2).sum()  # reference: Kish (1965), (sum w)^2 / sum w^2 with numpy
     assert abs(sw.effective_sample_size(w) - ess) < 1e-9 * ess
     text = _texts(ax)
-    assert f"ESS {sw.effective_sample_size(w):.1f} of 500" in text
-    assert f"ESS {ess:.1f} of 500" in text
+    # Whole rows, rounded half away from zero: the one rule of reports and messages.
+    assert f"ESS {int(np.floor(ess + 0.5))} of 500 rows" in text
     assert f"Pareto k {sw.pareto_k(w):.2f}" in text
     # every positive weight is counted once in the histogram
     assert sum(p.get_height() for p in ax.patches) == 500
@@ -60,7 +60,7 @@ def test_weights_histogram_reports_zero_weights_and_uses_given_axes():
     assert ax is ax0
     text = _texts(ax)
     assert "3 zero weight(s) not shown" in text
-    assert "ESS 10.0 of 13" in text  # (10)^2 / 10 = 10 by hand (Kish 1965)
+    assert "ESS 10 of 13 rows" in text  # (10)^2 / 10 = 10 by hand (Kish 1965)
     assert "n/a" in text  # fewer than ~25 rows: no tail fit
 
 

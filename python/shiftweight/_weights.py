@@ -302,7 +302,7 @@ class WeightDiagnosis(_Document):
         rows = [
             ("rows", str(self.n)),
             ("mean weight (should be about 1)", self._mean_text()),
-            ("effective sample size (Kish)", f"{self.ess:.1f} ({100 * self.ess_fraction:.1f}% of rows)"),
+            ("effective sample size (Kish)", _native.ess_words(self.ess, self.n, "rows")),
             ("Pareto k", f"{_fmt(self.pareto_k, 2)} -> {self.verdict} (unreliable above {self.k_threshold:.2f})"),
             ("weight in top 1% of rows", f"{100 * self.top1_share:.1f}% ({self.top1_rows} rows)"),
             ("rows carrying half the weight", str(self.rows_for_half)),

@@ -22,6 +22,7 @@ from typing import Any, Optional, Union
 
 import numpy as np
 
+from . import _native
 from ._tables import is_table_input
 from ._validation import as_matrix, as_vector
 from ._weights import ClipTradeoff
@@ -45,7 +46,7 @@ def ess_label(w: Any) -> str:
     """The effective-sample-size text that :func:`weights` writes on its plot."""
     arr = as_vector(w, "w")
     ess = _ess(arr)
-    return f"ESS {ess:.1f} of {arr.shape[0]} ({100.0 * ess / arr.shape[0]:.1f}%)"
+    return "ESS " + _native.ess_words(ess, arr.shape[0], "rows")
 
 
 def pareto_k_label(w: Any) -> str:
@@ -65,7 +66,7 @@ def weights(w: Any, ax: Any = None, bins: int = 50) -> Any:
     >>> import shiftweight as sw
     >>> ax = sw.plot.weights([0.5, 1.0, 1.0, 2.0])
     >>> ax.get_xscale(), ax.texts[0].get_text().splitlines()[0]   # Kish: 4.5^2 / 6.25 = 3.24
-    ('log', 'ESS 3.2 of 4 (81.0%)')
+    ('log', 'ESS 3 of 4 rows (81%)')
     """
     arr = as_vector(w, "w")
     ax = _axes(ax)

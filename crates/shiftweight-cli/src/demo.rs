@@ -192,10 +192,10 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
     };
     let (e_plain, e_weighted) = (mse(&plain)?, mse(&weighted)?);
     report.extra.push(FactTable {
-        caption: "Linear model of daily kWh on the encoded columns, error on the target town (target labels are known only in this demo)".into(),
+        caption: "Linear model of daily kWh on the encoded columns, its mean squared error on the target town in kWh² (target labels are known only in this demo)".into(),
         rows: vec![
-            ("unweighted fit: mean squared error".into(), format!("{e_plain:.3}")),
-            ("weighted fit: mean squared error".into(), format!("{e_weighted:.3}")),
+            ("unweighted fit: mean squared error".into(), format!("{e_plain:.3} kWh²")),
+            ("weighted fit: mean squared error".into(), format!("{e_weighted:.3} kWh²")),
         ],
     });
     let described = est.description.clone();
@@ -237,20 +237,18 @@ pub fn run(args: DemoArgs, g: &Globals) -> Result<u8, Failure> {
         }
         println!("  weighting: {described}");
         println!(
-            "  source weights: mean {:.3}, max {:.2}, effective sample size {:.0} of {} ({:.0}%)",
+            "  source weights: mean {:.3}, max {:.2}, effective sample size {}",
             mean(w),
             w.iter().cloned().fold(0.0, f64::max),
-            ess,
-            w.len(),
-            100.0 * ess / w.len() as f64
+            shiftweight::diagnostics::ess_words(ess, w.len(), "rows"),
         );
         println!("{verdict_line}");
         if let Some(words) = shiftweight::ratio::decision_summary(&model) {
             println!("  why: {words}");
         }
         println!("  linear model of daily kWh on the encoded columns, error on the target town (labels known only in this demo):");
-        println!("    unweighted fit: mean squared error {e_plain:.2}");
-        println!("    weighted fit:   mean squared error {e_weighted:.2}");
+        println!("    unweighted fit: mean squared error {e_plain:.2} kWh^2");
+        println!("    weighted fit:   mean squared error {e_weighted:.2} kWh^2");
         println!("  Caution: weighting corrects covariate shift only; it needs overlap between the towns,");
         println!("  and must be validated on labelled target data before decisions rely on it.");
         println!("  report: {}", html.display());

@@ -148,9 +148,9 @@ pub fn run(args: WeighArgs, g: &Globals) -> Result<u8, Failure> {
         let n = outcome.weights.len();
         eprintln!("weighting: {described}");
         eprintln!(
-            "wrote {n} weights to {} (effective sample size {:.0} of {n}){}",
+            "wrote {n} weights to {} (effective sample size {}){}",
             args.out.display(),
-            ess,
+            shiftweight::diagnostics::ess_words(ess, n, "rows"),
             if source.rows_dropped + target.rows_dropped > 0 {
                 format!(
                     "; dropped {} source and {} target rows with missing values",

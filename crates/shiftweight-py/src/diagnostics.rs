@@ -17,6 +17,13 @@ fn effective_sample_size(py: Python<'_>, w: PyReadonlyArray1<'_, f64>) -> PyResu
     detached(py, move || core::effective_sample_size(wv))
 }
 
+/// An effective sample size in words by the one rule of reports and messages
+/// (`shiftweight::diagnostics::ess_words`): whole rows and their share of `n`.
+#[pyfunction]
+fn ess_words(ess: f64, n: usize, rows: &str) -> String {
+    core::ess_words(ess, n, rows)
+}
+
 /// Pareto k of the upper tail, as the JSON of the tail fit.
 #[pyfunction]
 fn pareto_k(py: Python<'_>, w: PyReadonlyArray1<'_, f64>) -> PyResult<String> {
@@ -135,6 +142,7 @@ fn check_overlap_probabilities(
 
 pub(crate) fn register(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(effective_sample_size, m)?)?;
+    m.add_function(wrap_pyfunction!(ess_words, m)?)?;
     m.add_function(wrap_pyfunction!(pareto_k, m)?)?;
     m.add_function(wrap_pyfunction!(diagnose, m)?)?;
     m.add_function(wrap_pyfunction!(diagnosis_from_json, m)?)?;

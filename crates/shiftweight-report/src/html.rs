@@ -138,26 +138,27 @@ fn env() -> Environment<'static> {
     let mut env = Environment::new();
     env.set_auto_escape_callback(|_| minijinja::AutoEscape::Html);
     env.add_filter("num", |v: Option<f64>| {
-        v.map_or("n/a".to_string(), svg::num)
+        v.map_or("n/a".to_string(), crate::format::num)
     });
     env.add_filter("pval", |v: Option<f64>| {
-        v.map_or("n/a".to_string(), svg::p_value)
+        v.map_or("n/a".to_string(), crate::format::p_value)
     });
     env.add_filter("pct", |v: Option<f64>| {
         // One decimal: shares of rows or weight; magnitudes below the noise floor print as 0%.
         v.map_or("n/a".to_string(), |v| {
-            if v.abs() < svg::NOISE {
+            if v.abs() < crate::format::NOISE {
                 "0%".to_string()
             } else if v.abs() < 0.0005 {
                 // No false zero: a share that rounds to 0.0% is not nothing.
-                format!("{}%", svg::num(100.0 * v))
+                format!("{}%", crate::format::num(100.0 * v))
             } else {
                 format!("{:.1}%", 100.0 * v)
             }
         })
     });
-    env.add_filter("whole", |v: Option<f64>| {
-        v.map_or("n/a".to_string(), |v| svg::num(v.round()))
+    // Every effective sample size on the page prints by the one rule of the summary and messages.
+    env.add_filter("ess", |v: Option<f64>| {
+        v.map_or("n/a".to_string(), crate::format::ess_rows)
     });
     // The template is part of the crate and checked by its tests; a failure here is a bug.
     env.add_template("report.html", crate::TEMPLATE)

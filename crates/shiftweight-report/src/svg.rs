@@ -53,63 +53,7 @@ pub fn esc(s: &str) -> String {
     out
 }
 
-/// Magnitudes below this print as 0: floating-point noise of sums that are 0 in exact arithmetic
-/// (e.g. -1.776e-15 for a mean shift of nothing). No quantity of the report that is meant to be
-/// non-zero is this small; p-values have their own format ([`p_value`]).
-pub const NOISE: f64 = 1e-12;
-
-/// A number in at most 4 significant digits, switching to exponent notation when very small or
-/// large; magnitudes below [`NOISE`] print as `0`.
-pub fn num(v: f64) -> String {
-    if !v.is_finite() {
-        return if v.is_nan() {
-            "n/a".into()
-        } else if v > 0.0 {
-            "infinite".into()
-        } else {
-            "minus infinite".into()
-        };
-    }
-    let a = v.abs();
-    if a < NOISE {
-        return "0".into();
-    }
-    if !(1e-3..1e5).contains(&a) {
-        format!("{v:.3e}")
-    } else if v == v.trunc() {
-        format!("{v:.0}")
-    } else if a >= 100.0 {
-        format!("{v:.1}")
-    } else {
-        let digits = if a >= 10.0 {
-            2
-        } else if a >= 1.0 {
-            3
-        } else {
-            // 4 significant digits below 1.
-            (3 - a.log10().floor() as i32).clamp(4, 7) as usize
-        };
-        let s = format!("{v:.digits$}");
-        let s = s.trim_end_matches('0').trim_end_matches('.');
-        s.to_string()
-    }
-}
-
-/// A p-value without false zeros: two significant digits, exponent notation below 0.001, and
-/// `< 1e-300` where the double-precision value has underflowed to 0.
-pub fn p_value(p: f64) -> String {
-    if p.is_nan() {
-        "n/a".into()
-    } else if p < 1e-300 {
-        "< 1e-300".into()
-    } else if p < 1e-3 {
-        format!("{p:.1e}")
-    } else if p < 0.01 {
-        format!("{p:.4}")
-    } else {
-        format!("{p:.3}")
-    }
-}
+pub use crate::format::{num, p_value, NOISE};
 
 fn open(title: &str, h: f64) -> String {
     format!(
@@ -121,10 +65,16 @@ fn open(title: &str, h: f64) -> String {
 
 /// Roughly 5 round tick values covering [lo, hi].
 fn ticks(lo: f64, hi: f64) -> Vec<f64> {
+    ticks_n(lo, hi, 5.0)
+}
+
+/// Round tick values inside [lo, hi] at a step of 1, 2, 2.5 or 5 times a power of ten, the
+/// smallest such step at least (hi - lo) / `n` (at most 12 ticks).
+fn ticks_n(lo: f64, hi: f64, n: f64) -> Vec<f64> {
     if hi.is_nan() || lo.is_nan() || hi <= lo {
         return vec![lo];
     }
-    let raw = (hi - lo) / 5.0;
+    let raw = (hi - lo) / n;
     let mag = 10f64.powf(raw.log10().floor());
     let step = [1.0, 2.0, 2.5, 5.0, 10.0]
         .iter()
@@ -138,6 +88,59 @@ fn ticks(lo: f64, hi: f64) -> Vec<f64> {
         t += step;
     }
     out
+}
+
+/// Fewest labelled ticks of a log axis.
+pub const MIN_LOG_TICKS: usize = 3;
+
+/// Most powers of ten labelled on a log axis (every k-th decade beyond that).
+pub const MAX_DECADES: usize = 8;
+
+/// Tick values (not logs) of a log10 axis spanning [10^lo, 10^hi], at least [`MIN_LOG_TICKS`]
+/// of them: powers of ten when the span holds at least that many (every k-th, at most
+/// [`MAX_DECADES`]), else the 1-2-5 multiples of each power of ten (spans under about two
+/// decades), else, for spans too narrow even for those, round values at an even linear step.
+/// O(decades + ticks).
+pub fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
+    if !(lo.is_finite() && hi.is_finite()) || hi <= lo {
+        return vec![10f64.powf(lo)];
+    }
+    let eps = 1e-9;
+    let (d0, d1) = ((lo - eps).ceil() as i32, (hi + eps).floor() as i32);
+    let decades = (d1 - d0 + 1).max(0) as usize;
+    if decades >= MIN_LOG_TICKS {
+        let every = decades.div_ceil(MAX_DECADES);
+        return (d0..=d1).step_by(every).map(|k| 10f64.powi(k)).collect();
+    }
+    let one_two_five: Vec<f64> = ((lo.floor() as i32)..=(hi.ceil() as i32))
+        .flat_map(|k| [1.0, 2.0, 5.0].map(|m| m * 10f64.powi(k)))
+        .filter(|v| (lo - eps..=hi + eps).contains(&v.log10()))
+        .collect();
+    if one_two_five.len() >= MIN_LOG_TICKS {
+        return one_two_five;
+    }
+    let (a, b) = (10f64.powf(lo), 10f64.powf(hi));
+    let mut n = 5.0;
+    loop {
+        let t: Vec<f64> = ticks_n(a, b, n).into_iter().filter(|v| *v > 0.0).collect();
+        if t.len() >= MIN_LOG_TICKS || n > 1e3 {
+            return t;
+        }
+        n *= 2.0;
+    }
+}
+
+/// Ticks of a linear axis over [lo, hi] as (position, label).
+fn linear_axis(lo: f64, hi: f64) -> Vec<(f64, String)> {
+    ticks(lo, hi).into_iter().map(|t| (t, num(t))).collect()
+}
+
+/// Ticks of a log10 axis over [lo, hi] (in logs) as (position in logs, label of the value).
+fn log_axis(lo: f64, hi: f64) -> Vec<(f64, String)> {
+    log_ticks(lo, hi)
+        .into_iter()
+        .map(|v| (v.log10(), num(v)))
+        .collect()
 }
 
 struct Frame {
@@ -165,8 +168,8 @@ impl Frame {
         };
         self.h - BOTTOM - (y - self.y0) / span * (self.h - TOP - BOTTOM)
     }
-    /// Axes, grid lines and labels. `xfmt` formats x tick values.
-    fn axes(&self, s: &mut String, x_label: &str, y_label: &str, xfmt: &dyn Fn(f64) -> String) {
+    /// Axes, grid lines and labels; the x ticks are given as (position, label).
+    fn axes(&self, s: &mut String, x_label: &str, y_label: &str, x_ticks: &[(f64, String)]) {
         for t in ticks(self.y0, self.y1) {
             let y = self.py(t);
             let _ = write!(
@@ -179,8 +182,8 @@ impl Frame {
                 esc(&num(t))
             );
         }
-        for t in ticks(self.x0, self.x1) {
-            let x = self.px(t);
+        for (t, label) in x_ticks {
+            let x = self.px(*t);
             let _ = write!(
                 s,
                 "<line x1=\"{x:.1}\" x2=\"{x:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{INK}\"/>\
@@ -188,7 +191,7 @@ impl Frame {
                 self.h - BOTTOM,
                 self.h - BOTTOM + 5.0,
                 self.h - BOTTOM + 18.0,
-                esc(&xfmt(t))
+                esc(label)
             );
         }
         let _ = write!(
@@ -265,7 +268,7 @@ pub fn log_histogram(values: &[f64], title: &str, x_label: &str, bins: usize) ->
         y1: top,
         h: H,
     };
-    f.axes(&mut s, x_label, "rows", &|t| num(10f64.powf(t)));
+    f.axes(&mut s, x_label, "rows", &log_axis(lo, hi));
     for (b, c) in counts.iter().enumerate() {
         let (xa, xb) = (
             f.px(lo + b as f64 * width),
@@ -369,13 +372,12 @@ pub fn line_chart(
         y1: y1 + pad,
         h: H,
     };
-    f.axes(&mut s, x_label, y_label, &|t| {
-        if log_x {
-            num(10f64.powf(t))
-        } else {
-            num(t)
-        }
-    });
+    let xt = if log_x {
+        log_axis(f.x0, f.x1)
+    } else {
+        linear_axis(f.x0, f.x1)
+    };
+    f.axes(&mut s, x_label, y_label, &xt);
     for (k, ser) in series.iter().enumerate() {
         let colour = SERIES[k % SERIES.len()];
         let dash = DASHES[k % DASHES.len()];
@@ -583,7 +585,7 @@ pub fn two_sample_histogram(
         y1: if top > 0.0 { top * 1.15 } else { 1.0 },
         h: H,
     };
-    f.axes(&mut s, x_label, "share of rows", &num);
+    f.axes(&mut s, x_label, "share of rows", &linear_axis(f.x0, f.x1));
     let width = (hi - lo) / nb as f64;
     for (b, v) in hs.iter().take(nb).enumerate() {
         let (xa, xb) = (
@@ -688,104 +690,4 @@ pub fn level_bars(levels: &[String], source: &[f64], target: &[f64], title: &str
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-
-    fn parse(svg: &str) -> roxmltree::Document<'_> {
-        // reference: roxmltree, an independent strict XML parser (rejects unbalanced tags)
-        roxmltree::Document::parse(svg).unwrap()
-    }
-
-    #[test]
-    fn escapes_markup() {
-        assert_eq!(esc("a<b & \"c\""), "a&lt;b &amp; &quot;c&quot;");
-    }
-
-    #[test]
-    fn numbers_without_noise_or_false_zeros() {
-        assert_eq!(num(-1.776e-15), "0");
-        assert_eq!(num(54.7723), "54.77");
-        assert_eq!(num(0.0871), "0.0871");
-        assert_eq!(num(194.0), "194");
-        assert_eq!(num(-1.9e5), "-1.900e5");
-        assert_eq!(num(0.000_123_4), "1.234e-4");
-        assert_eq!(p_value(0.0), "< 1e-300");
-        assert_eq!(p_value(3.2e-7), "3.2e-7");
-        assert_eq!(p_value(0.0099), "0.0099");
-        assert_eq!(p_value(0.5), "0.500");
-    }
-
-    #[test]
-    fn ticks_cover_range() {
-        let t = ticks(0.0, 10.0);
-        assert_eq!(t.first(), Some(&0.0));
-        assert_eq!(t.last(), Some(&10.0));
-    }
-
-    #[test]
-    fn bins_count_every_finite_value_once() {
-        let c = bin_counts(&[0.0, 0.5, 1.0, 2.0, f64::NAN, -5.0, 9.0], 0.0, 2.0, 4);
-        // Bins of width 0.5: 0 and the clamped -5 in the first, 0.5 and 1 in the next two, the
-        // closed end 2 and the clamped 9 in the last; NaN is dropped.
-        assert_eq!(c, vec![2, 1, 1, 2]);
-    }
-
-    #[test]
-    fn histogram_counts_every_positive_value() {
-        // 3 positive values, one zero: the bars' tooltips must add up to 3 and the zero be noted.
-        let s = log_histogram(&[0.0, 0.5, 1.0, 2.0], "w", "weight", 4);
-        parse(&s);
-        let total: usize = s
-            .split("<title>")
-            .skip(2)
-            .filter_map(|p| p.split(" rows</title>").next()?.parse::<usize>().ok())
-            .sum();
-        assert_eq!(total, 3);
-        assert!(s.contains("1 zero weight(s)"));
-    }
-
-    #[test]
-    fn two_samples_are_told_apart_without_colour() {
-        let (lo, hi, hs, ht) = shared_bins(&[0.0, 1.0, 2.0], &[1.0, 2.0, 3.0, 3.0], 3).unwrap();
-        // Pooled range [0, 3] in 3 bins of width 1; each sample's shares add up to 1.
-        assert_eq!((lo, hi), (0.0, 3.0));
-        assert_eq!(hs, vec![1.0 / 3.0, 1.0 / 3.0, 1.0 / 3.0]);
-        assert_eq!(ht, vec![0.0, 0.25, 0.75]);
-        let s = two_sample_histogram(lo, hi, &hs, &ht, "x", "x");
-        let doc = parse(&s);
-        assert!(s.contains("source (filled bars)") && s.contains("target (dashed outline)"));
-        assert!(doc
-            .descendants()
-            .any(|n| n.attribute("stroke-dasharray").is_some()));
-        let lv = level_bars(
-            &["a".into(), "b".into()],
-            &[0.25, 0.75],
-            &[0.5, 0.5],
-            "levels",
-        );
-        parse(&lv);
-        assert!(lv.contains("source 25.0%") && lv.contains("target 50.0%"));
-    }
-
-    #[test]
-    fn dot_chart_marks_the_chosen_row_in_words() {
-        let rows = vec![
-            Dot {
-                label: "first".into(),
-                value: -0.6,
-                spread: Some(0.05),
-                marked: false,
-            },
-            Dot {
-                label: "second".into(),
-                value: -0.7,
-                spread: Some(0.02),
-                marked: true,
-            },
-        ];
-        let s = dot_chart(&rows, "scores", "score");
-        parse(&s);
-        assert_eq!(s.matches(">chosen<").count(), 1);
-        assert!(s.contains(">first<") && s.contains(">second<"));
-    }
-}
+mod tests;

@@ -18,7 +18,7 @@ use crate::{
     Report, ShiftOptions, ShiftPart, WeightSource,
 };
 use shiftweight::ratio::{AutoRatio, RatioEstimator};
-use shiftweight::table::{encode_pair, support_gaps, Column, ColumnData, Table, MISSING_CODE};
+use shiftweight::table::{encode_pair, support_gaps, Column, ColumnData, Table};
 use shiftweight::{FeatureShift, MatrixView};
 
 impl FeatureFigure {
@@ -26,41 +26,21 @@ impl FeatureFigure {
     /// distinct values) of a numeric column, level shares of a categorical one, missing values
     /// left out. `None` when the two columns are of different kinds.
     pub fn from_columns(source: &Column, target: &Column) -> Option<Self> {
-        match (source.data(), target.data()) {
-            (ColumnData::Numeric(s), ColumnData::Numeric(t)) => {
-                Some(FeatureFigure::from_numbers(source.name(), s, t, false))
-            }
-            (
-                ColumnData::Categorical {
-                    levels: ls,
-                    codes: cs,
-                },
-                ColumnData::Categorical {
-                    levels: lt,
-                    codes: ct,
-                },
-            ) => Some(FeatureFigure::from_levels(
-                source.name(),
-                &level_text(cs, ls),
-                &level_text(ct, lt),
-            )),
-            _ => None,
+        if let (ColumnData::Numeric(s), ColumnData::Numeric(t)) = (source.data(), target.data()) {
+            return Some(FeatureFigure::from_numbers(source.name(), s, t, false));
         }
+        source.categories().and(target.categories())?;
+        Some(FeatureFigure::from_levels(
+            source.name(),
+            &level_text(source),
+            &level_text(target),
+        ))
     }
 }
 
-/// The text of each level code, `None` for a missing value.
-fn level_text<'a>(codes: &[u32], levels: &'a [String]) -> Vec<Option<&'a str>> {
-    codes
-        .iter()
-        .map(|&c| {
-            if c == MISSING_CODE {
-                None
-            } else {
-                levels.get(c as usize).map(String::as_str)
-            }
-        })
-        .collect()
+/// The level of each row of a categorical column, `None` for a missing value.
+fn level_text(c: &Column) -> Vec<Option<&str>> {
+    (0..c.len()).map(|i| c.level(i)).collect()
 }
 
 /// The row-major matrix of a table whose columns are all numeric.

@@ -1,5 +1,6 @@
 use super::*;
-use shiftweight::ratio::LeastSquaresRatio;
+use shiftweight::ratio::{LeastSquaresRatio, RatioEstimator};
+use shiftweight::MatrixView;
 
 fn gaussian(n: usize, d: usize, mean: f64, seed: u64) -> Vec<f64> {
     // Box-Muller on a seeded xorshift generator (no test-only randomness crate needed).
@@ -374,4 +375,115 @@ fn an_all_numeric_table_gives_the_matrix_report() {
     .unwrap();
     let b = full_report_table("report", &st, &tt, WeightSource::Automatic, &opts, 5).unwrap();
     assert_eq!(a.to_json(), b.to_json());
+}
+
+#[test]
+fn one_effective_sample_size_is_printed_everywhere() {
+    // 180 rows at weight 1, 5 at weight 2, 2815 at 0: Kish ESS = (180 + 10)^2 / (180 + 20) =
+    // 36100 / 200 = 180.5 exactly (Kish 1965). Half-to-even formatting would print 180 and a
+    // one-decimal one 180.5; the one rule rounds half away from zero: 181 everywhere.
+    let w: Vec<f64> = (0..3000)
+        .map(|i| match i {
+            0..180 => 1.0,
+            180..185 => 2.0,
+            _ => 0.0,
+        })
+        .collect();
+    let (part, clipping) = weight_sections(&w, &w, "none");
+    assert_eq!(part.effective_sample_size, 180.5);
+    let mut r = Report::new("weigh", 0);
+    r.weights = Part::Available(part);
+    r.clipping = clipping;
+    let html = r.to_html();
+    let doc = parse(&html);
+    let summary = text(
+        &doc.descendants()
+            .find(|n| n.attribute("class") == Some("summary"))
+            .unwrap(),
+    );
+    assert!(
+        summary.contains("effective sample size is 181 of 3000 source rows (6.0%)"),
+        "{summary}"
+    );
+    assert!(summary.contains("rests on about 181 rows"), "{summary}");
+    let diag: Vec<String> = rows_of(&doc, "diagnostics").iter().map(text).collect();
+    assert!(
+        diag.iter().any(|d| d.contains("181 of 3000 rows (6.0%)")),
+        "{diag:?}"
+    );
+    let weights = text(
+        &doc.descendants()
+            .find(|n| n.attribute("id") == Some("weights"))
+            .unwrap(),
+    );
+    assert!(
+        weights.contains("The effective sample size is 181 of 3000 rows (6.0%)"),
+        "{weights}"
+    );
+    // The uncapped row of the clipping table (no row capped) shows the same number.
+    let clip: Vec<Vec<String>> = rows_of(&doc, "clip-table")
+        .iter()
+        .map(|tr| {
+            tr.children()
+                .filter(|c| c.is_element())
+                .map(|c| {
+                    c.descendants()
+                        .filter(|t| t.is_text())
+                        .filter_map(|t| t.text())
+                        .collect()
+                })
+                .collect()
+        })
+        .collect();
+    assert!(
+        clip.iter().any(|c| c[1] == "0%" && c[2] == "181"),
+        "{clip:?}"
+    );
+    assert!(
+        !html.contains("180.5") && !html.contains(">180<"),
+        "ESS printed otherwise"
+    );
+}
+
+/// The declarations of `selector` in the template's print styles (every rule whose selector list
+/// names it exactly, comments left out), joined.
+fn print_rules(selector: &str) -> String {
+    let start = TEMPLATE.find("@media print{").expect("print styles") + "@media print{".len();
+    let end = start
+        + TEMPLATE[start..]
+            .find("\n}\n")
+            .expect("end of the print styles");
+    let mut css = TEMPLATE[start..end].to_string();
+    while let Some(a) = css.find("/*") {
+        let b = a + css[a..].find("*/").expect("closed comment") + 2;
+        css.replace_range(a..b, "");
+    }
+    css.split('}')
+        .filter_map(|rule| rule.split_once('{'))
+        .filter(|(sel, _)| sel.split(',').any(|s| s.trim() == selector))
+        .map(|(_, decls)| decls.to_string())
+        .collect::<Vec<_>>()
+        .join(";")
+}
+
+#[test]
+fn print_styles_keep_headings_with_what_follows_and_figures_whole() {
+    // CSS Fragmentation Module Level 3 (W3C): break-after: avoid keeps a heading on the page of
+    // the content after it; break-inside: avoid keeps a box on one page when it fits.
+    for heading in ["h2", "h3", "caption"] {
+        let r = print_rules(heading);
+        assert!(r.contains("break-after:avoid"), "{heading}: {r}");
+    }
+    // A section's lead-in sentence stays with the figure or table it introduces, and each heading
+    // reserves room below it without taking space (a block of height h with margin-bottom -h).
+    assert!(print_rules("h2+p").contains("break-after:avoid"));
+    let room = print_rules("h2::after");
+    assert!(
+        room.contains("height:8cm") && room.contains("margin-bottom:-8cm"),
+        "{room}"
+    );
+    for block in ["figure", "table", "tr"] {
+        let r = print_rules(block);
+        assert!(r.contains("break-inside:avoid"), "{block}: {r}");
+    }
 }

@@ -114,7 +114,7 @@ impl ClassifierShiftTest {
 
     fn describe(&self) -> String {
         format!(
-            "logistic regression on standardised features (l2 = {})",
+            "logistic regression on standardised features, penalty {}",
             self.l2
         )
     }

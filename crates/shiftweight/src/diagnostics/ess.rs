@@ -138,6 +138,30 @@ pub fn effective_sample_size(w: &[f64]) -> Result<f64> {
     Ok(kish(w, max))
 }
 
+/// An effective sample size as printed everywhere (reports, messages, the command line): rounded
+/// to whole rows, half away from zero. One rule, so the same weights never show as 207.5 in one
+/// place and 208 in another.
+pub fn ess_rows(ess: f64) -> String {
+    if ess.is_finite() {
+        format!("{}", ess.round())
+    } else {
+        "n/a".into()
+    }
+}
+
+/// An effective sample size in words with its share of the `n` rows: `173 of 3000 source rows
+/// (5.8%)` for `rows = "source rows"`. The count follows [`ess_rows`]; the share has two
+/// significant digits below 10% and none above (never a false 0%).
+pub fn ess_words(ess: f64, n: usize, rows: &str) -> String {
+    let share = if n > 0 { ess / n as f64 } else { f64::NAN };
+    let share = if share.is_finite() {
+        super::verdict::pct(share)
+    } else {
+        "n/a".into()
+    };
+    format!("{} of {n} {rows} ({share})", ess_rows(ess))
+}
+
 /// Kish effective sample size as a fraction of the number of weights, in (0, 1].
 pub fn ess_fraction(w: &[f64]) -> Result<f64> {
     Ok(effective_sample_size(w)? / w.len() as f64)

@@ -322,3 +322,34 @@ fn diagnosis_json_round_trip() {
     assert_eq!(Diagnosis::from_json(&text).unwrap(), d);
     assert!(Diagnosis::from_json("{\"format\":\"other\",\"version\":1,\"model\":{}}").is_err());
 }
+
+#[test]
+fn ess_prints_in_whole_rows_half_away_from_zero() {
+    // Kish ESS of 180 ones and 5 twos: (180 + 10)^2 / (180 + 20) = 180.5 (Kish 1965, by hand).
+    let mut w = vec![1.0; 180];
+    w.extend([2.0; 5]);
+    let ess = effective_sample_size(&w).unwrap();
+    assert_eq!(ess, 180.5);
+    // Half away from zero (f64::round), not the half-to-even of `{:.0}`, which prints 180.
+    assert_eq!(ess_rows(ess), "181");
+    assert_eq!(ess_rows(207.4), "207");
+    assert_eq!(ess_words(ess, 3000, "rows"), "181 of 3000 rows (6.0%)");
+    assert_eq!(
+        ess_words(173.2, 3000, "source rows"),
+        "173 of 3000 source rows (5.8%)"
+    );
+    assert_eq!(ess_words(1500.0, 3000, "rows"), "1500 of 3000 rows (50%)");
+    assert_eq!(ess_rows(f64::NAN), "n/a");
+    // The diagnosis's warning uses the same rule.
+    let mut w = vec![0.0; 2815];
+    w.extend([1.0; 180]);
+    w.extend([2.0; 5]);
+    let d = diagnose(&w, None).unwrap();
+    assert!(
+        d.warnings
+            .iter()
+            .any(|m| m.contains("is 181 of 3000 rows (6.0%)")),
+        "{:?}",
+        d.warnings
+    );
+}

@@ -369,10 +369,8 @@ pub(super) fn warnings_for(d: &Diagnosis) -> Vec<String> {
     }
     if d.ess_fraction < 0.1 {
         out.push(format!(
-            "The effective sample size is {:.1} of {} rows ({}): a weighted fit rests on about that many rows.",
-            d.ess,
-            d.n,
-            pct(d.ess_fraction)
+            "The effective sample size is {}: a weighted fit rests on about that many rows.",
+            ess_words(d.ess, d.n, "rows")
         ));
     }
     if d.n_zero > 0 {
@@ -388,12 +386,12 @@ pub(super) fn warnings_for(d: &Diagnosis) -> Vec<String> {
         }
         if g.weight_share < 0.2 * g.row_share || g.ess < 10.0_f64.min(g.n as f64) {
             out.push(format!(
-                "Group '{}' holds {} of the rows but {} of the weight (ESS {:.1}): a weighted model may \
+                "Group '{}' holds {} of the rows but {} of the weight (ESS {}): a weighted model may \
                  largely ignore it.",
                 g.group,
                 pct(g.row_share),
                 pct(g.weight_share),
-                g.ess
+                ess_rows(g.ess)
             ));
         }
     }

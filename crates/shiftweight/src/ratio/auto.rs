@@ -229,6 +229,26 @@ pub const DEFAULT_MAX_ROWS: usize = 20_000;
 /// Name of the always-present baseline in the score table.
 pub const UNIFORM_NAME: &str = "uniform";
 
+/// A candidate of the automatic choice in plain words, as the reports and every message print
+/// it: the names of [`default_candidates`] and [`UNIFORM_NAME`] become what the estimator is
+/// (`classifier_quadratic`: "logistic classifier on quadratic features"); any other name (a
+/// caller's own candidate) is returned as given.
+pub fn candidate_words(name: &str) -> String {
+    match name {
+        UNIFORM_NAME => "uniform weights (no correction)".into(),
+        "ulsif" => "uLSIF (least-squares fit of Gaussian kernels)".into(),
+        "classifier_linear" => "logistic classifier on the features".into(),
+        QUADRATIC_NAME => "logistic classifier on quadratic features".into(),
+        "classifier_fourier" => "logistic classifier on random Fourier features".into(),
+        "kliep" => "KLIEP (maximum-likelihood fit of Gaussian kernels)".into(),
+        n if n.starts_with("rulsif_alpha_") => format!(
+            "RuLSIF, relative ratio with alpha = {}",
+            &n["rulsif_alpha_".len()..]
+        ),
+        n => n.to_string(),
+    }
+}
+
 /// Above this many columns the quadratic classifier is left out of the default candidates (see
 /// [`default_candidates_for`]).
 pub const QUADRATIC_DEFAULT_MAX_COLUMNS: usize = 20;
@@ -971,8 +991,9 @@ pub fn decision_summary(m: &FittedRatio) -> Option<String> {
     } else if let Some(r) = row(chosen) {
         let se = r.params.get("std_error").copied().unwrap_or(f64::NAN);
         out.push(format!(
-            "Chose {chosen}: held-out score {:.4} (standard error {se:.4}) against -0.5 for uniform \
+            "Chose {}: held-out score {:.4} (standard error {se:.4}) against -0.5 for uniform \
              weights (lower is better).",
+            candidate_words(chosen),
             r.score
         ));
         match m.cap {
@@ -989,11 +1010,10 @@ pub fn decision_summary(m: &FittedRatio) -> Option<String> {
             )),
             None => out.push("Its weights are the raw estimates (no cap).".into()),
         }
+        let n = m.source_weights.len();
         out.push(format!(
-            "Effective sample size of the weights: {:.0} of {} source rows ({:.1}%).",
-            ess * m.source_weights.len() as f64,
-            m.source_weights.len(),
-            100.0 * ess
+            "Effective sample size of the weights: {}.",
+            crate::diagnostics::ess_words(ess * n as f64, n, "source rows")
         ));
     }
     let excluded: Vec<String> = sel
@@ -1003,7 +1023,8 @@ pub fn decision_summary(m: &FittedRatio) -> Option<String> {
         .filter(|(_, r)| r.params.get("excluded") == Some(&1.0))
         .map(|(l, r)| {
             format!(
-                "{l} (Pareto k {:.2} of its raw weights)",
+                "{} (Pareto k {:.2} of its raw weights)",
+                candidate_words(l),
                 r.params.get("pareto_k").copied().unwrap_or(f64::NAN)
             )
         })
@@ -1014,22 +1035,15 @@ pub fn decision_summary(m: &FittedRatio) -> Option<String> {
             excluded.join(", ")
         ));
     }
-    let failed: Vec<&String> = sel
+    let failed: Vec<String> = sel
         .labels
         .iter()
         .zip(&sel.table)
         .filter(|(_, r)| r.score.is_infinite())
-        .map(|(l, _)| l)
+        .map(|(l, _)| candidate_words(l))
         .collect();
     if !failed.is_empty() {
-        out.push(format!(
-            "Could not be scored: {}.",
-            failed
-                .iter()
-                .map(|s| s.as_str())
-                .collect::<Vec<_>>()
-                .join(", ")
-        ));
+        out.push(format!("Could not be scored: {}.", failed.join(", ")));
     }
     if let (Some(n), true) = (
         scored,
@@ -1085,6 +1099,14 @@ mod tests {
         );
         assert_eq!(m.selection.table[0].score, -0.5);
         assert!(m.selection.table[1].score < -0.5);
+        // The summary names the choice in the words of the reports, not by its identifier.
+        let chosen = m.selection.candidate.clone().unwrap();
+        let why = decision_summary(&m).unwrap();
+        assert!(
+            why.contains(&format!("Chose {}:", candidate_words(&chosen))),
+            "{why}"
+        );
+        assert!(!why.contains(&chosen), "{why}");
         let again = FittedRatio::from_json(&m.to_json().unwrap()).unwrap();
         assert_eq!(again.selection, m.selection);
 
@@ -1100,6 +1122,24 @@ mod tests {
             .warnings
             .iter()
             .any(|w| w.contains("no candidate estimator beat uniform")));
+    }
+
+    #[test]
+    fn every_default_candidate_has_words() {
+        // Each default candidate and the uniform baseline print as what they are; a name
+        // without words would reach the reports and messages as an identifier.
+        let names: Vec<String> = default_candidates(0).into_iter().map(|c| c.name).collect();
+        for name in names.iter().map(String::as_str).chain([UNIFORM_NAME]) {
+            let words = candidate_words(name);
+            assert_ne!(words, name);
+            assert!(!words.contains('_'), "{name}: {words}");
+        }
+        assert_eq!(
+            candidate_words("rulsif_alpha_0.1"),
+            "RuLSIF, relative ratio with alpha = 0.1"
+        );
+        // A caller's own candidate keeps its name.
+        assert_eq!(candidate_words("my_model"), "my_model");
     }
 
     fn row(name: &str, mean: f64, std_error: f64, k: Option<f64>) -> CandidateScore {

@@ -523,7 +523,7 @@ fn choose_penalty(
                     params: params([("l2", l2)]),
                     score: f64::INFINITY,
                 });
-                failures.push(format!("l2 = {l2}: {e}"));
+                failures.push(format!("penalty {l2}: {e}"));
             }
             Err(e) => return Err(e),
         }

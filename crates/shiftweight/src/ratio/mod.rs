@@ -21,7 +21,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
-pub use auto::{decision_summary, AutoRatio, SelectionScore, UniformRatio};
+pub use auto::{candidate_words, decision_summary, AutoRatio, SelectionScore, UniformRatio};
 pub use classifier::{ratio_from_probabilities, ClassifierRatio, FeatureMap, Features};
 pub use kliep::{KLRatio, KliepCv};
 pub use kmm::KernelMeanMatching;

@@ -362,6 +362,14 @@ impl Column {
     pub fn n_missing(&self) -> usize {
         (0..self.len()).filter(|&i| self.is_missing(i)).count()
     }
+    /// The level names and per-row codes of a categorical column ([`MISSING_CODE`] marks a missing
+    /// row); `None` for a numeric column.
+    pub fn categories(&self) -> Option<(&[String], &[u32])> {
+        match &self.data {
+            ColumnData::Categorical { levels, codes } => Some((levels, codes)),
+            ColumnData::Numeric(_) => None,
+        }
+    }
     /// The level of row `i` of a categorical column (`None` when missing or numeric).
     pub fn level(&self, i: usize) -> Option<&str> {
         match &self.data {

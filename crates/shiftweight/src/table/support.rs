@@ -5,7 +5,7 @@
 //! there and no weighting of the source rows can represent them: the gap is a failure of support,
 //! not a small weight. O(n) per column with a hash set of the source levels.
 
-use super::{ColumnData, Table, MISSING_CODE};
+use super::{Table, MISSING_CODE};
 use crate::error::{Error, Result};
 use serde::{Deserialize, Serialize};
 use std::collections::HashSet;
@@ -58,17 +58,7 @@ pub fn support_gaps(source: &Table, target: &Table) -> Result<Vec<SupportGap>> {
         } else {
             std::borrow::Cow::Owned(t.clone().with_kind(s.kind())?)
         };
-        if let (
-            ColumnData::Categorical {
-                levels: ls,
-                codes: cs,
-            },
-            ColumnData::Categorical {
-                levels: lt,
-                codes: ct,
-            },
-        ) = (s.data(), t.data())
-        {
+        if let (Some((ls, cs)), Some((lt, ct))) = (s.categories(), t.categories()) {
             let mut used = vec![false; ls.len()];
             for &c in cs.iter().filter(|&&c| c != MISSING_CODE) {
                 used[c as usize] = true;
