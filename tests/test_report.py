@@ -130,6 +130,17 @@ def test_demo_report_answers_the_reviewers_questions(cli, tmp_path):
             assert c["name"] not in why, (c["name"], why)
     chosen = next(c for c in rep["estimator"]["data"]["candidates"] if c["chosen"])
     assert f"Chose {chosen['words'] or chosen['name']}:" in why, why
+    # The candidates chart labels its rows with the same words, never the identifiers.
+    start = text.index("Selection score of each candidate")
+    chart = text[text.rindex("<svg", 0, start): text.index("</svg>", start)]
+    import html as _html
+
+    chart = _html.unescape(chart)
+    for c in rep["estimator"]["data"]["candidates"]:
+        if c["words"] and c["name"] not in c["words"]:
+            assert c["name"] not in chart, (c["name"], "identifier in the chart")
+            if c["excluded"] is None and c["score"] is not None:
+                assert c["words"] in chart, (c["words"], "missing from the chart")
     # One effective sample size everywhere: the terminal, the summary, the diagnostics table, the
     # warnings and the uncapped row of the clipping table show the same whole number of rows.
     plain = re.sub(r"<[^>]+>", " ", text)

@@ -36,7 +36,7 @@ fn candidates_figure(e: &EstimatorPart) -> Option<Figure> {
     let dots: Vec<Dot> = kept
         .iter()
         .map(|c| Dot {
-            label: c.name.clone(),
+            label: c.words.clone().unwrap_or_else(|| c.name.clone()),
             value: c.score,
             spread: c.std_error,
             marked: c.chosen,
@@ -46,7 +46,7 @@ fn candidates_figure(e: &EstimatorPart) -> Option<Figure> {
         .candidates
         .iter()
         .filter(|c| c.excluded.is_some() || !c.score.is_finite())
-        .map(|c| c.name.clone())
+        .map(|c| c.words.clone().unwrap_or_else(|| c.name.clone()))
         .collect();
     let mut caption = "Selection score of each candidate (lower is better); the whiskers span one standard error either side where it is recorded; the chosen candidate is the diamond labelled \u{201c}chosen\u{201d}.".to_string();
     if drawn.len() > kept.len() {

@@ -454,7 +454,13 @@ pub fn dot_chart(rows: &[Dot], title: &str, value_label: &str) -> String {
     } else {
         0.05 * (hi - lo)
     };
-    let label_w = 190.0;
+    // Room for the longest label at about 6.2 px a character (11 px sans-serif), within bounds.
+    let longest = rows
+        .iter()
+        .map(|r| r.label.chars().count())
+        .max()
+        .unwrap_or(0);
+    let label_w = (longest as f64 * 6.2 + 16.0).clamp(120.0, 330.0);
     let plot_w = W - label_w - RIGHT - 70.0;
     let (x0, x1) = (lo - pad, hi + pad);
     let px = |v: f64| label_w + (v - x0) / (x1 - x0) * plot_w;
