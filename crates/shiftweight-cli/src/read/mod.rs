@@ -16,8 +16,10 @@
 //! and the column.
 //!
 //! CSV (`csv.rs`): quoted fields (holding delimiters, quotes or line breaks), LF or CRLF line
-//! ends and a UTF-8 byte-order mark are handled by the `csv` crate's reader. Field conversion
-//! runs column by column in parallel over a chunk of records. Parquet (`parquet.rs`) goes through
+//! ends and a UTF-8 byte-order mark follow the `csv` crate's rules. Lines whose fields are plain
+//! (unquoted, or quoted as a whole without inner quotes) are split into fields in parallel; from
+//! the first chunk holding any other line, the `csv` crate's sequential reader takes over. Field
+//! conversion runs column by column in parallel over a chunk of records. Parquet (`parquet.rs`) goes through
 //! the Arrow record-batch reader (uncompressed, snappy, gzip, lz4, zstd and brotli pages; plain
 //! and dictionary-encoded columns; nullable columns), only the chosen columns, split into groups
 //! that decode in parallel. Levels are numbered in order of first appearance in the rows, for
